@@ -1,0 +1,27 @@
+# Two entry points: `make demo` (the main job on the bundled demo clips) and `make test`.
+# Both create or reuse a local virtual environment in .venv and install the project with its
+# test extra into it.
+PYTHON ?= python3
+VENV ?= .venv
+PY := $(VENV)/bin/python
+STAMP := $(VENV)/.installed
+
+.PHONY: demo test bench clean
+
+$(STAMP): pyproject.toml
+	$(PYTHON) -m venv $(VENV)
+	$(PY) -m pip install --quiet --upgrade pip
+	$(PY) -m pip install --quiet -e '.[test,cluster]'
+	touch $(STAMP)
+
+demo: $(STAMP)
+	$(VENV)/bin/synth demo
+
+test: $(STAMP)
+	$(PY) -m pytest -q -n 2
+
+bench: $(STAMP)
+	$(PY) benchmarks/run_all.py
+
+clean:
+	rm -rf $(VENV) synth-demo .pytest_cache

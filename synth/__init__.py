@@ -1,0 +1,20 @@
+"""synth: interpolated reference frames from coded motion vectors.
+
+Public API (see README.md). The numeric core takes arrays and dataclasses, never paths, and
+prints nothing.
+"""
+
+from .errors import FormatError, ParameterError, SynthError
+from .field import VectorField
+from .picture import ClipInfo, Picture
+
+__version__ = "0.1.0"
+
+__all__ = [
+    "SynthError",
+    "FormatError",
+    "ParameterError",
+    "Picture",
+    "ClipInfo",
+    "VectorField",
+]

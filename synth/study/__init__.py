@@ -1,0 +1,1 @@
+"""Test-set studies: manifests, job expansion, resumable execution, aggregation."""
