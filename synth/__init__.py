@@ -8,6 +8,9 @@ from .errors import FormatError, ParameterError, SynthError
 from .field import VectorField
 from .picture import ClipInfo, Picture
 
+# -- coded motion (issue 3) --
+from .motion import estimate_field
+
 __version__ = "0.1.0"
 
 __all__ = [
@@ -17,4 +20,6 @@ __all__ = [
     "Picture",
     "ClipInfo",
     "VectorField",
+    # coded motion (issue 3)
+    "estimate_field",
 ]
