@@ -9,6 +9,8 @@ from .field import VectorField
 from .picture import ClipInfo, Picture
 
 # -- coded motion (issue 3) --
+from .compensate import motion_compensate
+from .field_summary import summarize_field
 from .motion import estimate_field
 
 __version__ = "0.1.0"
@@ -22,4 +24,6 @@ __all__ = [
     "VectorField",
     # coded motion (issue 3)
     "estimate_field",
+    "motion_compensate",
+    "summarize_field",
 ]

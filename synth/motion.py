@@ -48,7 +48,7 @@ INTRA_BITS = 6
 PROPAGATION_PASSES = 2
 
 #: Block sizes of the quadtree by default.
-DEFAULT_BLOCK_SIZES = (16,)
+DEFAULT_BLOCK_SIZES = (64, 32, 16, 8)
 
 
 def _check_int(name: str, value, lo: int, hi: int) -> int:
