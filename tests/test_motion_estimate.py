@@ -63,3 +63,16 @@ def test_estimate_field_rejects_mismatched_pictures():
         estimate_field(a, b, coded_time=0, reference_time=1)
     with pytest.raises(ParameterError, match="qp must be"):
         estimate_field(a, a, coded_time=0, reference_time=1, qp=60)
+
+
+def test_estimated_field_passes_the_file_rules_and_round_trips(tmp_path):
+    from synth.field_checks import validate_field
+    from synth.io import read_fields, write_fields
+
+    img = _gray_photo()
+    ref, cod = img[:101, :90], img[3:104, 2:92]
+    f = estimate_field(_mono(cod), _mono(ref), coded_time=2, reference_time=0, qp=32, search_range=8)
+    validate_field(f)
+    write_fields(tmp_path / "f.npz", f)
+    (back,) = read_fields(tmp_path / "f.npz", width=90, height=101)
+    assert np.array_equal(back.dx, f.dx) and np.array_equal(back.w, f.w) and back.gaps_allowed
