@@ -8,6 +8,11 @@ from .errors import FormatError, ParameterError, SynthError
 from .field import VectorField
 from .picture import ClipInfo, Picture
 
+# -- coded motion (issue 3) --
+from .compensate import motion_compensate
+from .field_summary import summarize_field
+from .motion import estimate_field
+
 __version__ = "0.1.0"
 
 __all__ = [
@@ -17,4 +22,8 @@ __all__ = [
     "Picture",
     "ClipInfo",
     "VectorField",
+    # coded motion (issue 3)
+    "estimate_field",
+    "motion_compensate",
+    "summarize_field",
 ]
