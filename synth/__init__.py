@@ -8,6 +8,10 @@ from .errors import FormatError, ParameterError, SynthError
 from .field import VectorField
 from .picture import ClipInfo, Picture
 
+# -- synthesis (issue 4) --
+from .params import SynthParams
+from .synthesis import SynthesisResult, synthesise, synthesise_with_maps
+
 __version__ = "0.1.0"
 
 __all__ = [
@@ -17,4 +21,9 @@ __all__ = [
     "Picture",
     "ClipInfo",
     "VectorField",
+    # synthesis (issue 4)
+    "SynthParams",
+    "SynthesisResult",
+    "synthesise",
+    "synthesise_with_maps",
 ]
