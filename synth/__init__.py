@@ -12,6 +12,9 @@ from .picture import ClipInfo, Picture
 from .compensate import motion_compensate
 from .field_summary import summarize_field
 from .motion import estimate_field
+# -- synthesis (issue 4) --
+from .params import SynthParams
+from .synthesis import SynthesisResult, synthesise, synthesise_with_maps
 
 __version__ = "0.1.0"
 
@@ -26,4 +29,9 @@ __all__ = [
     "estimate_field",
     "motion_compensate",
     "summarize_field",
+    # synthesis (issue 4)
+    "SynthParams",
+    "SynthesisResult",
+    "synthesise",
+    "synthesise_with_maps",
 ]
