@@ -8,6 +8,11 @@ from .errors import FormatError, ParameterError, SynthError
 from .field import VectorField
 from .picture import ClipInfo, Picture
 
+# --- issue 5: encoder side (offsets, BD-rate, encoder in the loop) ---
+from .bdrate import bd_psnr, bd_rate
+from .encode import encode_pictures
+from .offsets import refine_with_offsets
+
 __version__ = "0.1.0"
 
 __all__ = [
@@ -17,4 +22,9 @@ __all__ = [
     "Picture",
     "ClipInfo",
     "VectorField",
+    # issue 5
+    "refine_with_offsets",
+    "bd_rate",
+    "bd_psnr",
+    "encode_pictures",
 ]
