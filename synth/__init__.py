@@ -15,6 +15,10 @@ from .motion import estimate_field
 # -- synthesis (issue 4) --
 from .params import SynthParams
 from .synthesis import SynthesisResult, synthesise, synthesise_with_maps
+# --- issue 5: encoder side (offsets, BD-rate, encoder in the loop) ---
+from .bdrate import bd_psnr, bd_rate
+from .encode import encode_pictures
+from .offsets import refine_with_offsets
 
 __version__ = "0.1.0"
 
@@ -34,4 +38,9 @@ __all__ = [
     "SynthesisResult",
     "synthesise",
     "synthesise_with_maps",
+    # issue 5
+    "refine_with_offsets",
+    "bd_rate",
+    "bd_psnr",
+    "encode_pictures",
 ]
