@@ -196,9 +196,6 @@ def _grid(task_where: str, grid: Any) -> dict[str, list]:
         _expect(len(values) > 0, kw, "expected a non-empty list of values")
         for j, v in enumerate(values):
             _expect(isinstance(v, (bool, int, float, str)), f"{kw}[{j}]", f"expected a string, number or true/false, got {_type_name(v)}")
-        numeric = all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in values)
-        kinds = {type(v) for v in values}
-        _expect(numeric or len(kinds) == 1, kw, f"mixes value types: {values!r}")
         _expect(len({repr(v) for v in values}) == len(values), kw, f"repeats a value: {values!r}")
         out[key] = list(values)
     return out
@@ -237,11 +234,18 @@ def _task(i: int, table: Any, clip_names: list[str]) -> Task:
     # Check every parameter value against the kind's declaration: the grid values one by one (so
     # the message names the offending entry), then the fixed values.
     for key, values in grid.items():
+        if kind.params is not None and key not in kind.params:
+            known = ", ".join(sorted(kind.params)) or "none"
+            raise ParameterError(f"{where}.grid.{key}: unknown parameter of kind {kind.name!r} (known: {known})")
         for j, v in enumerate(values):
             try:
                 kind.resolve({key: v}, where=f"{where}.grid")
             except ParameterError as exc:
                 raise ParameterError(str(exc).replace(f"{where}.grid.{key}:", f"{where}.grid.{key}[{j}]:", 1)) from None
+    if kind.params is None:  # undeclared parameters: at least one type per grid key
+        for key, values in grid.items():
+            numeric = all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in values)
+            _expect(numeric or len({type(v) for v in values}) == 1, f"{where}.grid.{key}", f"mixes value types: {values!r}")
     kind.resolve(fixed, where=f"{where}.fixed")
     return task
 

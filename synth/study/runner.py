@@ -199,7 +199,7 @@ def run_study(
     done = {jid for jid, rec in existing.items() if rec.get("status") == "ok" or not retry_failed}
     pending = [job for jid, job in unique.items() if jid not in done]
 
-    run_id = datetime.now(timezone.utc).strftime("%Y%m%dT%H%M%SZ") + "-" + secrets.token_hex(3)
+    run_id = datetime.now(timezone.utc).strftime("%Y%m%dT%H%M%S%fZ") + "-" + secrets.token_hex(3)
     log = _RunLog(out_dir / "runs" / f"{run_id}.jsonl")
     log.write("start", executor=executor.describe(), total=len(unique), skipped=len(done), code_version=code_version())
     log.write("submit", jobs=[j.id for j in pending])
