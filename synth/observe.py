@@ -75,8 +75,12 @@ class PlaneSampler:
         if interpolation == "sixtap":
             self.scale = 2.0
             self._unit = float(1 << max(0, 14 - int(bit_depth)))
-            up = _halfpel_upsample(f) * np.float32(self._unit) + np.float32(_OFFSET)
-            self._src = np.clip(np.rint(up), 0, 65535).astype(np.uint16)
+            up = _halfpel_upsample(f)
+            up *= np.float32(self._unit)
+            up += np.float32(_OFFSET + 0.5)  # + 0.5: rounds half up when truncated below
+            np.maximum(up, np.float32(0), out=up)
+            np.minimum(up, np.float32(65535), out=up)
+            self._src = up.astype(np.uint16)
             self._flag = cv2.INTER_LINEAR
         elif interpolation in INTERPOLATION_FLAGS:
             self.scale = 1.0

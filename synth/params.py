@@ -93,9 +93,9 @@ class SynthParams:
     method: str = "lmmse"
     candidates: int = 8
     candidates_both_directions: int = 12
-    group_size: int = 4
+    group_size: int = 8
     reach: float = 48.0
-    spatial_correlation: float = 0.95
+    spatial_correlation: float = 0.7
     innovation_nugget: float = 0.1
     reliability_scale: float = 16.0
     max_correlation: float = 0.99
@@ -103,7 +103,7 @@ class SynthParams:
     agreement_margin: int = 0
     loading: float = 0.01
     interpolation: str = "sixtap"
-    weight_cell: int = 1
+    weight_cell: int = 2
     idw_power: float = 2.0
     disagreement_threshold: float = 0.0
     border_margin: float = 1.0

@@ -26,6 +26,8 @@ range of rows gives exactly (bit for bit) the rows of the whole picture.
 from __future__ import annotations
 
 import math
+import os
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from typing import Sequence
 
@@ -144,7 +146,9 @@ def _resample_axis(a: np.ndarray, axis: int, cell: int, sample: int) -> np.ndarr
 class _Synthesiser:
     """Everything computed once per call (full-picture inputs), and the per-band computation."""
 
-    def __init__(self, past: Picture, future: Picture, landed: LandedVectors, params: SynthParams, k: int, group_rows):
+    def __init__(
+        self, past: Picture, future: Picture, landed: LandedVectors, params: SynthParams, k: int, group_rows, pool
+    ):
         self.p = params
         self.k = k
         self.g = params.group_size
@@ -153,19 +157,20 @@ class _Synthesiser:
         self.fx, self.fy = (1, 1) if past.chroma_format == "mono" else past.chroma_factors
         self.bit_depth = past.bit_depth
         self.landed = landed
-        self.samplers = [
-            (
-                PlaneSampler(a, interpolation=params.interpolation, bit_depth=past.bit_depth),
-                PlaneSampler(b, interpolation=params.interpolation, bit_depth=past.bit_depth),
-            )
-            for a, b in zip(past.planes, future.planes)
-        ]
-        self.colocated = [(a, b) for a, b in zip(past.planes, future.planes)]
+        # d_future = kappa * d_past for every vector (see synth.project)
+        self.kappa = (landed.future_time - landed.target_time) / (landed.past_time - landed.target_time)
         search = CandidateSearch(landed, height=self.H, width=self.W, k=k, group=self.g, reach=params.reach)
-        self.gx_count = search.cols
         self.g_row0, g_row1 = group_rows
-        self.idx = search.for_group_rows(self.g_row0, g_row1)  # (rows, cols, K)
-        rho = self._agreement(past.y.astype(np.float32), future.y.astype(np.float32))
+        jobs = [pool.submit(search.for_group_rows, self.g_row0, g_row1)]
+        jobs.append(pool.submit(self._agreement, past.y.astype(np.float32), future.y.astype(np.float32)))
+
+        def sampler(plane):
+            return PlaneSampler(plane, interpolation=params.interpolation, bit_depth=past.bit_depth)
+
+        flat = list(pool.map(sampler, [pl for pair in zip(past.planes, future.planes) for pl in pair]))
+        self.samplers = [(flat[2 * i], flat[2 * i + 1]) for i in range(len(flat) // 2)]
+        self.idx = jobs[0].result()  # (rows, cols, K)
+        rho = jobs[1].result()
         self._cols = {
             "cx": landed.cx,
             "cy": landed.cy,
@@ -309,16 +314,22 @@ class _Synthesiser:
         base[..., 1] = (np.arange(Pr, dtype=np.float32)[:, None] + np.float32(row0)) * scale
         ry, rx = g // fy, g // fx
         est = np.zeros((Pr, Pc), np.float32)
+        # every future displacement is the past one times kappa (same vector, other time span)
+        kappa = self.kappa
         for k in range(self.k):
-            for coefs, dx, dy, sampler in ((A, "dpx", "dpy", sp), (B, "dfx", "dfy", sf)):
-                ck = coefs[k]
-                if not ck.any():
-                    continue
-                d = np.empty((Gr, Gx, 2), np.float32)
-                d[..., 0] = col[dx][k].reshape(Gr, Gx) * np.float32(scale / fx)
-                d[..., 1] = col[dy][k].reshape(Gr, Gx) * np.float32(scale / fy)
-                pos = base + np.repeat(np.repeat(d, ry, axis=0), rx, axis=1)
-                cv2.accumulateProduct(sampler.sample(pos), ck, est)
+            a_k, b_k = A[k], B[k]
+            use_p, use_f = a_k.any(), b_k.any()
+            if not (use_p or use_f):
+                continue
+            d = np.empty((Gr, Gx, 2), np.float32)
+            d[..., 0] = col["dpx"][k].reshape(Gr, Gx) * np.float32(scale / fx)
+            d[..., 1] = col["dpy"][k].reshape(Gr, Gx) * np.float32(scale / fy)
+            pos_p = base + np.repeat(np.repeat(d, ry, axis=0), rx, axis=1)
+            if use_p:
+                cv2.accumulateProduct(sp.sample(pos_p), a_k, est)
+            if use_f:
+                pos_f = cv2.addWeighted(base, 1.0 - kappa, pos_p, kappa, 0.0)
+                cv2.accumulateProduct(sf.sample(pos_f), b_k, est)
         return est
 
 
@@ -333,6 +344,7 @@ def synthesise_with_maps(
     past_time: float | None = None,
     future_time: float | None = None,
     method: str | None = None,
+    workers: int | None = None,
 ) -> SynthesisResult:
     """Synthesise the picture at time ``t`` between two references, with per-pixel maps.
 
@@ -353,6 +365,9 @@ def synthesise_with_maps(
         Display times of the references; default the earliest and latest time the fields refer to.
     method : {'lmmse', 'distance_weighted', 'nearest'}, optional
         Overrides ``params.method``.
+    workers : int, optional
+        Threads processing bands in parallel (default: the CPU count, at most 4). Results do not
+        depend on it.
 
     Returns
     -------
@@ -399,7 +414,15 @@ def synthesise_with_maps(
     g = params.group_size
     b_first = (y0 // BAND_ROWS) * BAND_ROWS
     b_last = min(H, -(-y1 // BAND_ROWS) * BAND_ROWS)
-    eng = _Synthesiser(past, future, landed, params, k, (b_first // g, -(-b_last // g)))
+    if workers is None:
+        workers = min(4, os.cpu_count() or 1)
+    if isinstance(workers, bool) or not isinstance(workers, int) or workers < 1:
+        raise ParameterError(f"workers must be a positive integer, got {workers!r}")
+    with ThreadPoolExecutor(max_workers=workers) as pool:
+        eng = _Synthesiser(past, future, landed, params, k, (b_first // g, -(-b_last // g)), pool)
+        starts = list(range((y0 // BAND_ROWS) * BAND_ROWS, y1, BAND_ROWS))
+        results = pool.map(lambda b0: (b0, eng.band(b0, min(H, b0 + BAND_ROWS))), starts)
+        results = list(results)
     n_planes = len(past.planes)
     out = []
     for pi in range(n_planes):
@@ -409,9 +432,8 @@ def synthesise_with_maps(
             ch, cw = past.planes[pi].shape
             out.append(np.zeros((-(-y1 // fy) - y0 // fy, cw), np.float32))
     maps = {name: np.zeros((y1 - y0, W), np.float32) for name in MAP_NAMES}
-    for b0 in range((y0 // BAND_ROWS) * BAND_ROWS, y1, BAND_ROWS):
+    for b0, (planes, bmaps) in results:
         b1 = min(H, b0 + BAND_ROWS)
-        planes, bmaps = eng.band(b0, b1)
         # luma rows of this band inside the requested range
         s0, s1 = max(b0, y0), min(b1, y1)
         out[0][s0 - y0 : s1 - y0] = planes[0][s0 - b0 : s1 - b0, :W]
@@ -437,8 +459,18 @@ def synthesise(
     past_time: float | None = None,
     future_time: float | None = None,
     method: str | None = None,
+    workers: int | None = None,
 ) -> Picture:
     """Synthesise the picture at time ``t``; see `synthesise_with_maps` (same parameters)."""
     return synthesise_with_maps(
-        past, future, fields, t=t, params=params, rows=rows, past_time=past_time, future_time=future_time, method=method
+        past,
+        future,
+        fields,
+        t=t,
+        params=params,
+        rows=rows,
+        past_time=past_time,
+        future_time=future_time,
+        method=method,
+        workers=workers,
     ).picture
