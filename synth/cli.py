@@ -98,6 +98,43 @@ def info(
 # =============================================================================================
 
 
+@app.command()
+def vectors(
+    clip: Path = typer.Argument(..., help="Clip file (.y4m, or any video OpenCV decodes)."),
+    coded: int = typer.Option(..., "--coded", help="Picture number whose blocks get vectors."),
+    ref: int = typer.Option(..., "--ref", help="Picture number the vectors point to."),
+    output: Path = typer.Option(..., "--output", "-o", help="Field file: .json, .npz, or .csv (export)."),
+    search_range: int = typer.Option(64, "--range", help="Largest vector component, luma samples."),
+    blocks: str = typer.Option("64,32,16,8", "--blocks", help="Block sizes the quadtree may use."),
+    qp: int = typer.Option(27, "--qp", help="QP setting the rate weight (0..51); higher = cheaper, smoother field."),
+    overlay: Optional[Path] = typer.Option(None, "--overlay", help="PNG with block outlines and arrows."),
+    as_json: bool = typer.Option(False, "--json", help="Print the summary as JSON."),
+) -> None:
+    """Estimate codec-like block vectors from one picture of a clip to another."""
+    from .vector_job import parse_block_sizes, run_vectors
+
+    summary = run_vectors(
+        clip, coded=coded, reference=ref, output=output, qp=qp, search_range=search_range,
+        block_sizes=parse_block_sizes(blocks), overlay=overlay,
+    )  # fmt: skip
+    if as_json:
+        _print_json(summary)
+        return
+    sizes = ", ".join(f"{k}: {v}" for k, v in summary["blocks_by_size"].items())
+    typer.echo(f"field          picture {coded} -> picture {ref}, written to {summary['output']}")
+    typer.echo(f"blocks         {summary['blocks']} ({sizes})")
+    typer.echo(f"intra share    {100 * summary['intra_share']:.1f} % of the area")
+    typer.echo(f"mean |v|       {summary['mean_vector_length']:.2f} luma samples")
+    typer.echo(f"vector bits    {summary['vector_bits']}")
+    typer.echo(
+        f"prediction     {summary['mc_psnr_y']:.2f} dB luma PSNR with the field, "
+        f"{summary['zero_motion_psnr_y']:.2f} dB with zero motion"
+    )
+    typer.echo(f"time           {summary['seconds']:.2f} s (QP {qp}, range +-{search_range})")
+    if summary["overlay"]:
+        typer.echo(f"overlay        {summary['overlay']}")
+
+
 # =============================================================================================
 # Synthesis: frame, calibrate  (issue 4)
 # =============================================================================================
