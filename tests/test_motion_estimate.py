@@ -135,3 +135,25 @@ def test_estimated_field_passes_the_file_rules_and_round_trips(tmp_path):
     write_fields(tmp_path / "f.npz", f)
     (back,) = read_fields(tmp_path / "f.npz", width=90, height=101)
     assert np.array_equal(back.dx, f.dx) and np.array_equal(back.w, f.w) and back.gaps_allowed
+
+
+def test_reach_of_64_samples():
+    # the reach: +-64 luma samples between references 8 pictures apart
+    big = cv2.resize(_gray_photo(), (1024, 1024), interpolation=cv2.INTER_CUBIC)
+    sx, sy = -64, 61
+    ref = big[200:456, 300:684]
+    cod = big[200 + sy : 456 + sy, 300 + sx : 684 + sx]
+    f = estimate_field(_mono(cod), _mono(ref), coded_time=8, reference_time=0, qp=27, search_range=64)
+    # blocks whose content is inside the reference
+    inside = (f.x + sx >= 0) & (f.y + sy + f.h <= ref.shape[0])
+    area = (f.w * f.h).astype(float)
+    exact = (f.dx == 4 * sx) & (f.dy == 4 * sy)
+    assert area[inside & exact].sum() >= 0.95 * area[inside].sum()
+
+
+def test_ten_bit_pictures():
+    img = _gray_photo().astype(np.uint16) * 4
+    ref, cod = img[40:168, 60:220], img[45:173, 57:217]
+    pic = lambda a: Picture(np.ascontiguousarray(a), None, None, "mono", 10)  # noqa: E731
+    f = estimate_field(pic(cod), pic(ref), coded_time=1, reference_time=0, search_range=16)
+    assert np.median(f.dx) == -12 and np.median(f.dy) == 20
