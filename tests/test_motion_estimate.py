@@ -122,6 +122,14 @@ def test_estimate_field_rejects_mismatched_pictures():
         estimate_field(a, b, coded_time=0, reference_time=1)
     with pytest.raises(ParameterError, match="qp must be"):
         estimate_field(a, a, coded_time=0, reference_time=1, qp=60)
+    with pytest.raises(ParameterError, match="block sizes must be powers of two from 4 to 128, got 24"):
+        estimate_field(a, a, coded_time=0, reference_time=1, block_sizes=(32, 24))
+    with pytest.raises(ParameterError, match="search_range must be an integer in 1..1024"):
+        estimate_field(a, a, coded_time=0, reference_time=1, search_range=0)
+    with pytest.raises(ParameterError, match="coded_time and reference_time must differ"):
+        estimate_field(a, a, coded_time=3, reference_time=3)
+    with pytest.raises(ParameterError, match="coded must be a Picture"):
+        estimate_field(a.y, a, coded_time=0, reference_time=1)
 
 
 def test_estimated_field_passes_the_file_rules_and_round_trips(tmp_path):
