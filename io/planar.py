@@ -56,11 +56,12 @@ def frame_size(info: ClipInfo) -> int:
     return info.frame_bytes
 
 
-def unpack_frame(buf: bytearray | bytes, info: ClipInfo) -> Picture:
-    """Picture whose planes view `buf` (no copy when `buf` is a writable bytearray on a little-endian host)."""
+def unpack_frame(buf, info: ClipInfo, *, offset: int = 0) -> Picture:
+    """Picture whose planes view `buf` from byte `offset` on (no copy when `buf` is writable and
+    the host little-endian)."""
     wide = info.bit_depth > 8
     dtype = np.dtype("<u2") if wide else np.dtype(np.uint8)
-    data = np.frombuffer(buf, dtype=dtype)
+    data = np.frombuffer(buf, dtype=dtype, count=info.frame_bytes // dtype.itemsize, offset=offset)
     if wide and not _LITTLE:
         data = data.astype(np.uint16)
     elif wide:
@@ -124,9 +125,13 @@ class PositionalFile:
         self._lock = threading.Lock()
         self.size = os.fstat(self._fh.fileno()).st_size
 
-    def read_at(self, offset: int, size: int) -> bytearray:
-        """Exactly `size` bytes from `offset`, or fewer at the end of the file."""
-        buf = bytearray(size)
+    def read_at(self, offset: int, size: int) -> np.ndarray:
+        """Exactly `size` bytes from `offset` as a fresh uint8 array, or fewer at the end of the file.
+
+        The array is not zero-filled first (the read overwrites it), and each call returns a new
+        one, so pictures built on it own their samples.
+        """
+        buf = np.empty(size, np.uint8)
         view = memoryview(buf)
         got = 0
         with self._lock:
@@ -137,9 +142,7 @@ class PositionalFile:
                     break
                 got += n
         view.release()
-        if got < size:
-            del buf[got:]
-        return buf
+        return buf if got == size else buf[:got]
 
     def close(self) -> None:
         self._fh.close()

@@ -37,6 +37,7 @@ from .planar import PositionalFile, check_geometry, check_sample_range, frame_in
 __all__ = ["Y4MReader", "write_y4m", "parse_y4m_header", "format_y4m_header", "pack_picture", "C_TAGS"]
 
 MAGIC = b"YUV4MPEG2"
+_BARE_FRAME = b"FRAME\n"
 _MAX_HEADER = 4096
 _MAX_FRAME_LINE = 4096
 _RATIO = re.compile(r"(\d{1,10}):(\d{1,10})")
@@ -229,14 +230,18 @@ class Y4MReader:
 
     Notes
     -----
-    Opening walks the ``FRAME`` lines (they may carry parameters, so their lengths can differ)
-    with one small read per frame; no samples are read until asked. Pictures returned by `read`
+    When the file size is a whole number of bare ``FRAME`` lines plus frames, and the first and
+    last ``FRAME`` lines sit where that says, frame offsets are computed (two small reads on
+    opening); otherwise opening walks the ``FRAME`` lines (they may carry parameters, so their
+    lengths can differ) with one small read per frame. No samples are read until asked, and
+    each read checks its own ``FRAME`` line. Pictures returned by `read`
     own their buffer: later reads do not change them.
     """
 
     def __init__(self, path: str | os.PathLike, *, check_range: bool = True):
         self.path = Path(path)
         self.check_range = bool(check_range)
+        self._plain = False
         src = str(self.path)
         self._file = PositionalFile(self.path, source=src)
         try:
@@ -251,11 +256,29 @@ class Y4MReader:
                 raise FormatError(f"{src}: header line is not terminated within {_MAX_HEADER} bytes")
             self.info = parse_y4m_header(head[:end], src)
             self._frame_bytes = self.info.frame_bytes
-            self._offsets, self._params = self._index(end + 1, size)
+            self._data_start = end + 1
+            self._offsets, self._params = self._plain_index(size) or self._index(self._data_start, size)
             self.info.frame_count = len(self._offsets)
         except BaseException:
             self._file.close()
             raise
+
+    def _plain_index(self, size: int):
+        """Offsets computed, not walked, when every FRAME line looks bare (``FRAME\\n``).
+
+        Taken when the file holds a whole number of bare frames and the first and last ``FRAME``
+        lines are where that puts them; every read then checks its own ``FRAME`` line and falls
+        back to walking the file if one carries parameters after all.
+        """
+        stride = len(_BARE_FRAME) + self._frame_bytes
+        body = size - self._data_start
+        if body <= 0 or body % stride:
+            return None
+        for pos in (self._data_start, size - stride):
+            if bytes(self._file.read_at(pos, len(_BARE_FRAME))) != _BARE_FRAME:
+                return None
+        self._plain = True
+        return range(self._data_start + len(_BARE_FRAME), size, stride), {}
 
     def _index(self, pos: int, size: int) -> tuple[list[int], dict[int, str]]:
         offsets: list[int] = []
@@ -308,10 +331,17 @@ class Y4MReader:
         """
         src = str(self.path)
         i = frame_index(index, len(self._offsets), source=src)
-        raw = self._file.read_at(self._offsets[i], self._frame_bytes)
-        if len(raw) != self._frame_bytes:
-            raise FormatError(f"{src}: frame {i} is truncated: expected {self._frame_bytes} bytes, got {len(raw)}")
-        pic = unpack_frame(raw, self.info)
+        skip = len(_BARE_FRAME) if self._plain else 0
+        raw = self._file.read_at(self._offsets[i] - skip, self._frame_bytes + skip)
+        if skip and bytes(raw[:skip]) != _BARE_FRAME:
+            # a FRAME line with parameters after all: index the file the slow way and retry
+            self._plain = False
+            self._offsets, self._params = self._index(self._data_start, self._file.size)
+            self.info.frame_count = len(self._offsets)
+            return self.read(index)
+        if len(raw) != self._frame_bytes + skip:
+            raise FormatError(f"{src}: frame {i} is truncated: expected {self._frame_bytes} bytes, got {len(raw) - skip}")
+        pic = unpack_frame(raw, self.info, offset=skip)
         if self.check_range:
             check_sample_range(pic, source=src, index=i)
         return pic

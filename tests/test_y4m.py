@@ -206,8 +206,28 @@ def test_random_access_reads_only_the_requested_frame(tmp_path, monkeypatch):
         assert all(size <= 4096 for _, size in calls)  # opening reads headers, never sample data
         calls.clear()
         pic = r.read(6)
-        assert calls == [(len(b"YUV4MPEG2 W64 H32 F25:1 Ip C420jpeg\n") + 7 * 6 + 6 * fb, fb)]
+        start = len(b"YUV4MPEG2 W64 H32 F25:1 Ip C420jpeg\n") + 6 * (6 + fb) + 6  # samples of frame 6
+        assert len(calls) == 1
+        offset, size = calls[0]
+        assert offset <= start and offset + size == start + fb and size <= fb + 6  # its FRAME line at most
         np.testing.assert_array_equal(pic.y, pics[6].y)
+
+
+def test_parameters_hidden_in_a_plain_looking_file_are_found(tmp_path):
+    # 3 frames whose middle FRAME line carries exactly one frame's worth (54 bytes) of parameters:
+    # the size looks like 4 bare frames; reading must notice and index the file properly.
+    rng = np.random.default_rng(7)
+    pics = [random_picture(rng, 8, 4) for _ in range(3)]
+    data = bytearray(GOOD_HEADER)
+    for k, pic in enumerate(pics):
+        data += b"FRAME" + (b" X" + b"p" * 52 if k == 1 else b"") + b"\n" + b"".join(p.tobytes() for p in pic.planes)
+    path = tmp_path / "sneaky.y4m"
+    path.write_bytes(bytes(data))
+    with Y4MReader(path) as r:
+        got = [r.read(i) for i in (0, 1, 2)]
+        assert len(r) == 3 and r.frame_parameters(1) == "X" + "p" * 52
+    for a, b in zip(got, pics):
+        np.testing.assert_array_equal(a.cr, b.cr)
 
 
 def test_pictures_own_their_samples(tmp_path):
