@@ -30,6 +30,7 @@ from synth.picture import ClipInfo, Picture
 
 from .atomic import atomic_output, atomic_write_bytes, atomic_write_text
 from .colour import MATRICES, picture_to_rgb, rgb_to_picture, rgb_to_ycbcr420
+from .fields import fields_to_csv, read_fields, write_fields
 from .images import ImageSequenceReader, is_image_pattern, write_images
 from .rawyuv import RawYUVReader, geometry_from_name, parse_size, write_yuv
 from .video import VideoReader
@@ -59,6 +60,10 @@ __all__ = [
     "atomic_output",
     "atomic_write_bytes",
     "atomic_write_text",
+    # vector-field files (issue 3)
+    "write_fields",
+    "read_fields",
+    "fields_to_csv",
 ]
 
 
