@@ -6,17 +6,11 @@ about motion or estimation.
 
 Formats (chosen from the file name by `open_clip` and `write_clip`):
 
-========================  ==================  =================================================
-name                      reader / writer     notes
-========================  ==================  =================================================
-``*.y4m``                 `Y4MReader`,        YUV4MPEG2, any chroma format and bit depth
-                          `write_y4m`
-``*.yuv``                 `RawYUVReader`,     raw planar; geometry from the caller or the name
-                          `write_yuv`
-``*%03d.png``, ``*.png``  `ImageSequenceReader`, image sequence (PNG 8/16-bit and other stills),
-                          `write_images`      BT.601 or BT.709 conversion
-anything else             `VideoReader`       any video OpenCV decodes, read only, 4:2:0 8-bit
-========================  ==================  =================================================
+- ``*.y4m``: YUV4MPEG2, any chroma format and bit depth (`Y4MReader`, `write_y4m`);
+- ``*.yuv``: raw planar, geometry from the caller or the file name (`RawYUVReader`, `write_yuv`);
+- ``*.png`` or a pattern such as ``frame_%03d.png``: image sequence, PNG 8/16-bit and other stills,
+  BT.601 or BT.709 conversion (`ImageSequenceReader`, `write_images`);
+- anything else: any video OpenCV decodes, read only, 4:2:0 8-bit (`VideoReader`).
 """
 
 from __future__ import annotations
