@@ -72,25 +72,57 @@ def _print_json(obj) -> None:
 # =============================================================================================
 
 
+_INFO_LABELS = {
+    "file": "file",
+    "format": "format",
+    "width": "width",
+    "height": "height",
+    "frames": "frames",
+    "chroma_format": "chroma",
+    "bit_depth": "bit depth",
+    "frame_rate": "frame rate",
+    "interlacing": "interlacing",
+    "chroma_siting": "chroma siting",
+    "pixel_aspect": "pixel aspect",
+}
+
+
 @app.command()
 def info(
-    clip: Path = typer.Argument(..., help="Clip file (.y4m, or any video OpenCV decodes)."),
-    frame: int = typer.Option(0, "--frame", "-f", help="Frame whose plane statistics are shown."),
+    clip: Path = typer.Argument(
+        ..., help="Clip: .y4m, raw .yuv, image pattern (frame_%03d.png) or any video OpenCV decodes."
+    ),
+    frame: int = typer.Option(0, "--frame", "-f", help="Frame whose plane statistics are shown (negative: from the end)."),
     as_json: bool = typer.Option(False, "--json", help="Print JSON instead of a table."),
+    size: Optional[str] = typer.Option(None, "--size", help="Raw .yuv only: WIDTHxHEIGHT (else taken from the file name)."),
+    chroma: Optional[str] = typer.Option(None, "--chroma", help="Raw .yuv / images: 420, 422, 444 or mono."),
+    bit_depth: Optional[int] = typer.Option(None, "--bit-depth", help="Raw .yuv / images: bits per sample, 8..16."),
+    fps: Optional[float] = typer.Option(None, "--fps", help="Raw .yuv / images: frame rate to report."),
+    matrix: Optional[str] = typer.Option(None, "--matrix", help="Images / compressed video: R'G'B' to Y'CbCr matrix, 601 (default) or 709."),
 ) -> None:
-    """Show a clip's format, size, frame count and one frame's plane statistics."""
-    from .clipinfo import describe_clip
+    """Show a clip's format, size, frame count, sample format, frame rate and one frame's plane statistics."""
+    from .clipinfo import CHROMA_NAMES, describe_clip
 
-    desc = describe_clip(clip, frame=frame)
+    desc = describe_clip(
+        clip, frame=frame, size=size, chroma_format=chroma, bit_depth=bit_depth, frame_rate=fps, matrix=matrix
+    )
     if as_json:
         _print_json(desc)
         return
-    for key, value in desc.items():
-        if key == "planes":
-            for name, st in value.items():
-                typer.echo(f"  {name:<3} min {st['min']:>6}  max {st['max']:>6}  mean {st['mean']:10.3f}")
-        else:
-            typer.echo(f"{key:<14} {value}")
+    for key, label in _INFO_LABELS.items():
+        value = desc[key]
+        if value is None:
+            continue
+        if key == "chroma_format":
+            value = CHROMA_NAMES.get(value, value)
+        elif key == "frame_rate" and desc["frame_rate_value"] is not None:
+            value = f"{value} ({desc['frame_rate_value']:g}/s)"
+        typer.echo(f"{label:<14} {value}")
+    for k, v in desc["extra"].items():
+        typer.echo(f"{'X tag':<14} {k}={v}" if v else f"{'X tag':<14} {k}")
+    typer.echo(f"plane statistics of frame {desc['frame']}:")
+    for name, st in desc["planes"].items():
+        typer.echo(f"  {name:<3} min {st['min']:>6}  max {st['max']:>6}  mean {st['mean']:10.3f}")
 
 
 # =============================================================================================
