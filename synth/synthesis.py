@@ -125,6 +125,29 @@ def _both_directions(fields: list[VectorField]) -> bool:
     return len(signs) == 2
 
 
+class _InlineExecutor:
+    """The executor interface, running everything in the calling thread (workers=1)."""
+
+    class _Done:
+        def __init__(self, value):
+            self._value = value
+
+        def result(self):
+            return self._value
+
+    def submit(self, fn, *args):
+        return self._Done(fn(*args))
+
+    def map(self, fn, items):
+        return [fn(x) for x in items]
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        return False
+
+
 def _resample_axis(a: np.ndarray, axis: int, cell: int, sample: int) -> np.ndarray:
     """Cell-resolution values -> plane-resolution values along one axis (sizes in luma samples):
     repeat when the cell is larger than the plane's sample, average when smaller."""
@@ -277,9 +300,11 @@ class _Synthesiser:
             conf[:, hole] = 0
         alpha = coef * share[:, None, :]
         beta = coef - alpha
-        # cell layout (K, M, G) -> cell planes (K, Gr*n, Gx*n)
+        act_a = np.any(alpha != 0, axis=1)  # (K, G): slot used on the past side by the group
+        act_b = np.any(beta != 0, axis=1)
 
         def cells_to_plane(a):
+            """(..., M, G) cell values -> (..., Gr*n, Gx*n) cell planes."""
             lead = a.shape[:-2]
             a = a.reshape(lead + (n, n, Gr, Gx))
             a = np.moveaxis(a, (-4, -3), (-3, -1))  # (..., Gr, n_y, Gx, n_x)
@@ -288,11 +313,11 @@ class _Synthesiser:
         alpha_cells = cells_to_plane(alpha)
         beta_cells = cells_to_plane(beta)
         planes = []
-        for pi, (sp, sf) in enumerate(self.samplers):
+        for pi in range(len(self.samplers)):
             fy, fx = (1, 1) if pi == 0 else (self.fy, self.fx)
             A = _resample_axis(_resample_axis(alpha_cells, 1, c, fy), 2, c, fx)
             B = _resample_axis(_resample_axis(beta_cells, 1, c, fy), 2, c, fx)
-            planes.append(self._combine(pi, A, B, col, Gr, Gx, gy0 * g // fy, fy, fx))
+            planes.append(self._combine(pi, A, B, act_a, act_b, col, Gr, Gx, gy0 * g // fy, fy, fx))
         total = alpha_cells.sum(axis=0) + beta_cells.sum(axis=0)
         pw = np.where(total > 1e-6, alpha_cells.sum(axis=0) / np.where(total > 1e-6, total, 1), np.float32(0.5))
         up = lambda a: _resample_axis(_resample_axis(a, 0, c, 1), 1, c, 1)  # noqa: E731
@@ -303,34 +328,33 @@ class _Synthesiser:
         }
         return planes, maps
 
-    def _combine(self, pi, A, B, col, Gr, Gx, row0, fy, fx):
-        """sum_k A_k past(p + d_past_k) + B_k future(p + d_future_k) on plane pi."""
+    def _combine(self, pi, A, B, act_a, act_b, col, Gr, Gx, row0, fy, fx):
+        """sum_k A_k past(p + d_past_k) + B_k future(p + d_future_k) on plane pi.
+
+        A, B: (K, Pr, Pc) coefficients; act_a, act_b: (K, G) whether a group uses the slot.
+        """
         g = self.g
         sp, sf = self.samplers[pi]
         Pr, Pc = A.shape[1:]
-        scale = np.float32(sp.scale)
-        base = np.empty((Pr, Pc, 2), np.float32)
-        base[..., 0] = np.arange(Pc, dtype=np.float32)[None, :] * scale
-        base[..., 1] = (np.arange(Pr, dtype=np.float32)[:, None] + np.float32(row0)) * scale
         ry, rx = g // fy, g // fx
+        scale = np.float32(sp.scale)
+        base_x = np.broadcast_to(np.arange(Pc, dtype=np.float32) * scale, (Gr, ry, Pc))
+        base_y = np.broadcast_to(
+            ((np.arange(Pr, dtype=np.float32) + np.float32(row0)) * scale).reshape(Gr, ry, 1), (Gr, ry, Pc)
+        )
+        sx, sy = np.float32(scale / fx), np.float32(scale / fy)
         est = np.zeros((Pr, Pc), np.float32)
-        # every future displacement is the past one times kappa (same vector, other time span)
-        kappa = self.kappa
         for k in range(self.k):
-            a_k, b_k = A[k], B[k]
-            use_p, use_f = a_k.any(), b_k.any()
-            if not (use_p or use_f):
-                continue
-            d = np.empty((Gr, Gx, 2), np.float32)
-            d[..., 0] = col["dpx"][k].reshape(Gr, Gx) * np.float32(scale / fx)
-            d[..., 1] = col["dpy"][k].reshape(Gr, Gx) * np.float32(scale / fy)
-            pos_p = base + np.repeat(np.repeat(d, ry, axis=0), rx, axis=1)
-            if use_p:
-                cv2.accumulateProduct(sp.sample(pos_p), a_k, est)
-            if use_f:
-                pos_f = cv2.addWeighted(base, 1.0 - kappa, pos_p, kappa, 0.0)
-                cv2.accumulateProduct(sf.sample(pos_f), b_k, est)
-        return est
+            for coefs, active, dx, dy, sampler in ((A, act_a, "dpx", "dpy", sp), (B, act_b, "dfx", "dfy", sf)):
+                if not active[k].any():
+                    continue
+                # group displacement, repeated over the group's columns, broadcast over its rows
+                mx = base_x + np.repeat((col[dx][k] * sx).reshape(Gr, Gx), rx, axis=1)[:, None, :]
+                my = base_y + np.repeat((col[dy][k] * sy).reshape(Gr, Gx), rx, axis=1)[:, None, :]
+                obs = sampler.sample_raw(mx.reshape(Pr, Pc), my.reshape(Pr, Pc))
+                cv2.accumulateProduct(obs, coefs[k], est)
+        total = A.sum(axis=0) + B.sum(axis=0)
+        return sp.finish(est, total)
 
 
 def synthesise_with_maps(
@@ -418,7 +442,7 @@ def synthesise_with_maps(
         workers = min(4, os.cpu_count() or 1)
     if isinstance(workers, bool) or not isinstance(workers, int) or workers < 1:
         raise ParameterError(f"workers must be a positive integer, got {workers!r}")
-    with ThreadPoolExecutor(max_workers=workers) as pool:
+    with (ThreadPoolExecutor(max_workers=workers) if workers > 1 else _InlineExecutor()) as pool:
         eng = _Synthesiser(past, future, landed, params, k, (b_first // g, -(-b_last // g)), pool)
         starts = list(range((y0 // BAND_ROWS) * BAND_ROWS, y1, BAND_ROWS))
         results = pool.map(lambda b0: (b0, eng.band(b0, min(H, b0 + BAND_ROWS))), starts)
