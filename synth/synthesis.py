@@ -283,22 +283,24 @@ class _Synthesiser:
             coef = coef.astype(np.float32)
         if conf is None:
             conf = np.zeros(coef.shape[1:], np.float32)
-        # which endpoints are usable (group centre moved by the displacement inside the picture)
+        # which endpoints are usable: the weight cell's centre moved by the displacement must stay
+        # within border_margin of the picture, else the observation takes the other side only
         m = np.float32(p.border_margin)
-        gcx, gcy = gxo + np.float32((g - 1) / 2), gyo + np.float32((g - 1) / 2)
+        hi_x, hi_y = np.float32(self.W - 1) + m, np.float32(self.H - 1) + m
 
         def outside(dx, dy):
-            x, y = gcx[None] + dx, gcy[None] + dy
-            return (x < -m) | (x > np.float32(self.W - 1) + m) | (y < -m) | (y > np.float32(self.H - 1) + m)
+            x = Xc[None] + dx[:, None, :]
+            y = Yc[None] + dy[:, None, :]
+            return (x < -m) | (x > hi_x) | (y < -m) | (y > hi_y)
 
         op, of = outside(col["dpx"], col["dpy"]), outside(col["dfx"], col["dfy"])
-        share = np.where(op & ~of, zero, np.where(of & ~op, np.float32(1), np.float32(0.5)))  # (K, G)
+        share = np.where(op & ~of, zero, np.where(of & ~op, np.float32(1), np.float32(0.5)))  # (K, M, G)
         hole = count == 0
         if hole.any():  # co-located average through slot 0 (zero displacement)
             coef[0][:, hole] = 1.0
-            share[0][hole] = 0.5
+            share[0][:, hole] = 0.5
             conf[:, hole] = 0
-        alpha = coef * share[:, None, :]
+        alpha = coef * share
         beta = coef - alpha
         act_a = np.any(alpha != 0, axis=1)  # (K, G): slot used on the past side by the group
         act_b = np.any(beta != 0, axis=1)
