@@ -218,6 +218,23 @@ class _Synthesiser:
         return rho
 
     # -- one band -------------------------------------------------------------------------------
+    def band_samples(self, y0: int, y1: int):
+        """`band`, with the planes rounded half up and clipped to integer samples (as
+        `Picture.from_float`)."""
+        planes, maps = self.band(y0, y1)
+        top = np.float32((1 << self.bit_depth) - 1)
+        dtype = np.uint8 if self.bit_depth <= 8 else np.uint16
+        out = []
+        for p in planes:
+            if not np.all(np.isfinite(p)):
+                raise ParameterError("the synthesis produced non-finite samples (please report this)")
+            p += np.float32(0.5)
+            np.floor(p, out=p)
+            np.maximum(p, np.float32(0), out=p)
+            np.minimum(p, top, out=p)
+            out.append(p.astype(dtype))
+        return out, maps
+
     def band(self, y0: int, y1: int):
         """Luma rows y0..y1 (y0 a multiple of BAND_ROWS); returns planes and maps of those rows
         (padded to whole groups)."""
@@ -447,16 +464,17 @@ def synthesise_with_maps(
     with (ThreadPoolExecutor(max_workers=workers) if workers > 1 else _InlineExecutor()) as pool:
         eng = _Synthesiser(past, future, landed, params, k, (b_first // g, -(-b_last // g)), pool)
         starts = list(range((y0 // BAND_ROWS) * BAND_ROWS, y1, BAND_ROWS))
-        results = pool.map(lambda b0: (b0, eng.band(b0, min(H, b0 + BAND_ROWS))), starts)
+        results = pool.map(lambda b0: (b0, eng.band_samples(b0, min(H, b0 + BAND_ROWS))), starts)
         results = list(results)
     n_planes = len(past.planes)
+    dtype = past.y.dtype
     out = []
     for pi in range(n_planes):
         if pi == 0:
-            out.append(np.zeros((y1 - y0, W), np.float32))
+            out.append(np.zeros((y1 - y0, W), dtype))
         else:
             ch, cw = past.planes[pi].shape
-            out.append(np.zeros((-(-y1 // fy) - y0 // fy, cw), np.float32))
+            out.append(np.zeros((-(-y1 // fy) - y0 // fy, cw), dtype))
     maps = {name: np.zeros((y1 - y0, W), np.float32) for name in MAP_NAMES}
     for b0, (planes, bmaps) in results:
         b1 = min(H, b0 + BAND_ROWS)
@@ -470,7 +488,10 @@ def synthesise_with_maps(
             c0, c1 = s0 // fy, min(ch, -(-s1 // fy))
             cb0 = b0 // fy
             out[pi][c0 - y0 // fy : c1 - y0 // fy] = planes[pi][c0 - cb0 : c1 - cb0, :cw]
-    picture = Picture.from_float(out, chroma_format=past.chroma_format, bit_depth=past.bit_depth)
+    if past.chroma_format == "mono":
+        picture = Picture(out[0], None, None, "mono", past.bit_depth)
+    else:
+        picture = Picture(out[0], out[1], out[2], past.chroma_format, past.bit_depth)
     return SynthesisResult(picture=picture, maps=maps, rows=(y0, y1), landed=landed, params=params, info={"k": k})
 
 
