@@ -2,12 +2,14 @@
 
 Sub-sample positions are interpolated by one of three named filters:
 
-- 'sixtap' (default): the reference is first upsampled by two in each direction, the half-sample
+- 'sixtap' (default): the luma reference is first upsampled by two in each direction, the half-sample
   positions computed with the six-tap filter (1, -5, 20, 20, -5, 1) / 32 of ITU-T H.264 clause
   8.4.2.2.1 (separably, so the centre half-sample position is filtered both ways), then positions
   in between are interpolated bilinearly on the upsampled grid (as H.264 derives quarter-sample
   luma positions from integer and half-sample ones). The upsampled plane is stored as uint16 with
   2**(14 - bit_depth) fractional steps per sample and an offset for the filter's undershoot.
+  Chroma planes are interpolated bilinearly (as H.264 chroma, clause 8.4.2.2.2) on the same
+  uint16 representation.
 - 'bicubic': cubic convolution with a = -0.75 (R. G. Keys, "Cubic convolution interpolation for
   digital image processing", IEEE TASSP 29(6), 1981, doi:10.1109/TASSP.1981.1163711, with OpenCV's
   coefficient), on float32 samples.
@@ -67,15 +69,22 @@ class PlaneSampler:
         Integer or float samples.
     interpolation : {'sixtap', 'bicubic', 'bilinear'}
     bit_depth : int
+    chroma : bool
+        With 'sixtap', a chroma plane is interpolated bilinearly (as chroma in ITU-T H.264 clause
+        8.4.2.2.2), on uint16 samples with the same fractional bits.
     """
 
-    def __init__(self, plane: np.ndarray, *, interpolation: str, bit_depth: int):
+    def __init__(self, plane: np.ndarray, *, interpolation: str, bit_depth: int, chroma: bool = False):
         self.interpolation = interpolation
         f = plane.astype(np.float32)
         if interpolation == "sixtap":
-            self.scale = 2.0
             self._unit = float(1 << max(0, 14 - int(bit_depth)))
-            up = _halfpel_upsample(f)
+            if chroma:
+                self.scale = 1.0
+                up = f
+            else:
+                self.scale = 2.0
+                up = _halfpel_upsample(f)
             up *= np.float32(self._unit)
             up += np.float32(_OFFSET + 0.5)  # + 0.5: rounds half up when truncated below
             np.maximum(up, np.float32(0), out=up)

@@ -187,10 +187,12 @@ class _Synthesiser:
         jobs = [pool.submit(search.for_group_rows, self.g_row0, g_row1)]
         jobs.append(pool.submit(self._agreement, past.y.astype(np.float32), future.y.astype(np.float32)))
 
-        def sampler(plane):
-            return PlaneSampler(plane, interpolation=params.interpolation, bit_depth=past.bit_depth)
+        def sampler(item):
+            index, plane = item
+            return PlaneSampler(plane, interpolation=params.interpolation, bit_depth=past.bit_depth, chroma=index > 0)
 
-        flat = list(pool.map(sampler, [pl for pair in zip(past.planes, future.planes) for pl in pair]))
+        pairs = [(i, pl) for i, pair in enumerate(zip(past.planes, future.planes)) for pl in pair]
+        flat = list(pool.map(sampler, pairs))
         self.samplers = [(flat[2 * i], flat[2 * i + 1]) for i in range(len(flat) // 2)]
         self.idx = jobs[0].result()  # (rows, cols, K)
         rho = jobs[1].result()
