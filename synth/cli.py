@@ -129,18 +129,17 @@ def _issue5_progress(description: str):
     return bar, update
 
 
-def _issue5_maker(name: str, field_path: Optional[Path] = None):
+def _issue5_maker(name: str, field_path: Optional[Path] = None, size: Optional[tuple[int, int]] = None):
     from .reference_makers import maker_by_name
 
     if field_path is None:
         return maker_by_name(name)
     if name != "estimator":
         raise SynthError(f"--field needs --synthesiser estimator, got {name!r}")
-    try:
-        from synth.io import read_fields  # type: ignore[attr-defined]
-    except ImportError:
-        raise SynthError("--field: reading vector-field files needs synth.io.read_fields, which this build lacks") from None
-    return maker_by_name(name, fields=list(read_fields(field_path)))
+    from synth.io.fields import read_fields
+
+    width, height = size if size is not None else (None, None)
+    return maker_by_name(name, fields=read_fields(field_path, width=width, height=height))
 
 
 @app.command()
@@ -160,26 +159,24 @@ def offsets(
     as_json: bool = typer.Option(False, "--json", help="Print the statistics as JSON."),
 ) -> None:
     """Corrective block offsets of a target picture on its synthetic reference, and their bit cost."""
-    from synth.io import atomic_write_text, open_clip, write_y4m
+    from synth.io import open_clip, write_y4m
+    from synth.io.offsets_file import write_offsets
 
-    from .offsets import json_safe, offsets_document, refine_with_offsets
+    from .offsets import json_safe, refine_with_offsets
 
-    maker = _issue5_maker(synthesiser, field)
     reader = open_clip(clip)
     try:
         n = len(reader)
         for name, v in (("--past", past), ("--future", future), ("--at", at)):
             if not 0 <= v < n:
                 raise SynthError(f"{name} must be a picture number in 0..{n - 1}, got {v}")
+        maker = _issue5_maker(synthesiser, field, size=(reader.info.width, reader.info.height))
         state = maker.prepare(reader.read(past), reader.read(future), past_time=past, future_time=future, qp=qp)
         synthetic = maker.make(state, time=at)
         target = reader.read(at)
         search = refine_with_offsets(target, synthetic, block=block, window=window, metric=metric, qp=qp, time=at)
-        doc = offsets_document(
-            search,
-            extra={"source": str(clip), "past": past, "future": future, "synthesiser": maker.name, "fields": maker.describe(state)},
-        )
-        atomic_write_text(output, json.dumps(doc, indent=2) + "\n")
+        extra = {"source": str(clip), "past": past, "future": future, "synthesiser": maker.name, "fields": maker.describe(state)}
+        write_offsets(output, search, extra=extra)
         if prediction is not None:
             write_y4m(prediction, [search.prediction], reader.info)
     finally:

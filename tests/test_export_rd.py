@@ -16,6 +16,7 @@ from synth.errors import ParameterError
 from synth.expgolomb import se_codeword
 from synth.export import export_plan, hierarchy, write_reference_export
 from synth.io import Y4MReader, open_clip, write_y4m
+from synth.io.offsets_file import read_offsets
 from synth.rdmeasure import measure_clip, parse_qps, rd_targets, summarise_clips
 from synth.reference_makers import BlendMaker, fraction_of, maker_by_name
 
@@ -133,10 +134,10 @@ def test_offsets_command(crop_clip, tmp_path):
          "--synthesiser", "blend", "--block", "8", "--window", "1", "--prediction", str(tmp_path / "pred.y4m")],
     )
     assert r.exit_code == 0, r.output
-    doc = json.loads(out.read_text())
-    assert doc["format"] == "synth-offsets" and len(doc["blocks"]["x"]) == 64
+    field, doc = read_offsets(out)
+    assert doc["format"] == "synth-offsets" and len(field) == 64 and field.coded_time == 4.0
     # the bit count is the length of the se(v) code words (H.264 clause 9.1.1) of every component
-    words = [se_codeword(v) for v in doc["blocks"]["dx"] + doc["blocks"]["dy"]]
+    words = [se_codeword(v) for v in field.dx.tolist() + field.dy.tolist()]
     assert doc["statistics"]["bits_total"] == sum(len(w) for w in words)
     with Y4MReader(tmp_path / "pred.y4m") as p:
         assert len(p) == 1
@@ -155,3 +156,14 @@ def test_parameter_errors_of_the_measurement():
         fraction_of(8, 0, 8)
     with pytest.raises(ParameterError, match="synthesiser must be"):
         maker_by_name("magic")
+
+
+def test_export_with_the_estimator_names_the_fields_it_used(crop_clip, tmp_path):
+    out = tmp_path / "refs.y4m"
+    r = runner.invoke(app, ["export", str(crop_clip), "--gop", "8", "-o", str(out), "--qp", "32"])
+    assert r.exit_code == 0, r.output
+    doc = json.loads((tmp_path / "refs.y4m.json").read_text())
+    assert doc["synthesiser"] == "estimator"
+    first = doc["pictures"][0]
+    assert first["fields"] and first["fields"][0]["coded_time"] == first["future"]
+    assert first["fields"][0]["reference_time"] == first["past"] and first["fields"][0]["qp"] == 32

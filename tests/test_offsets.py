@@ -2,12 +2,15 @@
 
 from __future__ import annotations
 
+import json
+
 import numpy as np
 import pytest
 from scipy import ndimage
 
 from synth.dctif import quarter_pel_phases
-from synth.errors import ParameterError
+from synth.errors import FormatError, ParameterError
+from synth.io.offsets_file import read_offsets, write_offsets
 from synth.io import rgb_to_ycbcr420
 from synth.offsets import OffsetField, motion_lagrangian, offsets_document, refine_with_offsets
 from synth.picture import Picture
@@ -89,8 +92,32 @@ def test_offsets_field_document_and_determinism():
     assert np.all(np.abs(a.field.dx) <= 4) and np.all(np.abs(a.field.dy) <= 4)
     doc = offsets_document(a, extra={"past": 0})
     assert doc["reference"] == "synthetic" and doc["past"] == 0
-    assert len(doc["blocks"]["dx"]) == a.stats.blocks == (120 // 16) ** 2
+    assert len(doc["blocks"]) == a.stats.blocks == (120 // 16) ** 2
     assert doc["statistics"]["bits_total"] == a.stats.bits_total
+
+
+def test_offsets_file_round_trip_and_malformed_files(tmp_path):
+    synthetic, target = _camera_pair(-3, 2)
+    res = refine_with_offsets(target, synthetic, block=8, window=1, time=3)
+    path = tmp_path / "off.json"
+    write_offsets(path, res, extra={"source": "camera"})
+    field, doc = read_offsets(path)
+    for k in ("x", "y", "w", "h", "dx", "dy", "intra"):
+        np.testing.assert_array_equal(getattr(field, k), getattr(res.field, k))
+    assert field.coded_time == field.reference_time == 3.0 and doc["source"] == "camera"
+    bad = json.loads(path.read_text())
+    bad["blocks"][1][0] = 4  # block 1 now overlaps block 0
+    (tmp_path / "bad.json").write_text(json.dumps(bad))
+    with pytest.raises(FormatError, match="block 1"):
+        read_offsets(tmp_path / "bad.json")
+    bad = json.loads(path.read_text())
+    bad["schema_version"] = 7
+    (tmp_path / "v7.json").write_text(json.dumps(bad))
+    with pytest.raises(FormatError, match="schema version"):
+        read_offsets(tmp_path / "v7.json")
+    (tmp_path / "cut.json").write_text(path.read_text()[:200])
+    with pytest.raises(FormatError, match="not a JSON offsets file"):
+        read_offsets(tmp_path / "cut.json")
 
 
 def test_picture_not_a_multiple_of_the_block_keeps_its_rim():
