@@ -245,16 +245,16 @@ def rd(
     as_json: bool = typer.Option(False, "--json", help="Print the summary as JSON instead of a table."),
 ) -> None:
     """Bits a synthetic third reference saves a real encoder: BD-rate against the two real references."""
-    from synth.io import open_clip
-
     from .offsets import json_safe
-    from .rdmeasure import measure_clip, parse_qps, summarise_clips
+    from .rd import rd as measure_rd
+    from .rdmeasure import parse_qps, summarise_clips
     from .rdreport import format_rd_table, write_rd_report
+    from .reference_makers import maker_by_name
 
-    maker = _issue5_maker(synthesiser)
+    maker_by_name(synthesiser)  # fail early when the synthesiser is not available
     qp_list = parse_qps(qps)
     settings = {
-        "gap": gap, "qps": qp_list, "codec": codec, "synthesiser": maker.name, "refs": refs,
+        "gap": gap, "qps": qp_list, "codec": codec, "synthesiser": synthesiser, "refs": refs,
         "extra_qp": extra_qp, "preset": preset, "offsets": {"block": block, "window": window} if with_offsets else None,
         "limit": limit,
     }
@@ -262,19 +262,14 @@ def rd(
     bar, update = _issue5_progress("rd")
     with bar:
         for path in clips:
-            reader = open_clip(path)
-            try:
-                bar.console.print(f"{path}: {len(reader)} pictures", highlight=False)
-                results.append(
-                    measure_clip(
-                        reader.read, len(reader), clip=str(path), gap=gap, qps=qp_list, codec=codec, maker=maker,
-                        refs=refs, extra_qp=extra_qp, preset=preset,
-                        offsets={"block": block, "window": window} if with_offsets else None,
-                        limit=limit, progress=update,
-                    )
+            bar.console.print(f"measuring {path}", highlight=False)
+            results.append(
+                measure_rd(
+                    path, gap=gap, qps=qp_list, codec=codec, synthesiser=synthesiser, refs=refs, extra_qp=extra_qp,
+                    preset=preset, offsets=with_offsets, block=block, window=window, limit=limit, name=str(path),
+                    progress=update,
                 )
-            finally:
-                reader.close()
+            )
     summary = summarise_clips(results)
     if report is not None:
         write_rd_report(report, results, summary, settings)

@@ -167,3 +167,12 @@ def test_export_with_the_estimator_names_the_fields_it_used(crop_clip, tmp_path)
     first = doc["pictures"][0]
     assert first["fields"] and first["fields"][0]["coded_time"] == first["future"]
     assert first["fields"][0]["reference_time"] == first["past"] and first["fields"][0]["qp"] == 32
+
+
+def test_rd_is_available_as_a_study_job_kind(crop_clip):
+    from synth.study.kinds import get_kind
+
+    kind = get_kind("rd")
+    assert kind.unavailable_reason() is None
+    rows = kind.run(crop_clip, {"gap": 8, "qps": "24,30,36,42", "synthesiser": "blend", "limit": 1})
+    assert len(rows) == 3 * 4 and all("bits" in r and "psnr_y" in r for r in rows)
