@@ -459,15 +459,24 @@ def demo(
 ) -> None:
     """Run the main job on the bundled demo clips: GOP run and comparison, with a report."""
     from .demo import demo_plan, run_demo
-    from .tables import run_tables
+    from .tables import overview_table, vector_qp_table
 
     plan = demo_plan()
     with _ProgressBar("demo") as bar:
         results, paths = run_demo(plan, out=out, progress=bar)
+    clips = sorted({r.clip for r in results}, key=[r.clip for r in results].index)
+    typer.echo(f"Mean PSNR-YUV (dB) of the picture each method predicts, over {len(clips)} demo clips ({', '.join(clips)}):")
+    typer.echo("GOP = every B picture of a dyadic GOP from its hierarchy references; gap N = every picture")
+    typer.echo("between references N apart; wins = pictures on which the method is best.")
+    typer.echo(overview_table(results))
     for r in results:
-        typer.echo(run_tables(r))
-        typer.echo("")
-    typer.echo(f"report: {paths['html']}")
+        table = vector_qp_table(r)
+        if table:
+            typer.echo("")
+            typer.echo(f"Vector QP on {r.clip} (gap {', '.join(str(g) for g in r.settings['gaps'])}): mean PSNR-YUV of the vector-based methods")
+            typer.echo(table)
+    typer.echo("")
+    typer.echo(f"report: {paths['html']}  (per-clip and per-layer tables, plots, error and weight maps)")
     typer.echo(f"data:   {paths['json']}, {paths['csv']}")
 
 

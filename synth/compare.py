@@ -7,7 +7,7 @@ from typing import Sequence
 from .errors import ParameterError
 from .workbench import FrameSource, Job, RunResult, parse_vector_qps, run_jobs
 
-__all__ = ["compare_jobs", "compare_clip"]
+__all__ = ["compare_jobs", "compare_clip", "compare"]
 
 
 def compare_jobs(n_pictures: int, gaps: Sequence[int]) -> list[Job]:
@@ -86,3 +86,23 @@ def compare_clip(
         "vector_qps": qps,
     }
     return RunResult("compare", clip_name, settings, methods, records, pairs, highlights, group_key="gap")
+
+
+def compare(path, *, gap=8, predictors=None, vector_qp=None, frames: int | None = None, progress=None) -> RunResult:
+    """`compare_clip` on a clip file, with the command line's option names (used by `synth study`).
+
+    Parameters
+    ----------
+    path : path-like
+        Clip file, opened with `synth.io.open_clip`.
+    gap : int or sequence of int
+    predictors, vector_qp, frames
+        As ``synth compare --predictors/--vector-qp/--frames``.
+    """
+    from pathlib import Path
+
+    from .io import open_clip
+
+    gaps = [gap] if isinstance(gap, int) else list(gap)
+    reader = open_clip(path)
+    return compare_clip(reader, gaps=gaps, predictors=predictors, vector_qps=vector_qp, limit=frames, clip_name=Path(path).name, progress=progress)

@@ -2,7 +2,8 @@
 
 For every demo clip (generated scenes of our own, see ``demo_clips/``): a dyadic hierarchical GOP
 run (`synth.gop.run_gop`) and a comparison of every predictor at several reference gaps
-(`synth.compare.compare_clip`); one report for all of them.
+(`synth.compare.compare_clip`); then, on the first clip, the comparison at the widest gap repeated
+with vectors estimated at several QPs. One report for all of them.
 """
 
 from __future__ import annotations
@@ -22,10 +23,12 @@ __all__ = ["DEMO_CLIPS", "DemoStep", "demo_clip_dir", "demo_plan", "run_demo"]
 
 #: The bundled demo clips, in report order.
 DEMO_CLIPS = ("parcels_pan.y4m", "turntable_zoom.y4m", "cart_accelerate.y4m")
-#: GOP size of the demo's GOP runs and the gaps of its comparisons.
-DEMO_GOP_SIZE = 8
+#: GOP size of the demo's GOP runs (the clips hold one GOP of 16 plus its closing anchor), the
+#: gaps of its comparisons and the vector QPs of the vector-QP run.
+DEMO_GOP_SIZE = 16
 DEMO_GAPS = (2, 4, 8)
-#: Pictures of each clip the demo uses (keeps `make demo` to a few minutes on two cores).
+DEMO_VECTOR_QPS = (22, 32, 42)
+#: Pictures of each clip the demo uses.
 DEMO_PICTURES = 17
 
 
@@ -65,13 +68,22 @@ def demo_clip_dir() -> Path:
 
 
 def demo_plan(directory: Path | None = None) -> list[DemoStep]:
-    """The demo's runs: per clip a GOP run (size `DEMO_GOP_SIZE`) and a comparison at `DEMO_GAPS`."""
+    """The demo's runs: per clip a GOP run (size `DEMO_GOP_SIZE`) and a comparison at `DEMO_GAPS`;
+    on the first clip a comparison at the widest gap with vectors at `DEMO_VECTOR_QPS`."""
     d = Path(directory) if directory is not None else demo_clip_dir()
     steps = []
     for name in DEMO_CLIPS:
         steps.append(DemoStep("gop", name, d / name, {"size": DEMO_GOP_SIZE, "limit": DEMO_PICTURES}))
     for name in DEMO_CLIPS:
         steps.append(DemoStep("compare", name, d / name, {"gaps": list(DEMO_GAPS), "limit": DEMO_PICTURES}))
+    steps.append(
+        DemoStep(
+            "compare",
+            DEMO_CLIPS[0],
+            d / DEMO_CLIPS[0],
+            {"gaps": [max(DEMO_GAPS)], "limit": DEMO_PICTURES, "vector_qps": list(DEMO_VECTOR_QPS)},
+        )
+    )
     return steps
 
 

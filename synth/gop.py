@@ -17,7 +17,7 @@ from .picture import Picture
 from .predictors import resolve_predictors
 from .workbench import FrameSource, Job, RunResult, parse_vector_qps, run_jobs
 
-__all__ = ["gop_jobs", "run_gop", "GopRun"]
+__all__ = ["gop_jobs", "run_gop", "gop", "GopRun"]
 
 
 @dataclass
@@ -155,3 +155,34 @@ def run_gop(
     if export_method is not None:
         synthetic = [collected[i] if i in collected else references[i] for i in range(last + 1)]
     return GopRun("gop", clip_name, settings, methods, records, pairs, highlights, group_key="layer", synthetic=synthetic)
+
+
+def gop(
+    path,
+    *,
+    size: int = 16,
+    flat: bool = False,
+    decoded_refs: int | None = None,
+    predictors=None,
+    vector_qp=None,
+    frames: int | None = None,
+    progress=None,
+) -> GopRun:
+    """`run_gop` on a clip file, with the command line's option names (used by `synth study`)."""
+    from pathlib import Path
+
+    from .io import open_clip
+
+    reader = open_clip(path)
+    return run_gop(
+        reader,
+        size=size,
+        flat=flat,
+        decoded_refs_qp=decoded_refs,
+        predictors=predictors,
+        vector_qps=vector_qp,
+        limit=frames,
+        clip_name=Path(path).name,
+        frame_rate=reader.info.frame_rate,
+        progress=progress,
+    )

@@ -29,7 +29,6 @@ from typing import Sequence
 
 import numpy as np
 
-from . import __version__
 from .io import atomic_write_text
 from .workbench import METRIC_KEYS, RunResult
 
@@ -85,6 +84,8 @@ def results_document(runs: Sequence[RunResult]) -> dict:
                 "pictures": run.records,
             }
         )
+    from . import __version__
+
     return _jsonable({"format": "synth-results", "format_version": 1, "synth_version": __version__, "runs": doc_runs})
 
 
@@ -211,7 +212,7 @@ def _highlight_section(run: RunResult) -> str:
 
 def report_html(runs: Sequence[RunResult], doc: dict, *, title: str = "synth evaluation report") -> str:
     """The self-contained HTML report for `runs`; `doc` is their `results_document`."""
-    from . import plots
+    from . import __version__, plots
 
     body = [f"<h1>{html.escape(title)}</h1>"]
     body.append(

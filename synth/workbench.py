@@ -116,6 +116,10 @@ class RunResult:
     highlights: list[Highlight] = field(default_factory=list)
     group_key: str = "gap"
 
+    def to_rows(self) -> list[dict]:
+        """The per-picture records (copies), e.g. for `synth study`."""
+        return [dict(r) for r in self.records]
+
     def summary(self) -> list[dict]:
         """Per-method means per group and over all pictures (see `summarise`)."""
         return summarise(self.records, self.methods, group_key=self.group_key)

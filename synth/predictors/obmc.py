@@ -12,10 +12,11 @@ from typing import Sequence
 import numpy as np
 from scipy.spatial import cKDTree
 
+from ..errors import ParameterError
 from ..field import VectorField
 from ..flow import sample_with_flow, scale_flow_to_plane
 from ..picture import Picture
-from .trajectories import land_blocks
+from ..project import project_fields, reference_times
 
 __all__ = ["predict_obmc", "raised_cosine_weights", "grid_block_size"]
 
@@ -52,11 +53,12 @@ def raised_cosine_weights(n: int, block: int, n_blocks: int) -> tuple[np.ndarray
 def predict_obmc(past: Picture, future: Picture, *, t: float, fields: Sequence[VectorField]):
     """Overlapped block motion compensation (OBMC) of the projected vectors.
 
-    Scheme: every non-intra block of the fields is moved along its trajectory to time t
-    (`synth.predictors.trajectories`). A regular grid of B x B blocks at time t (B the most frequent
-    coded block side) takes, for each of its blocks, the vector of the landed block whose centre is
-    nearest to its own (k-d tree, ties to the first). Each grid block predicts bidirectionally
-    along its vector v, ``(1 - t) past(p - t v) + t future(p + (1 - t) v)``, and the predictions of
+    Scheme: every non-intra block of the fields is projected along its trajectory to time t with
+    the core's projection (`synth.project.project_fields`, the same landed vectors the estimator
+    uses). A regular grid of B x B blocks at time t (B the most frequent coded block side, a power
+    of two of at least 4) takes, for each of its blocks, the landed vector whose landing centre is
+    nearest to its own centre (k-d tree). Each grid block predicts bidirectionally along that
+    trajectory, ``(1 - t) past(p + d_past) + t future(p + d_future)``, and the predictions of
     overlapping blocks are blended with a separable raised-cosine window of 2B x 2B samples,
     ``sin^2(pi (n + 0.5) / 2B)``, which sums to one at hop B (M. T. Orchard and G. J. Sullivan,
     "Overlapped block motion compensation: an estimation-theoretic approach", IEEE Trans. Image
@@ -72,20 +74,25 @@ def predict_obmc(past: Picture, future: Picture, *, t: float, fields: Sequence[V
         centre and the landed block it took its vector from, spread over the block).
     """
     h, w = past.height, past.width
-    landed = land_blocks(fields, t=t, width=w, height=h)
+    fields = list(fields)
+    for f in fields:
+        if (f.width, f.height) != (w, h):
+            raise ParameterError(f"vector field is {f.width}x{f.height} but the pictures are {w}x{h}")
+    past_time, future_time = reference_times(fields)
+    landed = project_fields(fields, past_time=past_time, future_time=future_time, t=t)
     block = grid_block_size(fields)
     nby, nbx = -(-h // block), -(-w // block)
-    cy = (np.arange(nby) + 0.5) * block
-    cx = (np.arange(nbx) + 0.5) * block
-    gy, gx = np.meshgrid(cy, cx, indexing="ij")
+    # Block centres in sample coordinates (a block over samples x..x+B-1 is centred at x + (B-1)/2).
+    gy, gx = np.meshgrid(np.arange(nby) * block + (block - 1) / 2.0, np.arange(nbx) * block + (block - 1) / 2.0, indexing="ij")
+    zeros = np.zeros((nby, nbx), np.float32)
     if len(landed):
-        centres = np.stack([landed.x + landed.w / 2.0, landed.y + landed.h / 2.0], axis=1)
+        centres = np.stack([landed.cx, landed.cy], axis=1).astype(np.float64)
         dist, idx = cKDTree(centres).query(np.stack([gx.ravel(), gy.ravel()], axis=1), k=1)
-        bvx = landed.vx[idx].reshape(nby, nbx).astype(np.float32)
-        bvy = landed.vy[idx].reshape(nby, nbx).astype(np.float32)
+        disp = {name: getattr(landed, name)[idx].reshape(nby, nbx).astype(np.float32) for name in ("past_dx", "past_dy", "future_dx", "future_dy")}
         dist = dist.reshape(nby, nbx).astype(np.float32)
-    else:
-        bvx = bvy = dist = np.zeros((nby, nbx), np.float32)
+    else:  # every block intra: no motion known, zero displacements
+        disp = {name: zeros for name in ("past_dx", "past_dy", "future_dx", "future_dy")}
+        dist = zeros
     ry0, ry1, wy = raised_cosine_weights(h, block, nby)
     rx0, rx1, wx = raised_cosine_weights(w, block, nbx)
     fx, fy = past.chroma_factors
@@ -93,16 +100,18 @@ def predict_obmc(past: Picture, future: Picture, *, t: float, fields: Sequence[V
     for by, wyy in ((ry0, 1.0 - wy), (ry1, wy)):
         for bx, wxx in ((rx0, 1.0 - wx), (rx1, wx)):
             weight = (wyy[:, None] * wxx[None, :]).astype(np.float32)
-            v = np.stack([bvx[by][:, bx], bvy[by][:, bx]], axis=-1)
-            corners.append((weight, v))
+            d_past = np.stack([disp["past_dx"][by][:, bx], disp["past_dy"][by][:, bx]], axis=-1)
+            d_future = np.stack([disp["future_dx"][by][:, bx], disp["future_dy"][by][:, bx]], axis=-1)
+            corners.append((weight, d_past, d_future))
     out = []
     for i, (p, f) in enumerate(zip(past.planes, future.planes)):
         acc = np.zeros(p.shape, np.float32)
-        for weight, v in corners:
+        for weight, d_past, d_future in corners:
             if i > 0:
-                v = scale_flow_to_plane(v, fx, fy)
+                d_past = scale_flow_to_plane(d_past, fx, fy)
+                d_future = scale_flow_to_plane(d_future, fx, fy)
                 weight = weight[::fy, ::fx]
-            mc = (1.0 - t) * sample_with_flow(p, -t * v) + t * sample_with_flow(f, (1.0 - t) * v)
+            mc = (1.0 - t) * sample_with_flow(p, d_past) + t * sample_with_flow(f, d_future)
             acc += weight * mc
         out.append(acc)
     picture = Picture.from_float(out, chroma_format=past.chroma_format, bit_depth=past.bit_depth)

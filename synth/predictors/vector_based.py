@@ -30,8 +30,8 @@ def _core(past: Picture, future: Picture, fields: Sequence[VectorField], *, t: f
         raise ParameterError(
             f"predictor method {method!r} needs the core synthesis (synth.synthesis), which is not installed"
         ) from None
-    picture, maps = synthesise_with_maps(past, future, list(fields), t=t, method=method)
-    return picture, dict(maps)
+    result = synthesise_with_maps(past, future, list(fields), t=t, method=method)
+    return result.picture, dict(result.maps)
 
 
 def predict_lmmse(past: Picture, future: Picture, *, t: float, fields: Sequence[VectorField]):
