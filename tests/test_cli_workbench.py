@@ -1,0 +1,67 @@
+"""compare / gop / demo on the command line: outputs, and one-line errors with exit code 2."""
+
+import json
+import subprocess
+import sys
+
+import pytest
+from typer.testing import CliRunner
+
+from synth.cli import app
+from synth.io import open_clip, write_clip
+
+
+def _synth(*args, cwd=None):
+    """The real entry point in a child process (what a user runs)."""
+    return subprocess.run([sys.executable, "-m", "synth.cli", *map(str, args)], capture_output=True, text=True, cwd=cwd)
+
+
+@pytest.fixture(scope="module")
+def small_y4m(carphone_crop, tmp_path_factory):
+    path = tmp_path_factory.mktemp("clip") / "crop.y4m"
+    write_clip(path, carphone_crop(9))
+    return path
+
+
+def test_compare_writes_report_and_table(small_y4m, tmp_path):
+    proc = _synth("compare", small_y4m, "--gap", 4, "--gap", 2, "-n", 5, "-p", "average,dis-fast", "--report", tmp_path / "rep")
+    assert proc.returncode == 0, proc.stderr
+    assert "PSNR-YUV" in proc.stdout and "dis-fast" in proc.stdout and "report:" in proc.stdout
+    doc = json.loads((tmp_path / "rep" / "results.json").read_text())
+    assert doc["runs"][0]["settings"]["gaps"] == [4, 2]
+    assert (tmp_path / "rep" / "report.html").stat().st_size > 10_000
+
+
+def test_gop_export_writes_a_clip(small_y4m, tmp_path):
+    out = tmp_path / "synthetic.y4m"
+    proc = _synth("gop", small_y4m, "--size", 4, "-p", "average", "--export", out)
+    assert proc.returncode == 0, proc.stderr
+    assert "layer" in proc.stdout and f"exported 9 pictures (average) to {out}" in proc.stdout
+    assert len(open_clip(out)) == 9
+
+
+@pytest.mark.parametrize(
+    "args,message",
+    [
+        (["gop", "{clip}", "--size", "12"], "GOP size must be a power of two from 2 to 64, got 12"),
+        (["gop", "{clip}", "--size", "16"], "a GOP of size 16 needs at least 17 pictures, the clip has 9"),
+        (["compare", "{clip}", "--gap", "1"], "gap must be an integer of at least 2, got 1"),
+        (["compare", "{clip}", "-p", "optical"], "unknown predictor 'optical'"),
+        (["compare", "{clip}", "--vector-qp", "22,99"], "vector-qp values must be in 0..51, got 99"),
+        (["compare", "missing.y4m"], "missing.y4m: no such file"),
+        (["gop", "{clip}", "--size", "4", "--export", "out.mp4"], "--export must name a .y4m file"),
+        (["gop", "{clip}", "--size", "4", "--decoded-refs", "60", "-p", "average"], "decoded-refs QP must be an integer 0..51, got 60"),
+    ],
+)
+def test_errors_are_one_line(small_y4m, tmp_path, monkeypatch, args, message):
+    monkeypatch.chdir(tmp_path)
+    result = CliRunner().invoke(app, [a.replace("{clip}", str(small_y4m)) for a in args])
+    assert result.exit_code == 2
+    lines = result.stderr.strip().splitlines()
+    assert len(lines) == 1 and lines[0].startswith("synth: error: ") and message in lines[0], result.stderr
+    assert not list(tmp_path.iterdir())  # nothing written
+
+
+def test_error_in_a_child_process_is_one_line(tmp_path):
+    proc = _synth("gop", tmp_path / "none.y4m", "--size", "8")
+    assert proc.returncode == 2 and proc.stderr.strip() == f"synth: error: {tmp_path / 'none.y4m'}: no such file"
