@@ -15,6 +15,7 @@ from synth.errors import FormatError
 from synth.picture import ClipInfo, Picture
 
 from .atomic import atomic_output, atomic_write_bytes, atomic_write_text
+from .fields import fields_to_csv, read_fields, write_fields
 from .video import VideoReader, rgb_to_ycbcr420
 from .y4m import Y4MReader, write_y4m
 
@@ -29,6 +30,10 @@ __all__ = [
     "atomic_output",
     "atomic_write_bytes",
     "atomic_write_text",
+    # vector-field files (issue 3)
+    "write_fields",
+    "read_fields",
+    "fields_to_csv",
 ]
 
 

@@ -14,6 +14,12 @@ from typing import IO, Iterator
 __all__ = ["atomic_output", "atomic_write_bytes", "atomic_write_text"]
 
 
+def _umask() -> int:
+    mask = os.umask(0o022)
+    os.umask(mask)
+    return mask
+
+
 @contextlib.contextmanager
 def atomic_output(path: str | os.PathLike, mode: str = "wb") -> Iterator[IO]:
     """Open a temporary file beside `path`; on success rename it onto `path`, on error remove it."""
@@ -21,6 +27,8 @@ def atomic_output(path: str | os.PathLike, mode: str = "wb") -> Iterator[IO]:
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
     try:
+        # mkstemp creates the file private (0600); give the output the permissions a plain open() would.
+        os.chmod(tmp, 0o666 & ~_umask())
         with os.fdopen(fd, mode) as fh:
             yield fh
             fh.flush()

@@ -8,6 +8,18 @@ from .errors import FormatError, ParameterError, SynthError
 from .field import VectorField
 from .picture import ClipInfo, Picture
 
+# -- coded motion (issue 3) --
+from .compensate import motion_compensate
+from .field_summary import summarize_field
+from .motion import estimate_field
+# -- synthesis (issue 4) --
+from .params import SynthParams
+from .synthesis import SynthesisResult, synthesise, synthesise_with_maps
+# --- issue 5: encoder side (offsets, BD-rate, encoder in the loop) ---
+from .bdrate import bd_psnr, bd_rate
+from .encode import encode_pictures
+from .offsets import refine_with_offsets
+
 __version__ = "0.1.0"
 
 __all__ = [
@@ -17,4 +29,18 @@ __all__ = [
     "Picture",
     "ClipInfo",
     "VectorField",
+    # coded motion (issue 3)
+    "estimate_field",
+    "motion_compensate",
+    "summarize_field",
+    # synthesis (issue 4)
+    "SynthParams",
+    "SynthesisResult",
+    "synthesise",
+    "synthesise_with_maps",
+    # issue 5
+    "refine_with_offsets",
+    "bd_rate",
+    "bd_psnr",
+    "encode_pictures",
 ]

@@ -107,6 +107,187 @@ def info(
 # Encoder side: export, rd  (issue 5)
 # =============================================================================================
 
+def _issue5_progress(description: str):
+    """A rich progress bar on stderr; returns (context manager, callback(done, total))."""
+    from rich.console import Console
+    from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn, TimeRemainingColumn
+
+    bar = Progress(
+        TextColumn("[progress.description]{task.description}"),
+        BarColumn(),
+        MofNCompleteColumn(),
+        TimeElapsedColumn(),
+        TimeRemainingColumn(),
+        console=Console(stderr=True),
+        transient=True,
+    )
+    task = bar.add_task(description, total=None)
+
+    def update(done: int, total: int) -> None:
+        bar.update(task, completed=done, total=total)
+
+    return bar, update
+
+
+def _issue5_maker(name: str, field_path: Optional[Path] = None):
+    from .reference_makers import maker_by_name
+
+    if field_path is None:
+        return maker_by_name(name)
+    if name != "estimator":
+        raise SynthError(f"--field needs --synthesiser estimator, got {name!r}")
+    try:
+        from synth.io import read_fields  # type: ignore[attr-defined]
+    except ImportError:
+        raise SynthError("--field: reading vector-field files needs synth.io.read_fields, which this build lacks") from None
+    return maker_by_name(name, fields=list(read_fields(field_path)))
+
+
+@app.command()
+def offsets(
+    clip: Path = typer.Argument(..., help="Clip file."),
+    past: int = typer.Option(..., "--past", help="Picture number of the past reference."),
+    future: int = typer.Option(..., "--future", help="Picture number of the future reference."),
+    at: int = typer.Option(..., "--at", help="Picture number of the target (strictly between)."),
+    output: Path = typer.Option(..., "-o", "--output", help="Offsets file to write (JSON)."),
+    field: Optional[Path] = typer.Option(None, "--field", help="Vector field file to synthesise from (default: estimate)."),
+    block: int = typer.Option(16, "--block", help="Block size in luma samples (8 or 16 usual)."),
+    window: int = typer.Option(2, "--window", help="Search range in whole luma samples each way (quarter-pel steps)."),
+    qp: int = typer.Option(27, "--qp", help="QP for lambda (and for estimated vectors)."),
+    metric: str = typer.Option("satd", "--metric", help="Distortion: satd or sad."),
+    synthesiser: str = typer.Option("estimator", "--synthesiser", help="estimator (the product) or blend (control)."),
+    prediction: Optional[Path] = typer.Option(None, "--prediction", help="Also write the corrected prediction (.y4m)."),
+    as_json: bool = typer.Option(False, "--json", help="Print the statistics as JSON."),
+) -> None:
+    """Corrective block offsets of a target picture on its synthetic reference, and their bit cost."""
+    from synth.io import atomic_write_text, open_clip, write_y4m
+
+    from .offsets import json_safe, offsets_document, refine_with_offsets
+
+    maker = _issue5_maker(synthesiser, field)
+    reader = open_clip(clip)
+    try:
+        n = len(reader)
+        for name, v in (("--past", past), ("--future", future), ("--at", at)):
+            if not 0 <= v < n:
+                raise SynthError(f"{name} must be a picture number in 0..{n - 1}, got {v}")
+        state = maker.prepare(reader.read(past), reader.read(future), past_time=past, future_time=future, qp=qp)
+        synthetic = maker.make(state, time=at)
+        target = reader.read(at)
+        search = refine_with_offsets(target, synthetic, block=block, window=window, metric=metric, qp=qp, time=at)
+        doc = offsets_document(
+            search,
+            extra={"source": str(clip), "past": past, "future": future, "synthesiser": maker.name, "fields": maker.describe(state)},
+        )
+        atomic_write_text(output, json.dumps(doc, indent=2) + "\n")
+        if prediction is not None:
+            write_y4m(prediction, [search.prediction], reader.info)
+    finally:
+        reader.close()
+    st = search.stats
+    if as_json:
+        _print_json(json_safe(st.as_dict()))
+        return
+    typer.echo(f"blocks          {st.blocks} of {st.block}x{st.block}, window +-{st.window}, {st.metric}, lambda {st.lagrangian:.3f}")
+    typer.echo(f"zero offsets    {100 * st.zero_share:.1f} %")
+    typer.echo(f"offset bits     {st.bits_total} ({st.bits_per_block:.2f} per block, {st.bits_per_pixel:.4f} per pixel)")
+    for plane in st.psnr_before:
+        typer.echo(f"PSNR-{plane:<3}       {st.psnr_before[plane]:.2f} -> {st.psnr_after[plane]:.2f} dB")
+    typer.echo(f"SAD (luma)      {st.sad_before:.0f} -> {st.sad_after:.0f}")
+    typer.echo(f"written         {output}")
+
+
+@app.command()
+def export(
+    clip: Path = typer.Argument(..., help="Clip file."),
+    gop: int = typer.Option(8, "--gop", help="Dyadic hierarchical GOP size (power of two, 2..64)."),
+    output: Path = typer.Option(..., "-o", "--output", help="Output file: .y4m, or raw planar with --raw."),
+    raw: bool = typer.Option(False, "--raw", help="Write raw planar samples (no header) instead of Y4M."),
+    sidecar: Optional[Path] = typer.Option(None, "--sidecar", help="Sidecar JSON path (default: OUTPUT + .json)."),
+    qp: int = typer.Option(27, "--qp", help="QP of the estimated vectors."),
+    synthesiser: str = typer.Option("estimator", "--synthesiser", help="estimator (the product) or blend (control)."),
+) -> None:
+    """Synthetic reference pictures for every non-anchor picture of a hierarchical GOP, in display order."""
+    from synth.io import open_clip
+
+    from .export import sidecar_path, write_reference_export
+
+    maker = _issue5_maker(synthesiser)
+    reader = open_clip(clip)
+    bar, update = _issue5_progress("export")
+    try:
+        with bar:
+            doc = write_reference_export(
+                reader, output, gop=gop, maker=maker, qp=qp, raw=raw, sidecar=sidecar, source_name=str(clip), progress=update
+            )
+    finally:
+        reader.close()
+    typer.echo(
+        f"{len(doc['pictures'])} synthetic pictures ({doc['width']}x{doc['height']} {doc['chroma_format']} "
+        f"{doc['bit_depth']}-bit) -> {output}; sidecar {sidecar or sidecar_path(output)}"
+    )
+    if doc["uncovered"]:
+        typer.echo(f"pictures {doc['uncovered'][0]}..{doc['uncovered'][-1]} lie after the last anchor and are not covered")
+
+
+@app.command()
+def rd(
+    clips: list[Path] = typer.Argument(..., help="One or more clip files."),
+    gap: int = typer.Option(8, "--gap", help="Distance between the two references."),
+    qps: str = typer.Option("22,27,32,37", "--qps", help="Comma-separated QPs (four or more)."),
+    codec: str = typer.Option("h264", "--codec", help="h264 (x264) or hevc (x265)."),
+    synthesiser: str = typer.Option("estimator", "--synthesiser", help="estimator (the product) or blend (control)."),
+    refs: str = typer.Option("decoded", "--refs", help="Make the synthetic picture from decoded or source references."),
+    extra_qp: int = typer.Option(4, "--extra-qp", help="QP at which the extra reference picture is coded (bits not charged)."),
+    preset: str = typer.Option("medium", "--preset", help="Encoder speed preset."),
+    with_offsets: bool = typer.Option(False, "--offsets", help="Also run the offset search and measure its corrected picture."),
+    block: int = typer.Option(16, "--block", help="Offset block size (with --offsets)."),
+    window: int = typer.Option(2, "--window", help="Offset search range in luma samples (with --offsets)."),
+    limit: Optional[int] = typer.Option(None, "--limit", help="Only the first N target pictures per clip."),
+    report: Optional[Path] = typer.Option(None, "--report", help="Directory for rd.json, rd.csv and RD-curve PNGs."),
+    as_json: bool = typer.Option(False, "--json", help="Print the summary as JSON instead of a table."),
+) -> None:
+    """Bits a synthetic third reference saves a real encoder: BD-rate against the two real references."""
+    from synth.io import open_clip
+
+    from .offsets import json_safe
+    from .rdmeasure import measure_clip, parse_qps, summarise_clips
+    from .rdreport import format_rd_table, write_rd_report
+
+    maker = _issue5_maker(synthesiser)
+    qp_list = parse_qps(qps)
+    settings = {
+        "gap": gap, "qps": qp_list, "codec": codec, "synthesiser": maker.name, "refs": refs,
+        "extra_qp": extra_qp, "preset": preset, "offsets": {"block": block, "window": window} if with_offsets else None,
+        "limit": limit,
+    }
+    results = []
+    bar, update = _issue5_progress("rd")
+    with bar:
+        for path in clips:
+            reader = open_clip(path)
+            try:
+                bar.console.print(f"{path}: {len(reader)} pictures", highlight=False)
+                results.append(
+                    measure_clip(
+                        reader.read, len(reader), clip=str(path), gap=gap, qps=qp_list, codec=codec, maker=maker,
+                        refs=refs, extra_qp=extra_qp, preset=preset,
+                        offsets={"block": block, "window": window} if with_offsets else None,
+                        limit=limit, progress=update,
+                    )
+                )
+            finally:
+                reader.close()
+    summary = summarise_clips(results)
+    if report is not None:
+        write_rd_report(report, results, summary, settings)
+    if as_json:
+        _print_json(json_safe({"settings": settings, **summary}))
+    else:
+        typer.echo(format_rd_table(summary))
+        if report is not None:
+            typer.echo(f"report: {report}")
+
 
 # =============================================================================================
 # Evaluation workbench: compare, gop, demo  (issue 6)

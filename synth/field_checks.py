@@ -1,0 +1,239 @@
+"""Validation of vector fields: the rules every field read from a file must satisfy.
+
+Rules (each failure raises :class:`synth.errors.FormatError` naming the field and the block):
+
+- block positions, sizes and vectors are integers (not booleans, not floating point) and finite;
+  the intra flag is a boolean or 0/1;
+- block width and height are powers of two from 4 to 128;
+- every block lies inside the picture;
+- blocks do not overlap, and cover the whole picture unless the field sets ``gaps_allowed``;
+- a vector points no further than the picture: the displaced block (x + dx/4, y + dy/4) keeps its
+  top-left corner within [-w, width] x [-h, height], i.e. it at most touches the picture from
+  outside (samples outside the reference picture repeat its edge, so going further is meaningless);
+- coded and reference times are finite and differ.
+"""
+
+from __future__ import annotations
+
+from typing import Mapping, Sequence
+
+import numpy as np
+
+from .errors import FormatError
+from .field import VectorField
+
+__all__ = [
+    "COLUMNS",
+    "MIN_BLOCK",
+    "MAX_BLOCK",
+    "MAX_PICTURE_SIDE",
+    "check_picture_size",
+    "field_from_columns",
+    "validate_field",
+]
+
+#: Block columns in files, in their canonical order.
+COLUMNS = ("x", "y", "w", "h", "dx", "dy", "intra")
+MIN_BLOCK = 4
+MAX_BLOCK = 128
+#: Largest picture side accepted (a guard against absurd sizes in damaged files).
+MAX_PICTURE_SIDE = 65536
+
+
+def _describe(label: str, i: int, x, y, w, h) -> str:
+    return f"{label}, block {i} (x={x}, y={y}, {w}x{h})"
+
+
+def check_picture_size(width, height) -> tuple[int, int]:
+    """Picture width and height must be integers in 1..65536."""
+    for name, v in (("width", width), ("height", height)):
+        if isinstance(v, (bool, np.bool_)) or not isinstance(v, (int, np.integer)):
+            raise FormatError(f"picture {name} must be an integer, got {v!r}")
+        if not 1 <= int(v) <= MAX_PICTURE_SIDE:
+            raise FormatError(f"picture {name} must be in 1..{MAX_PICTURE_SIDE}, got {v}")
+    return int(width), int(height)
+
+
+def _check_time(label: str, name: str, t) -> float:
+    if isinstance(t, (bool, np.bool_)) or not isinstance(t, (int, float, np.integer, np.floating)):
+        raise FormatError(f"{label}: {name} must be a number, got {t!r}")
+    if not np.isfinite(t):
+        raise FormatError(f"{label}: {name} must be finite, got {t}")
+    return float(t)
+
+
+def _integer_column(label: str, name: str, values, xs, ys) -> np.ndarray:
+    """Return the column as int64 or raise naming the first bad block."""
+    lo, hi = -(2**31), 2**31 - 1
+    a = np.asarray(values)
+    if a.dtype.kind == "f":
+        bad = ~np.isfinite(a) | (np.floor(np.where(np.isfinite(a), a, 0)) != a)
+        if bad.any():
+            i = int(np.argmax(bad))
+            where = f"{label}, block {i}"
+            if i < len(xs) and float(xs[i]).is_integer() and float(ys[i]).is_integer():
+                where += f" (x={int(xs[i])}, y={int(ys[i])})"
+            kind = "a finite integer" if not np.isfinite(a[i]) else "an integer"
+            raise FormatError(f"{where}: {name} must be {kind}, got {a[i]}")
+        return a  # integral values stored as floating point: rejected by the caller after all columns
+    if a.dtype.kind not in "iu":
+        lst = np.asarray(values, dtype=object).ravel().tolist()
+        for i, v in enumerate(lst):
+            if isinstance(v, (bool, np.bool_)) or not isinstance(v, (int, np.integer)):
+                where = f"{label}, block {i}"
+                if i < len(xs) and isinstance(xs[i], int) and isinstance(ys[i], int):
+                    where += f" (x={xs[i]}, y={ys[i]})"
+                if isinstance(v, (float, np.floating)) and not np.isfinite(v):
+                    raise FormatError(f"{where}: {name} must be a finite integer, got {v}")
+                raise FormatError(f"{where}: {name} must be an integer, got {v!r}")
+            if not lo <= v <= hi:
+                raise FormatError(f"{label}, block {i}: {name} = {v} does not fit a 32-bit integer")
+        return np.array(lst, dtype=np.int64)
+    if a.size and (a.max() > hi or a.min() < lo):
+        i = int(np.argmax((a > hi) | (a < lo)))
+        raise FormatError(f"{label}, block {i}: {name} = {a[i]} does not fit a 32-bit integer")
+    return a.astype(np.int64).ravel()
+
+
+def _intra_column(label: str, values, n: int) -> np.ndarray:
+    a = np.asarray(values)
+    if a.dtype == bool:
+        return a.astype(bool)
+    lst = np.asarray(values, dtype=object).ravel().tolist()
+    for i, v in enumerate(lst):
+        if not (isinstance(v, (bool, np.bool_)) or (isinstance(v, (int, np.integer)) and v in (0, 1))):
+            raise FormatError(f"{label}, block {i}: intra must be true/false or 0/1, got {v!r}")
+    return np.array([bool(v) for v in lst], dtype=bool).reshape(n)
+
+
+def field_from_columns(
+    columns: Mapping[str, Sequence],
+    *,
+    width: int,
+    height: int,
+    coded_time,
+    reference_time,
+    gaps_allowed=False,
+    label: str = "field",
+) -> VectorField:
+    """Build a `VectorField` from raw block columns (as parsed from a file) and validate it.
+
+    Parameters
+    ----------
+    columns : mapping of 'x', 'y', 'w', 'h', 'dx', 'dy', 'intra' to sequences
+        Raw values, one per block, in coding order.
+    width, height : int
+        Picture size.
+    coded_time, reference_time : number
+    gaps_allowed : bool
+    label : str
+        How messages name this field (e.g. "field.json, field 2").
+
+    Returns
+    -------
+    VectorField
+
+    Raises
+    ------
+    FormatError
+        Naming the field and block that break a rule (see the module docstring).
+    """
+    width, height = check_picture_size(width, height)
+    missing = [c for c in COLUMNS if c not in columns]
+    if missing:
+        raise FormatError(f"{label}: missing block column(s) {', '.join(missing)}")
+    n = len(columns["x"])
+    for c in COLUMNS:
+        if len(columns[c]) != n:
+            raise FormatError(f"{label}: column {c} has {len(columns[c])} values, column x has {n}")
+    if not isinstance(gaps_allowed, (bool, np.bool_)):
+        raise FormatError(f"{label}: gaps_allowed must be true or false, got {gaps_allowed!r}")
+    ct = _check_time(label, "coded_time", coded_time)
+    rt = _check_time(label, "reference_time", reference_time)
+    if ct == rt:
+        raise FormatError(f"{label}: coded_time and reference_time must differ, both are {ct}")
+    xs = list(np.asarray(columns["x"], dtype=object).ravel().tolist())
+    ys = list(np.asarray(columns["y"], dtype=object).ravel().tolist())
+    ints = {c: _integer_column(label, c, columns[c], xs, ys) for c in COLUMNS[:-1]}
+    for c, a in ints.items():
+        if a.dtype.kind == "f":
+            raise FormatError(f"{label}: column {c} is stored as floating point ({a.dtype}); block values must be integers")
+    intra = _intra_column(label, columns["intra"], n)
+    field = VectorField(
+        width, height, ct, rt,
+        *(ints[c].astype(np.int32) for c in COLUMNS[:-1]),
+        intra, bool(gaps_allowed),
+    )  # fmt: skip
+    validate_field(field, label=label)
+    return field
+
+
+def validate_field(field: VectorField, *, label: str = "field") -> None:
+    """Check a field against the geometric rules (module docstring); raise `FormatError` if broken.
+
+    Parameters
+    ----------
+    field : VectorField
+    label : str
+        How messages name this field.
+
+    Raises
+    ------
+    FormatError
+        Naming the first offending block: size not a power of two in 4..128, block outside the
+        picture, overlapping blocks, uncovered samples without ``gaps_allowed``, vector pointing
+        further than the picture, times not finite or equal.
+    """
+    W, H = check_picture_size(field.width, field.height)
+    for name, t in (("coded_time", field.coded_time), ("reference_time", field.reference_time)):
+        _check_time(label, name, t)
+    if field.coded_time == field.reference_time:
+        raise FormatError(f"{label}: coded_time and reference_time must differ, both are {field.coded_time}")
+    x = field.x.astype(np.int64)
+    y = field.y.astype(np.int64)
+    w = field.w.astype(np.int64)
+    h = field.h.astype(np.int64)
+    dx = field.dx.astype(np.int64)
+    dy = field.dy.astype(np.int64)
+
+    def first(mask) -> int:
+        return int(np.argmax(mask))
+
+    def where(i: int) -> str:
+        return _describe(label, i, int(x[i]), int(y[i]), int(w[i]), int(h[i]))
+
+    for name, s in (("width", w), ("height", h)):
+        bad = (s < MIN_BLOCK) | (s > MAX_BLOCK) | ((s & (s - 1)) != 0)
+        if bad.any():
+            i = first(bad)
+            raise FormatError(f"{where(i)}: block {name} must be a power of two from {MIN_BLOCK} to {MAX_BLOCK}, got {s[i]}")
+    outside = (x < 0) | (y < 0) | (x + w > W) | (y + h > H)
+    if outside.any():
+        i = first(outside)
+        raise FormatError(f"{where(i)}: block lies outside the {W}x{H} picture")
+    inter = ~field.intra
+    # displaced top-left corner in quarter samples must stay within [-w, W] x [-h, H]
+    far = inter & ((4 * x + dx < -4 * w) | (4 * x + dx > 4 * W) | (4 * y + dy < -4 * h) | (4 * y + dy > 4 * H))
+    if far.any():
+        i = first(far)
+        raise FormatError(
+            f"{where(i)}: vector (dx={dx[i]}, dy={dy[i]}) quarter samples points further than the {W}x{H} picture"
+        )
+    label_map = np.full((H, W), -1, dtype=np.int32)
+    for i, (bx, by, bw, bh) in enumerate(zip(x.tolist(), y.tolist(), w.tolist(), h.tolist())):
+        region = label_map[by : by + bh, bx : bx + bw]
+        taken = region >= 0
+        if taken.any():
+            j = int(region[taken][0])
+            raise FormatError(
+                f"{where(i)}: block overlaps block {j} (x={x[j]}, y={y[j]}, {w[j]}x{h[j]}) coded before it"
+            )
+        region[...] = i
+    if not field.gaps_allowed:
+        gaps = label_map < 0
+        if gaps.any():
+            r, c = np.argwhere(gaps)[0]
+            raise FormatError(
+                f"{label}: sample (x={c}, y={r}) is covered by no block; blocks must cover the {W}x{H} "
+                f"picture unless gaps_allowed is true"
+            )
