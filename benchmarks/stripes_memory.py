@@ -2,10 +2,13 @@
 
     .venv/bin/python benchmarks/stripes_memory.py [--size 3840x2160] [--stripe-rows 256 512] [--no-whole]
 
-Each measurement runs in a fresh child process (so peaks do not mix) and reports:
+The two references are written to a temporary Y4M file first; each measurement runs in a fresh
+child process (so peaks do not mix) that reads them, as a study job would, and reports:
 
-* peak resident set size of the process (``resource.getrusage(RUSAGE_SELF).ru_maxrss``), which
-  includes the interpreter and its libraries (the baseline before synthesis is printed too);
+* peak resident set size of the process (``VmHWM`` of ``/proc/self/status`` on Linux, else
+  ``resource.getrusage(RUSAGE_SELF).ru_maxrss``), which includes the interpreter and its
+  libraries (the peak before synthesis is printed too); the inputs are made in another child
+  process, so no parent's memory is counted;
 * peak of Python-visible allocations during the synthesis (``tracemalloc``; numpy registers its
   array buffers with it);
 * wall time, and a SHA-256 of the output planes: stripes must match the whole picture bit for bit.
@@ -21,38 +24,52 @@ from __future__ import annotations
 import argparse
 import hashlib
 import json
+import os
 import resource
 import subprocess
 import sys
+import tempfile
 import time
 import tracemalloc
 
 
-def _inputs(width: int, height: int):
+def _make_inputs(path: str, width: int, height: int) -> None:
+    """Write the two references to a Y4M file (done once, in the parent process)."""
     import cv2
     import numpy as np
     from skimage import data
 
-    from synth import VectorField
-    from synth.io import rgb_to_ycbcr420
+    from synth.io import rgb_to_ycbcr420, write_y4m
 
     rgb = data.astronaut()
     big = cv2.resize(rgb[..., ::-1], (width, height), interpolation=cv2.INTER_CUBIC)
-    past = rgb_to_ycbcr420(big)
     shift = np.float32([[1, 0, 8], [0, 1, 3]])
     moved = cv2.warpAffine(big, shift, (width, height), flags=cv2.INTER_LINEAR, borderMode=cv2.BORDER_REPLICATE)
-    future = rgb_to_ycbcr420(moved)
-    # Blocks on the future picture (time 2) find their content 8 left and 3 up on the past (time 0).
-    field = VectorField.uniform_grid(width, height, block=16, coded_time=2, reference_time=0, dx=-32, dy=-12)
-    return past, future, field
+    write_y4m(path, [rgb_to_ycbcr420(big), rgb_to_ycbcr420(moved)])
 
 
-def _child(mode: str, width: int, height: int, stripe_rows: int) -> dict:
-    from synth import synthesise
+def _peak_rss_mb() -> float:
+    try:
+        with open("/proc/self/status") as fh:
+            for line in fh:
+                if line.startswith("VmHWM:"):
+                    return int(line.split()[1]) / 1024
+    except OSError:
+        pass
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+
+
+def _child(mode: str, path: str, stripe_rows: int) -> dict:
+    from synth import VectorField, synthesise
+    from synth.io import open_clip
     from synth.study.stripes import synthesise_striped
 
-    past, future, field = _inputs(width, height)
-    base = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+    with open_clip(path) as clip:
+        past, future = clip.read(0), clip.read(1)
+    w, h = past.width, past.height
+    # Blocks on the future picture (time 2) find their content 8 left and 3 up on the past (time 0).
+    field = VectorField.uniform_grid(w, h, block=16, coded_time=2, reference_time=0, dx=-32, dy=-12)
+    base = _peak_rss_mb()
     tracemalloc.start()
     t0 = time.perf_counter()
     if mode == "whole":
@@ -66,8 +83,8 @@ def _child(mode: str, width: int, height: int, stripe_rows: int) -> dict:
     return {
         "mode": mode if mode == "whole" else f"stripes of {stripe_rows} rows",
         "seconds": round(seconds, 2),
-        "peak_rss_mb": round(resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024, 1),
-        "rss_before_mb": round(base / 1024, 1),
+        "peak_rss_mb": round(_peak_rss_mb(), 1),
+        "rss_before_mb": round(base, 1),
         "traced_peak_mb": round(traced / 2**20, 1),
         "sha256": digest,
     }
@@ -78,21 +95,28 @@ def main() -> int:
     ap.add_argument("--size", default="3840x2160")
     ap.add_argument("--stripe-rows", type=int, nargs="+", default=[256])
     ap.add_argument("--no-whole", action="store_true", help="skip the whole-picture run")
-    ap.add_argument("--child", nargs=4, metavar=("MODE", "W", "H", "ROWS"), help=argparse.SUPPRESS)
+    ap.add_argument("--child", nargs=3, metavar=("MODE", "Y4M", "ROWS"), help=argparse.SUPPRESS)
+    ap.add_argument("--make-inputs", nargs=3, metavar=("Y4M", "W", "H"), help=argparse.SUPPRESS)
     args = ap.parse_args()
+    if args.make_inputs:
+        _make_inputs(args.make_inputs[0], int(args.make_inputs[1]), int(args.make_inputs[2]))
+        return 0
     if args.child:
-        mode, w, h, rows = args.child
-        print(json.dumps(_child(mode, int(w), int(h), int(rows))))
+        mode, path, rows = args.child
+        print(json.dumps(_child(mode, path, int(rows))))
         return 0
     w, h = (int(v) for v in args.size.lower().split("x"))
     runs = [("stripes", r) for r in args.stripe_rows] + ([] if args.no_whole else [("whole", 0)])
     results = []
-    for mode, rows in runs:
-        out = subprocess.run([sys.executable, __file__, "--child", mode, str(w), str(h), str(rows)], capture_output=True, text=True)
-        if out.returncode:
-            print(out.stderr, file=sys.stderr)
-            return out.returncode
-        results.append(json.loads(out.stdout.strip().splitlines()[-1]))
+    with tempfile.TemporaryDirectory() as tmp:
+        path = os.path.join(tmp, "refs.y4m")
+        subprocess.run([sys.executable, __file__, "--make-inputs", path, str(w), str(h)], check=True)
+        for mode, rows in runs:
+            out = subprocess.run([sys.executable, __file__, "--child", mode, path, str(rows)], capture_output=True, text=True)
+            if out.returncode:
+                print(out.stderr, file=sys.stderr)
+                return out.returncode
+            results.append(json.loads(out.stdout.strip().splitlines()[-1]))
     print(f"synthesis of one {w}x{h} 4:2:0 8-bit picture (16x16 field, t = 0.5)")
     for r in results:
         print(f"{r['mode']:<22} {r['seconds']:7.2f} s   peak RSS {r['peak_rss_mb']:8.1f} MB (before synthesis {r['rss_before_mb']:.1f})"
