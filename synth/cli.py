@@ -571,13 +571,17 @@ def study(
         f"{total} jobs: ran {outcome.ran} in {outcome.seconds:.1f} s on {outcome.executor}{rate}; "
         f"{outcome.skipped} already done; {len(outcome.failed)} failed"
     )
-    out_console = Console()
+    out_console = Console(width=None if sys.stdout.isatty() else 160)  # tables are not cut when piped
     for kind in dict.fromkeys(m["kind"] for m in tables.means):
         metrics = tables.metrics.get(kind, [])
-        table = Table(title=f"{kind}: mean over clips", title_justify="left")
-        for col in ["setting", "clips", *metrics]:
-            table.add_column(col, justify="left" if col == "setting" else "right")
-        for row in format_table([m for m in tables.means if m["kind"] == kind], ["setting", "clips", *metrics]):
+        shared = ", ".join(f"{k}={v}" for k, v in tables.fixed.get(kind, {}).items())
+        table = Table(title=f"{kind}: mean over clips", title_justify="left", caption=f"every job: {shared}" if shared else None, caption_justify="left")
+        from .study import get_kind
+
+        cols = ["setting", *get_kind(kind).group_by, "clips", *metrics]
+        for col in cols:
+            table.add_column(col, justify="left" if col in ("setting", *get_kind(kind).group_by) else "right")
+        for row in format_table([m for m in tables.means if m["kind"] == kind], cols):
             table.add_row(*row)
         out_console.print(table)
     for f in tables.failures:
