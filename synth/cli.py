@@ -172,6 +172,48 @@ def vectors(
 # =============================================================================================
 
 
+@app.command()
+def frame(
+    clip: Path = typer.Argument(..., help="Clip file (.y4m, or any video OpenCV decodes)."),
+    past: int = typer.Option(..., "--past", help="Picture number of the past reference."),
+    future: int = typer.Option(..., "--future", help="Picture number of the future reference."),
+    at: Optional[int] = typer.Option(None, "--at", help="Picture number to synthesise (its true picture is measured against)."),
+    t: Optional[float] = typer.Option(None, "--t", help="Fraction in (0, 1) from past to future, when no true picture exists."),
+    output: Path = typer.Option(..., "--output", "-o", help="Synthesised picture, 1-frame .y4m."),
+    field: Optional[Path] = typer.Option(None, "--field", help="Vector fields (.json/.npz) instead of estimating them."),
+    params: Optional[Path] = typer.Option(None, "--params", help="Synthesis parameter file (JSON)."),
+    maps: Optional[Path] = typer.Option(None, "--maps", help="Directory for PNG maps."),
+    method: Optional[str] = typer.Option(None, "--method", help="lmmse (default), distance_weighted or nearest."),
+    qp: int = typer.Option(27, "--qp", help="QP of the motion estimator when vectors are estimated."),
+    two_way: bool = typer.Option(False, "--two-way", help="Estimate vectors in both coding directions."),
+    as_json: bool = typer.Option(False, "--json", help="Print the summary as JSON."),
+) -> None:
+    """Synthesise one picture between two pictures of a clip from the vectors coded between them."""
+    from .frame_job import run_frame
+    from .params import SynthParams
+
+    p = SynthParams.load(params) if params is not None else None
+    summary = run_frame(
+        clip, past=past, future=future, at=at, t=t, output=output, field_path=field, params=p,
+        maps_dir=maps, qp=qp, two_way=two_way, method=method,
+    )  # fmt: skip
+    if as_json:
+        _print_json(summary)
+        return
+    target = f"picture {at}" if at is not None else f"t = {summary['t']:.4g}"
+    typer.echo(f"synthesised    {target} from pictures {past} and {future} ({summary['size']}, {summary['format']})")
+    typer.echo(f"vectors        {summary['vectors']}, {summary['fields']} field(s)")
+    typer.echo(f"estimator      {summary['method']}, K = {summary['candidates']}, mean confidence {summary['mean_confidence']:.3f}")
+    if summary["psnr"] is not None:
+        ps = summary["psnr"]
+        typer.echo("PSNR           " + "  ".join(f"{k} {v:.2f} dB" for k, v in ps.items()))
+        typer.echo(f"SSIM (Y)       {summary['ssim_y']:.4f}")
+    typer.echo(f"time           vectors {summary['vector_seconds']:.2f} s, synthesis {summary['synthesis_seconds']:.2f} s")
+    typer.echo(f"written        {summary['output']}")
+    for m in summary["maps"]:
+        typer.echo(f"map            {m}")
+
+
 # =============================================================================================
 # Encoder side: export, rd  (issue 5)
 # =============================================================================================

@@ -91,6 +91,26 @@ class PlaneSampler:
                 f"interpolation must be one of sixtap, {', '.join(INTERPOLATION_FLAGS)}, got {interpolation!r}"
             )
 
+    def sample_raw(self, map_x: np.ndarray, map_y: np.ndarray) -> np.ndarray:
+        """Samples at (map_x, map_y) (scaled by :attr:`scale`) in the sampler's internal units,
+        float32; a linear combination of them with coefficient sum ``total`` is brought back to
+        sample units by :meth:`finish`."""
+        out = cv2.remap(self._src, map_x, map_y, self._flag, borderMode=cv2.BORDER_REPLICATE)
+        return out.astype(np.float32, copy=False)
+
+    def finish(self, combined: np.ndarray, total) -> np.ndarray:
+        """Sample units of a linear combination of `sample_raw` results whose coefficients sum to `total`."""
+        if self.interpolation == "sixtap":
+            return (combined - np.float32(_OFFSET) * total) * np.float32(1.0 / self._unit)
+        return combined
+
+    def sample_xy(self, map_x: np.ndarray, map_y: np.ndarray) -> np.ndarray:
+        """Samples at (map_x, map_y) (float32, same 2-D shape), *already multiplied by* :attr:`scale`."""
+        out = cv2.remap(self._src, map_x, map_y, self._flag, borderMode=cv2.BORDER_REPLICATE)
+        if self.interpolation == "sixtap":
+            return (out.astype(np.float32) - np.float32(_OFFSET)) * np.float32(1.0 / self._unit)
+        return out
+
     def sample(self, positions: np.ndarray) -> np.ndarray:
         """Samples at ``positions`` (float32, shape (h, w, 2), x first) *already multiplied by*
         :attr:`scale`; float32 result in sample units."""

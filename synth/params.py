@@ -97,10 +97,10 @@ class SynthParams:
     reach: float = 48.0
     spatial_correlation: float = 0.7
     innovation_nugget: float = 0.1
-    reliability_scale: float = 16.0
+    reliability_scale: float = 48.0
     max_correlation: float = 0.99
     agreement_floor: float = 20.0
-    agreement_margin: int = 0
+    agreement_margin: int = 4
     loading: float = 0.01
     interpolation: str = "sixtap"
     weight_cell: int = 2

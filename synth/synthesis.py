@@ -125,6 +125,29 @@ def _both_directions(fields: list[VectorField]) -> bool:
     return len(signs) == 2
 
 
+class _InlineExecutor:
+    """The executor interface, running everything in the calling thread (workers=1)."""
+
+    class _Done:
+        def __init__(self, value):
+            self._value = value
+
+        def result(self):
+            return self._value
+
+    def submit(self, fn, *args):
+        return self._Done(fn(*args))
+
+    def map(self, fn, items):
+        return [fn(x) for x in items]
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        return False
+
+
 def _resample_axis(a: np.ndarray, axis: int, cell: int, sample: int) -> np.ndarray:
     """Cell-resolution values -> plane-resolution values along one axis (sizes in luma samples):
     repeat when the cell is larger than the plane's sample, average when smaller."""
@@ -195,6 +218,23 @@ class _Synthesiser:
         return rho
 
     # -- one band -------------------------------------------------------------------------------
+    def band_samples(self, y0: int, y1: int):
+        """`band`, with the planes rounded half up and clipped to integer samples (as
+        `Picture.from_float`)."""
+        planes, maps = self.band(y0, y1)
+        top = np.float32((1 << self.bit_depth) - 1)
+        dtype = np.uint8 if self.bit_depth <= 8 else np.uint16
+        out = []
+        for p in planes:
+            if not np.all(np.isfinite(p)):
+                raise ParameterError("the synthesis produced non-finite samples (please report this)")
+            p += np.float32(0.5)
+            np.floor(p, out=p)
+            np.maximum(p, np.float32(0), out=p)
+            np.minimum(p, top, out=p)
+            out.append(p.astype(dtype))
+        return out, maps
+
     def band(self, y0: int, y1: int):
         """Luma rows y0..y1 (y0 a multiple of BAND_ROWS); returns planes and maps of those rows
         (padded to whole groups)."""
@@ -260,26 +300,30 @@ class _Synthesiser:
             coef = coef.astype(np.float32)
         if conf is None:
             conf = np.zeros(coef.shape[1:], np.float32)
-        # which endpoints are usable (group centre moved by the displacement inside the picture)
+        # which endpoints are usable: the weight cell's centre moved by the displacement must stay
+        # within border_margin of the picture, else the observation takes the other side only
         m = np.float32(p.border_margin)
-        gcx, gcy = gxo + np.float32((g - 1) / 2), gyo + np.float32((g - 1) / 2)
+        hi_x, hi_y = np.float32(self.W - 1) + m, np.float32(self.H - 1) + m
 
         def outside(dx, dy):
-            x, y = gcx[None] + dx, gcy[None] + dy
-            return (x < -m) | (x > np.float32(self.W - 1) + m) | (y < -m) | (y > np.float32(self.H - 1) + m)
+            x = Xc[None] + dx[:, None, :]
+            y = Yc[None] + dy[:, None, :]
+            return (x < -m) | (x > hi_x) | (y < -m) | (y > hi_y)
 
         op, of = outside(col["dpx"], col["dpy"]), outside(col["dfx"], col["dfy"])
-        share = np.where(op & ~of, zero, np.where(of & ~op, np.float32(1), np.float32(0.5)))  # (K, G)
+        share = np.where(op & ~of, zero, np.where(of & ~op, np.float32(1), np.float32(0.5)))  # (K, M, G)
         hole = count == 0
         if hole.any():  # co-located average through slot 0 (zero displacement)
             coef[0][:, hole] = 1.0
-            share[0][hole] = 0.5
+            share[0][:, hole] = 0.5
             conf[:, hole] = 0
-        alpha = coef * share[:, None, :]
+        alpha = coef * share
         beta = coef - alpha
-        # cell layout (K, M, G) -> cell planes (K, Gr*n, Gx*n)
+        act_a = np.any(alpha != 0, axis=1)  # (K, G): slot used on the past side by the group
+        act_b = np.any(beta != 0, axis=1)
 
         def cells_to_plane(a):
+            """(..., M, G) cell values -> (..., Gr*n, Gx*n) cell planes."""
             lead = a.shape[:-2]
             a = a.reshape(lead + (n, n, Gr, Gx))
             a = np.moveaxis(a, (-4, -3), (-3, -1))  # (..., Gr, n_y, Gx, n_x)
@@ -288,11 +332,11 @@ class _Synthesiser:
         alpha_cells = cells_to_plane(alpha)
         beta_cells = cells_to_plane(beta)
         planes = []
-        for pi, (sp, sf) in enumerate(self.samplers):
+        for pi in range(len(self.samplers)):
             fy, fx = (1, 1) if pi == 0 else (self.fy, self.fx)
             A = _resample_axis(_resample_axis(alpha_cells, 1, c, fy), 2, c, fx)
             B = _resample_axis(_resample_axis(beta_cells, 1, c, fy), 2, c, fx)
-            planes.append(self._combine(pi, A, B, col, Gr, Gx, gy0 * g // fy, fy, fx))
+            planes.append(self._combine(pi, A, B, act_a, act_b, col, Gr, Gx, gy0 * g // fy, fy, fx))
         total = alpha_cells.sum(axis=0) + beta_cells.sum(axis=0)
         pw = np.where(total > 1e-6, alpha_cells.sum(axis=0) / np.where(total > 1e-6, total, 1), np.float32(0.5))
         up = lambda a: _resample_axis(_resample_axis(a, 0, c, 1), 1, c, 1)  # noqa: E731
@@ -303,34 +347,33 @@ class _Synthesiser:
         }
         return planes, maps
 
-    def _combine(self, pi, A, B, col, Gr, Gx, row0, fy, fx):
-        """sum_k A_k past(p + d_past_k) + B_k future(p + d_future_k) on plane pi."""
+    def _combine(self, pi, A, B, act_a, act_b, col, Gr, Gx, row0, fy, fx):
+        """sum_k A_k past(p + d_past_k) + B_k future(p + d_future_k) on plane pi.
+
+        A, B: (K, Pr, Pc) coefficients; act_a, act_b: (K, G) whether a group uses the slot.
+        """
         g = self.g
         sp, sf = self.samplers[pi]
         Pr, Pc = A.shape[1:]
-        scale = np.float32(sp.scale)
-        base = np.empty((Pr, Pc, 2), np.float32)
-        base[..., 0] = np.arange(Pc, dtype=np.float32)[None, :] * scale
-        base[..., 1] = (np.arange(Pr, dtype=np.float32)[:, None] + np.float32(row0)) * scale
         ry, rx = g // fy, g // fx
+        scale = np.float32(sp.scale)
+        base_x = np.broadcast_to(np.arange(Pc, dtype=np.float32) * scale, (Gr, ry, Pc))
+        base_y = np.broadcast_to(
+            ((np.arange(Pr, dtype=np.float32) + np.float32(row0)) * scale).reshape(Gr, ry, 1), (Gr, ry, Pc)
+        )
+        sx, sy = np.float32(scale / fx), np.float32(scale / fy)
         est = np.zeros((Pr, Pc), np.float32)
-        # every future displacement is the past one times kappa (same vector, other time span)
-        kappa = self.kappa
         for k in range(self.k):
-            a_k, b_k = A[k], B[k]
-            use_p, use_f = a_k.any(), b_k.any()
-            if not (use_p or use_f):
-                continue
-            d = np.empty((Gr, Gx, 2), np.float32)
-            d[..., 0] = col["dpx"][k].reshape(Gr, Gx) * np.float32(scale / fx)
-            d[..., 1] = col["dpy"][k].reshape(Gr, Gx) * np.float32(scale / fy)
-            pos_p = base + np.repeat(np.repeat(d, ry, axis=0), rx, axis=1)
-            if use_p:
-                cv2.accumulateProduct(sp.sample(pos_p), a_k, est)
-            if use_f:
-                pos_f = cv2.addWeighted(base, 1.0 - kappa, pos_p, kappa, 0.0)
-                cv2.accumulateProduct(sf.sample(pos_f), b_k, est)
-        return est
+            for coefs, active, dx, dy, sampler in ((A, act_a, "dpx", "dpy", sp), (B, act_b, "dfx", "dfy", sf)):
+                if not active[k].any():
+                    continue
+                # group displacement, repeated over the group's columns, broadcast over its rows
+                mx = base_x + np.repeat((col[dx][k] * sx).reshape(Gr, Gx), rx, axis=1)[:, None, :]
+                my = base_y + np.repeat((col[dy][k] * sy).reshape(Gr, Gx), rx, axis=1)[:, None, :]
+                obs = sampler.sample_raw(mx.reshape(Pr, Pc), my.reshape(Pr, Pc))
+                cv2.accumulateProduct(obs, coefs[k], est)
+        total = A.sum(axis=0) + B.sum(axis=0)
+        return sp.finish(est, total)
 
 
 def synthesise_with_maps(
@@ -418,19 +461,20 @@ def synthesise_with_maps(
         workers = min(4, os.cpu_count() or 1)
     if isinstance(workers, bool) or not isinstance(workers, int) or workers < 1:
         raise ParameterError(f"workers must be a positive integer, got {workers!r}")
-    with ThreadPoolExecutor(max_workers=workers) as pool:
+    with (ThreadPoolExecutor(max_workers=workers) if workers > 1 else _InlineExecutor()) as pool:
         eng = _Synthesiser(past, future, landed, params, k, (b_first // g, -(-b_last // g)), pool)
         starts = list(range((y0 // BAND_ROWS) * BAND_ROWS, y1, BAND_ROWS))
-        results = pool.map(lambda b0: (b0, eng.band(b0, min(H, b0 + BAND_ROWS))), starts)
+        results = pool.map(lambda b0: (b0, eng.band_samples(b0, min(H, b0 + BAND_ROWS))), starts)
         results = list(results)
     n_planes = len(past.planes)
+    dtype = past.y.dtype
     out = []
     for pi in range(n_planes):
         if pi == 0:
-            out.append(np.zeros((y1 - y0, W), np.float32))
+            out.append(np.zeros((y1 - y0, W), dtype))
         else:
             ch, cw = past.planes[pi].shape
-            out.append(np.zeros((-(-y1 // fy) - y0 // fy, cw), np.float32))
+            out.append(np.zeros((-(-y1 // fy) - y0 // fy, cw), dtype))
     maps = {name: np.zeros((y1 - y0, W), np.float32) for name in MAP_NAMES}
     for b0, (planes, bmaps) in results:
         b1 = min(H, b0 + BAND_ROWS)
@@ -444,7 +488,10 @@ def synthesise_with_maps(
             c0, c1 = s0 // fy, min(ch, -(-s1 // fy))
             cb0 = b0 // fy
             out[pi][c0 - y0 // fy : c1 - y0 // fy] = planes[pi][c0 - cb0 : c1 - cb0, :cw]
-    picture = Picture.from_float(out, chroma_format=past.chroma_format, bit_depth=past.bit_depth)
+    if past.chroma_format == "mono":
+        picture = Picture(out[0], None, None, "mono", past.bit_depth)
+    else:
+        picture = Picture(out[0], out[1], out[2], past.chroma_format, past.bit_depth)
     return SynthesisResult(picture=picture, maps=maps, rows=(y0, y1), landed=landed, params=params, info={"k": k})
 
 
