@@ -159,12 +159,13 @@ def test_parameter_errors_of_the_measurement():
         maker_by_name("magic")
 
 
-def test_export_with_the_estimator_names_the_fields_it_used(crop_clip, tmp_path):
+@pytest.mark.parametrize("maker", ["estimator", "obmc"])
+def test_export_with_vector_based_makers_names_the_fields_used(crop_clip, tmp_path, maker):
     out = tmp_path / "refs.y4m"
-    r = runner.invoke(app, ["export", str(crop_clip), "--gop", "8", "-o", str(out), "--qp", "32"])
+    r = runner.invoke(app, ["export", str(crop_clip), "--gop", "8", "-o", str(out), "--qp", "32", "--synthesiser", maker])
     assert r.exit_code == 0, r.output
     doc = json.loads((tmp_path / "refs.y4m.json").read_text())
-    assert doc["synthesiser"] == "estimator"
+    assert doc["synthesiser"] == maker
     first = doc["pictures"][0]
     assert first["fields"] and first["fields"][0]["coded_time"] == first["future"]
     assert first["fields"][0]["reference_time"] == first["past"] and first["fields"][0]["qp"] == 32
