@@ -265,7 +265,7 @@ def offsets(
     window: int = typer.Option(2, "--window", help="Search range in whole luma samples each way (quarter-pel steps)."),
     qp: int = typer.Option(27, "--qp", help="QP for lambda (and for estimated vectors)."),
     metric: str = typer.Option("satd", "--metric", help="Distortion: satd or sad."),
-    synthesiser: str = typer.Option("estimator", "--synthesiser", help="estimator (the product) or blend (control)."),
+    synthesiser: str = typer.Option("estimator", "--synthesiser", help="estimator (the product), blend (control) or a workbench predictor name."),
     prediction: Optional[Path] = typer.Option(None, "--prediction", help="Also write the corrected prediction (.y4m)."),
     as_json: bool = typer.Option(False, "--json", help="Print the statistics as JSON."),
 ) -> None:
@@ -313,7 +313,7 @@ def export(
     raw: bool = typer.Option(False, "--raw", help="Write raw planar samples (no header) instead of Y4M."),
     sidecar: Optional[Path] = typer.Option(None, "--sidecar", help="Sidecar JSON path (default: OUTPUT + .json)."),
     qp: int = typer.Option(27, "--qp", help="QP of the estimated vectors."),
-    synthesiser: str = typer.Option("estimator", "--synthesiser", help="estimator (the product) or blend (control)."),
+    synthesiser: str = typer.Option("estimator", "--synthesiser", help="estimator (the product), blend (control) or a workbench predictor name."),
 ) -> None:
     """Synthetic reference pictures for every non-anchor picture of a hierarchical GOP, in display order."""
     from synth.io import open_clip
@@ -344,11 +344,12 @@ def rd(
     gap: int = typer.Option(8, "--gap", help="Distance between the two references."),
     qps: str = typer.Option("22,27,32,37", "--qps", help="Comma-separated QPs (four or more)."),
     codec: str = typer.Option("h264", "--codec", help="h264 (x264) or hevc (x265)."),
-    synthesiser: str = typer.Option("estimator", "--synthesiser", help="estimator (the product) or blend (control)."),
+    synthesiser: str = typer.Option("estimator", "--synthesiser", help="estimator (the product), blend (control) or a workbench predictor name."),
     refs: str = typer.Option("decoded", "--refs", help="Make the synthetic picture from decoded or source references."),
     extra_qp: int = typer.Option(4, "--extra-qp", help="QP at which the extra reference picture is coded (bits not charged)."),
     preset: str = typer.Option("medium", "--preset", help="Encoder speed preset."),
     with_offsets: bool = typer.Option(False, "--offsets", help="Also run the offset search and measure its corrected picture."),
+    also: str = typer.Option("dis-medium", "--also", help="Other makers measured as the third reference (d), comma-separated; 'none' for none."),
     block: int = typer.Option(16, "--block", help="Offset block size (with --offsets)."),
     window: int = typer.Option(2, "--window", help="Offset search range in luma samples (with --offsets)."),
     limit: Optional[int] = typer.Option(None, "--limit", help="Only the first N target pictures per clip."),
@@ -367,7 +368,7 @@ def rd(
     settings = {
         "gap": gap, "qps": qp_list, "codec": codec, "synthesiser": synthesiser, "refs": refs,
         "extra_qp": extra_qp, "preset": preset, "offsets": {"block": block, "window": window} if with_offsets else None,
-        "limit": limit,
+        "also": also, "limit": limit,
     }
     results = []
     bar, update = _issue5_progress("rd")
@@ -377,7 +378,7 @@ def rd(
             results.append(
                 measure_rd(
                     path, gap=gap, qps=qp_list, codec=codec, synthesiser=synthesiser, refs=refs, extra_qp=extra_qp,
-                    preset=preset, offsets=with_offsets, block=block, window=window, limit=limit, name=str(path),
+                    preset=preset, offsets=with_offsets, block=block, window=window, also=also, limit=limit, name=str(path),
                     progress=update,
                 )
             )

@@ -29,6 +29,7 @@ def rd(
     block: int = 16,
     window: int = 2,
     only_extra: bool = True,
+    also: str | list[str] = "dis-medium",
     limit: int | None = None,
     name: str | None = None,
     progress: Callable[[int, int], None] | None = None,
@@ -47,6 +48,10 @@ def rd(
         How the synthetic picture is made (`synth.reference_makers`).
     offsets : bool
         Also run the offset search (`block`, `window`) and measure the corrected picture.
+    also : str or list of str
+        Further makers whose picture is measured as the third reference instead (configuration
+        ``real+<name>``, (d)); default optical-flow interpolation with OpenCV's DIS medium preset.
+        Comma-separated text, a list, or "" / "none" for none.
     name : str, optional
         Clip name in the rows (default: the file name).
 
@@ -62,6 +67,9 @@ def rd(
     """
     from synth.io import open_clip
 
+    if isinstance(also, str):
+        also = [] if also.strip().lower() in ("", "none") else [a.strip() for a in also.split(",") if a.strip()]
+    others = {n: maker_by_name(n) for n in also}
     reader = open_clip(clip_path)
     try:
         qp_list = parse_qps(qps, bit_depth=reader.info.bit_depth)
@@ -73,6 +81,7 @@ def rd(
             qps=qp_list,
             codec=codec,
             maker=maker_by_name(synthesiser),
+            others=others,
             refs=refs,
             extra_qp=int(extra_qp),
             preset=preset,

@@ -115,13 +115,14 @@ def test_rd_command_writes_json_csv_and_plots(crop_clip, tmp_path):
         ["rd", str(crop_clip), "--gap", "8", "--qps", "24,30,36,42", "--synthesiser", "blend", "--limit", "1", "--report", str(rep)],
     )
     assert r.exit_code == 0, r.output
-    assert "(b) + synthetic reference" in r.output
+    assert "(b) + synthetic reference" in r.output and "(d) + optical-flow dis-medium reference" in r.output
     doc = json.loads((rep / "rd.json").read_text())
     assert doc["settings"]["qps"] == [24, 30, 36, 42]
     assert "real+synthetic" in doc["clips"][0]["bd"]
     with open(rep / "rd.csv") as fh:
         rows = list(csv.DictReader(fh))
-    assert len(rows) == 3 * 4 and {r["config"] for r in rows} == {"real", "real+synthetic", "synthetic"}
+    # (d): optical-flow interpolation (the workbench's DIS medium predictor) as the third reference
+    assert len(rows) == 4 * 4 and {r["config"] for r in rows} == {"real", "real+synthetic", "synthetic", "real+dis-medium"}
     img = mpimg.imread(rep / "rd_crop.png")
     assert img.shape[0] > 100 and img.shape[1] > 100
 
@@ -158,21 +159,14 @@ def test_parameter_errors_of_the_measurement():
         maker_by_name("magic")
 
 
-def test_export_with_the_estimator_names_the_fields_it_used(crop_clip, tmp_path):
+@pytest.mark.parametrize("maker", ["estimator", "obmc"])
+def test_export_with_vector_based_makers_names_the_fields_used(crop_clip, tmp_path, maker):
     out = tmp_path / "refs.y4m"
-    r = runner.invoke(app, ["export", str(crop_clip), "--gop", "8", "-o", str(out), "--qp", "32"])
+    r = runner.invoke(app, ["export", str(crop_clip), "--gop", "8", "-o", str(out), "--qp", "32", "--synthesiser", maker])
     assert r.exit_code == 0, r.output
     doc = json.loads((tmp_path / "refs.y4m.json").read_text())
-    assert doc["synthesiser"] == "estimator"
+    assert doc["synthesiser"] == maker
     first = doc["pictures"][0]
     assert first["fields"] and first["fields"][0]["coded_time"] == first["future"]
     assert first["fields"][0]["reference_time"] == first["past"] and first["fields"][0]["qp"] == 32
 
-
-def test_rd_is_available_as_a_study_job_kind(crop_clip):
-    from synth.study.kinds import get_kind
-
-    kind = get_kind("rd")
-    assert kind.unavailable_reason() is None
-    rows = kind.run(crop_clip, kind.resolve({"gap": 8, "qps": "24,30,36,42", "synthesiser": "blend", "limit": 1}))
-    assert len(rows) == 3 * 4 and all("bits" in r and "psnr_y" in r for r in rows)
