@@ -117,8 +117,8 @@ class RunResult:
     group_key: str = "gap"
 
     def to_rows(self) -> list[dict]:
-        """The per-picture records (copies), e.g. for `synth study`."""
-        return [dict(r) for r in self.records]
+        """The per-picture records without timings (deterministic), e.g. for `synth study`."""
+        return [{k: v for k, v in r.items() if k != "seconds"} for r in self.records]
 
     def summary(self) -> list[dict]:
         """Per-method means per group and over all pictures (see `summarise`)."""
