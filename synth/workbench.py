@@ -101,7 +101,8 @@ class RunResult:
         One per target picture and method: tags, target/past/future/t, predictor, vector_qp,
         method, the metrics of `METRIC_KEYS` (None for an infinite PSNR) and seconds.
     pairs : list of dict
-        One per reference pair and vector QP: past, future, vector_qp, vector_seconds, blocks.
+        One per reference pair and vector QP: past, future, vector_qp, vector_seconds, blocks,
+        fields (coded_time, reference_time and blocks of each field).
     highlights : list of Highlight
     group_key : str
         Tag the summary groups by ('gap' or 'layer').
@@ -327,6 +328,10 @@ def run_jobs(
                             "vector_qp": qp,
                             "vector_seconds": time.perf_counter() - start,
                             "blocks": int(sum(len(f) for f in fl)),
+                            "fields": [
+                                {"coded_time": f.coded_time, "reference_time": f.reference_time, "blocks": len(f)}
+                                for f in fl
+                            ],
                         }
                     )
                 fields_by_qp[qp] = field_cache[key]

@@ -34,10 +34,16 @@ def test_compare_writes_report_and_table(small_y4m, tmp_path):
 
 def test_gop_export_writes_a_clip(small_y4m, tmp_path):
     out = tmp_path / "synthetic.y4m"
-    proc = _synth("gop", small_y4m, "--size", 4, "-p", "average", "--export", out)
+    proc = _synth("gop", small_y4m, "--size", 4, "-p", "average,obmc", "--export", out, "--export-method", "obmc")
     assert proc.returncode == 0, proc.stderr
-    assert "layer" in proc.stdout and f"exported 9 pictures (average) to {out}" in proc.stdout
-    assert len(open_clip(out)) == 9
+    assert "layer" in proc.stdout and f"exported 6 synthetic pictures (obmc) to {out}" in proc.stdout
+    assert len(open_clip(out)) == 6
+    # Sidecar in the layout of `synth export` (synth.export).
+    doc = json.loads(out.with_name(out.name + ".json").read_text())
+    assert doc["format"] == "synth-reference-sidecar" and doc["gop"] == 4 and doc["synthesiser"] == "obmc"
+    assert [p["time"] for p in doc["pictures"]] == [1, 2, 3, 5, 6, 7]
+    assert [p["layer"] for p in doc["pictures"]] == [2, 1, 2, 2, 1, 2]
+    assert doc["qp"] == 27 and [f["coded_time"] for f in doc["pictures"][0]["fields"]] == [2.0, 0.0]
 
 
 @pytest.mark.parametrize(
