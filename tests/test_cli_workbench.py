@@ -71,3 +71,22 @@ def test_errors_are_one_line(small_y4m, tmp_path, monkeypatch, args, message):
 def test_error_in_a_child_process_is_one_line(tmp_path):
     proc = _synth("gop", tmp_path / "none.y4m", "--size", "8")
     assert proc.returncode == 2 and proc.stderr.strip() == f"synth: error: {tmp_path / 'none.y4m'}: no such file"
+
+
+def test_demo_plan_and_a_reduced_demo_run(tmp_path):
+    from synth.demo import DEMO_CLIPS, demo_plan, run_demo
+
+    plan = demo_plan()
+    assert [(s.kind, s.clip) for s in plan][:3] == [("gop", c) for c in DEMO_CLIPS]
+    assert plan[-1].options["vector_qps"] == [22, 32, 42]
+    # The same machinery on a small part of the plan: one GOP run and one comparison, few pictures.
+    small = [plan[0], plan[3]]
+    small[0].options.update(size=4, limit=5)
+    small[1].options.update(gaps=[2], limit=5)
+    seen = []
+    results, paths = run_demo(small, out=tmp_path / "demo", predictors="average,dis-fast", progress=lambda d, t, label: seen.append((d, t)))
+    assert [r.kind for r in results] == ["gop", "compare"]
+    assert seen[-1] == (3 + 2, 3 + 2)  # one progress count over both runs
+    doc = json.loads(paths["json"].read_text())
+    assert doc["overview"]["columns"] == ["GOP 4", "gap 2"]
+    assert paths["html"].exists() and paths["csv"].exists()
