@@ -1,4 +1,4 @@
-"""File input and output for synth: clips, pictures and (later) vector fields.
+"""File input and output for synth: clips, pictures and vector fields.
 
 This package lives in the repository's ``io/`` folder and installs as ``synth.io`` (a top-level
 package named ``io`` would shadow Python's standard library). It knows files and bytes, nothing
@@ -11,6 +11,9 @@ Formats (chosen from the file name by `open_clip` and `write_clip`):
 - ``*.png`` or a pattern such as ``frame_%03d.png``: image sequence, PNG 8/16-bit and other stills,
   BT.601 or BT.709 conversion (`ImageSequenceReader`, `write_images`);
 - anything else: any video OpenCV decodes, read only, 4:2:0 8-bit (`VideoReader`).
+
+Vector fields: ``*.json`` (versioned, readable) and ``*.npz`` through `write_fields` / `read_fields`,
+CSV export with `fields_to_csv` (see :mod:`synth.io.fields`).
 """
 
 from __future__ import annotations

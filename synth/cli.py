@@ -130,6 +130,43 @@ def info(
 # =============================================================================================
 
 
+@app.command()
+def vectors(
+    clip: Path = typer.Argument(..., help="Clip file (.y4m, or any video OpenCV decodes)."),
+    coded: int = typer.Option(..., "--coded", help="Picture number whose blocks get vectors."),
+    ref: int = typer.Option(..., "--ref", help="Picture number the vectors point to."),
+    output: Path = typer.Option(..., "--output", "-o", help="Field file: .json, .npz, or .csv (export)."),
+    search_range: int = typer.Option(64, "--range", help="Largest vector component, luma samples."),
+    blocks: str = typer.Option("64,32,16,8", "--blocks", help="Block sizes the quadtree may use."),
+    qp: int = typer.Option(27, "--qp", help="QP setting the rate weight (0..51); higher = cheaper, smoother field."),
+    overlay: Optional[Path] = typer.Option(None, "--overlay", help="PNG with block outlines and arrows."),
+    as_json: bool = typer.Option(False, "--json", help="Print the summary as JSON."),
+) -> None:
+    """Estimate codec-like block vectors from one picture of a clip to another."""
+    from .vector_job import parse_block_sizes, run_vectors
+
+    summary = run_vectors(
+        clip, coded=coded, reference=ref, output=output, qp=qp, search_range=search_range,
+        block_sizes=parse_block_sizes(blocks), overlay=overlay,
+    )  # fmt: skip
+    if as_json:
+        _print_json(summary)
+        return
+    sizes = ", ".join(f"{k}: {v}" for k, v in summary["blocks_by_size"].items())
+    typer.echo(f"field          picture {coded} -> picture {ref}, written to {summary['output']}")
+    typer.echo(f"blocks         {summary['blocks']} ({sizes})")
+    typer.echo(f"intra share    {100 * summary['intra_share']:.1f} % of the area")
+    typer.echo(f"mean |v|       {summary['mean_vector_length']:.2f} luma samples")
+    typer.echo(f"vector bits    {summary['vector_bits']}")
+    typer.echo(
+        f"prediction     {summary['mc_psnr_y']:.2f} dB luma PSNR with the field, "
+        f"{summary['zero_motion_psnr_y']:.2f} dB with zero motion"
+    )
+    typer.echo(f"time           {summary['seconds']:.2f} s (QP {qp}, range +-{search_range})")
+    if summary["overlay"]:
+        typer.echo(f"overlay        {summary['overlay']}")
+
+
 # =============================================================================================
 # Synthesis: frame, calibrate  (issue 4)
 # =============================================================================================
@@ -161,18 +198,17 @@ def _issue5_progress(description: str):
     return bar, update
 
 
-def _issue5_maker(name: str, field_path: Optional[Path] = None):
+def _issue5_maker(name: str, field_path: Optional[Path] = None, size: Optional[tuple[int, int]] = None):
     from .reference_makers import maker_by_name
 
     if field_path is None:
         return maker_by_name(name)
     if name != "estimator":
         raise SynthError(f"--field needs --synthesiser estimator, got {name!r}")
-    try:
-        from synth.io import read_fields  # type: ignore[attr-defined]
-    except ImportError:
-        raise SynthError("--field: reading vector-field files needs synth.io.read_fields, which this build lacks") from None
-    return maker_by_name(name, fields=list(read_fields(field_path)))
+    from synth.io.fields import read_fields
+
+    width, height = size if size is not None else (None, None)
+    return maker_by_name(name, fields=read_fields(field_path, width=width, height=height))
 
 
 @app.command()
@@ -192,26 +228,24 @@ def offsets(
     as_json: bool = typer.Option(False, "--json", help="Print the statistics as JSON."),
 ) -> None:
     """Corrective block offsets of a target picture on its synthetic reference, and their bit cost."""
-    from synth.io import atomic_write_text, open_clip, write_y4m
+    from synth.io import open_clip, write_y4m
+    from synth.io.offsets_file import write_offsets
 
-    from .offsets import json_safe, offsets_document, refine_with_offsets
+    from .offsets import json_safe, refine_with_offsets
 
-    maker = _issue5_maker(synthesiser, field)
     reader = open_clip(clip)
     try:
         n = len(reader)
         for name, v in (("--past", past), ("--future", future), ("--at", at)):
             if not 0 <= v < n:
                 raise SynthError(f"{name} must be a picture number in 0..{n - 1}, got {v}")
+        maker = _issue5_maker(synthesiser, field, size=(reader.info.width, reader.info.height))
         state = maker.prepare(reader.read(past), reader.read(future), past_time=past, future_time=future, qp=qp)
         synthetic = maker.make(state, time=at)
         target = reader.read(at)
         search = refine_with_offsets(target, synthetic, block=block, window=window, metric=metric, qp=qp, time=at)
-        doc = offsets_document(
-            search,
-            extra={"source": str(clip), "past": past, "future": future, "synthesiser": maker.name, "fields": maker.describe(state)},
-        )
-        atomic_write_text(output, json.dumps(doc, indent=2) + "\n")
+        extra = {"source": str(clip), "past": past, "future": future, "synthesiser": maker.name, "fields": maker.describe(state)}
+        write_offsets(output, search, extra=extra)
         if prediction is not None:
             write_y4m(prediction, [search.prediction], reader.info)
     finally:
@@ -280,16 +314,16 @@ def rd(
     as_json: bool = typer.Option(False, "--json", help="Print the summary as JSON instead of a table."),
 ) -> None:
     """Bits a synthetic third reference saves a real encoder: BD-rate against the two real references."""
-    from synth.io import open_clip
-
     from .offsets import json_safe
-    from .rdmeasure import measure_clip, parse_qps, summarise_clips
+    from .rd import rd as measure_rd
+    from .rdmeasure import parse_qps, summarise_clips
     from .rdreport import format_rd_table, write_rd_report
+    from .reference_makers import maker_by_name
 
-    maker = _issue5_maker(synthesiser)
+    maker_by_name(synthesiser)  # fail early when the synthesiser is not available
     qp_list = parse_qps(qps)
     settings = {
-        "gap": gap, "qps": qp_list, "codec": codec, "synthesiser": maker.name, "refs": refs,
+        "gap": gap, "qps": qp_list, "codec": codec, "synthesiser": synthesiser, "refs": refs,
         "extra_qp": extra_qp, "preset": preset, "offsets": {"block": block, "window": window} if with_offsets else None,
         "limit": limit,
     }
@@ -297,19 +331,14 @@ def rd(
     bar, update = _issue5_progress("rd")
     with bar:
         for path in clips:
-            reader = open_clip(path)
-            try:
-                bar.console.print(f"{path}: {len(reader)} pictures", highlight=False)
-                results.append(
-                    measure_clip(
-                        reader.read, len(reader), clip=str(path), gap=gap, qps=qp_list, codec=codec, maker=maker,
-                        refs=refs, extra_qp=extra_qp, preset=preset,
-                        offsets={"block": block, "window": window} if with_offsets else None,
-                        limit=limit, progress=update,
-                    )
+            bar.console.print(f"measuring {path}", highlight=False)
+            results.append(
+                measure_rd(
+                    path, gap=gap, qps=qp_list, codec=codec, synthesiser=synthesiser, refs=refs, extra_qp=extra_qp,
+                    preset=preset, offsets=with_offsets, block=block, window=window, limit=limit, name=str(path),
+                    progress=update,
                 )
-            finally:
-                reader.close()
+            )
     summary = summarise_clips(results)
     if report is not None:
         write_rd_report(report, results, summary, settings)
@@ -545,13 +574,17 @@ def study(
         f"{total} jobs: ran {outcome.ran} in {outcome.seconds:.1f} s on {outcome.executor}{rate}; "
         f"{outcome.skipped} already done; {len(outcome.failed)} failed"
     )
-    out_console = Console()
+    out_console = Console(width=None if sys.stdout.isatty() else 160)  # tables are not cut when piped
     for kind in dict.fromkeys(m["kind"] for m in tables.means):
         metrics = tables.metrics.get(kind, [])
-        table = Table(title=f"{kind}: mean over clips", title_justify="left")
-        for col in ["setting", "clips", *metrics]:
-            table.add_column(col, justify="left" if col == "setting" else "right")
-        for row in format_table([m for m in tables.means if m["kind"] == kind], ["setting", "clips", *metrics]):
+        shared = ", ".join(f"{k}={v}" for k, v in tables.fixed.get(kind, {}).items())
+        table = Table(title=f"{kind}: mean over clips", title_justify="left", caption=f"every job: {shared}" if shared else None, caption_justify="left")
+        from .study import get_kind
+
+        cols = ["setting", *get_kind(kind).group_by, "clips", *metrics]
+        for col in cols:
+            table.add_column(col, justify="left" if col in ("setting", *get_kind(kind).group_by) else "right")
+        for row in format_table([m for m in tables.means if m["kind"] == kind], cols):
             table.add_row(*row)
         out_console.print(table)
     for f in tables.failures:

@@ -73,6 +73,7 @@ __all__ = [
     "distance_reliability",
     "innovation_correlation",
     "lmmse_weights_soa",
+    "lmmse_weights_structured",
 ]
 
 #: Pixels per tile in the batched solver (entries of a tile stay in the CPU caches).
@@ -245,12 +246,15 @@ def endpoint_agreement_stats(past_patches: np.ndarray, future_patches: np.ndarra
     -------
     ndarray of float32, shape (n,), in [0, 1]
     """
-    a = past_patches.astype(np.float64)
-    b = future_patches.astype(np.float64)
-    mse = np.mean((a - b) ** 2, axis=1)
-    va = np.var(a, axis=1)
-    vb = np.var(b, axis=1)
-    rho = 1.0 - mse / (va + vb + float(floor))
+    a = past_patches.astype(np.float32)
+    b = future_patches.astype(np.float32)
+    m = np.float32(1.0 / a.shape[1])
+    diff = a - b
+    mse = np.einsum("ij,ij->i", diff, diff) * m
+    ma, mb = a.sum(axis=1) * m, b.sum(axis=1) * m
+    va = np.maximum(np.einsum("ij,ij->i", a, a) * m - ma * ma, 0)
+    vb = np.maximum(np.einsum("ij,ij->i", b, b) * m - mb * mb, 0)
+    rho = 1.0 - mse / (va + vb + np.float32(floor))
     return np.clip(rho, 0.0, 1.0).astype(np.float32)
 
 
@@ -274,25 +278,31 @@ def innovation_correlation(dpx, dpy, dfx, dfy, valid, *, spatial_correlation: fl
 
     Parameters
     ----------
-    dpx, dpy, dfx, dfy : ndarray, shape (G, K)
-        Candidates' displacements to their past and future endpoints (luma samples).
-    valid : ndarray of bool, shape (G, K)
+    dpx, dpy, dfx, dfy : ndarray, shape (K, G)
+        Candidates' displacements to their past and future endpoints (luma samples), for G groups.
+    valid : ndarray of bool, shape (K, G)
         Slots holding a candidate; invalid slots get an identity row and column.
 
     Returns
     -------
-    ndarray of float32, shape (G, K, K)
+    ndarray of float32, shape (K, K, G)
     """
-    dp = np.hypot(dpx[:, :, None] - dpx[:, None, :], dpy[:, :, None] - dpy[:, None, :])
-    df = np.hypot(dfx[:, :, None] - dfx[:, None, :], dfy[:, :, None] - dfy[:, None, :])
-    delta = 0.5 * (dp + df)
-    C = (1.0 - nugget) * np.power(np.float32(spatial_correlation), delta.astype(np.float32))
-    K = dpx.shape[1]
-    eye = np.eye(K, dtype=np.float32)
-    C = C + np.float32(nugget) * eye
-    pair_valid = valid[:, :, None] & valid[:, None, :]
-    C = np.where(pair_valid, C, eye)
-    return C.astype(np.float32)
+    dpx, dpy, dfx, dfy = (np.asarray(v, np.float32) for v in (dpx, dpy, dfx, dfy))
+    K, G = dpx.shape
+    ex = dpx[:, None, :] - dpx[None, :, :]
+    ey = dpy[:, None, :] - dpy[None, :, :]
+    delta = np.sqrt(ex * ex + ey * ey)
+    ex = dfx[:, None, :] - dfx[None, :, :]
+    ey = dfy[:, None, :] - dfy[None, :, :]
+    delta += np.sqrt(ex * ex + ey * ey)
+    # a ** (delta / 2) = exp(ln(a) / 2 * delta)
+    C = np.exp(delta * np.float32(0.5 * np.log(spatial_correlation)))
+    C *= np.float32(1.0 - nugget)
+    eye = np.eye(K, dtype=bool)
+    C[eye] = 1.0
+    pair_valid = valid[:, None, :] & valid[None, :, :]
+    C = np.where(pair_valid | eye[:, :, None], C, np.float32(0))
+    return C.astype(np.float32, copy=False)
 
 
 def lmmse_weights_soa(r: np.ndarray, C: np.ndarray, *, loading: float) -> tuple[np.ndarray, np.ndarray]:
@@ -329,3 +339,48 @@ def lmmse_weights_soa(r: np.ndarray, C: np.ndarray, *, loading: float) -> tuple[
     for i in range(K):
         conf += r[i] * w[i]
     return w, np.clip(conf, 0.0, 1.0)
+
+
+def lmmse_weights_structured(r: np.ndarray, C: np.ndarray, *, loading: float) -> tuple[np.ndarray, np.ndarray]:
+    """LMMSE weights when the innovation correlation ``C`` is shared by several pixels.
+
+    ``R = r r^T + S C S`` with ``S = diag(sqrt(1 - r_i^2))``. By the Sherman-Morrison formula
+    (J. Sherman and W. J. Morrison, Ann. Math. Statist. 21(1), 1950, doi:10.1214/aoms/1177729893)
+
+        R^{-1} r = u / (1 + r^T u),   u = S^{-1} C^{-1} S^{-1} r,
+
+    so one Cholesky factorisation of ``C`` per group serves all its pixels; per pixel only two
+    triangular solves remain. ``loading`` is added to the diagonal of ``C`` (relative to its mean
+    diagonal, which is 1): in ``R`` this is loading proportional to ``1 - r_i^2``.
+
+    Parameters
+    ----------
+    r : ndarray of float32, shape (K, M, G)
+        Correlations of the candidates of M pixels in each of G groups (0 for empty slots).
+    C : ndarray of float32, shape (K, K, G)
+        Innovation correlation per group (identity rows/columns for empty slots).
+    loading : float
+
+    Returns
+    -------
+    w : ndarray of float32, shape (K, M, G)
+    confidence : ndarray of float32, shape (M, G)
+        ``r^T w = r^T u / (1 + r^T u)``.
+    """
+    s = np.sqrt(np.maximum(np.float32(1) - r * r, np.float32(1e-6)))
+    z = r / s
+    y, _ = cholesky_solve_soa(C, z, loading=loading)
+    u = y / s
+    ru = _dot_k(r, u)
+    inv = np.float32(1) / (np.float32(1) + np.maximum(ru, np.float32(0)))
+    w = u * inv[None]
+    conf = np.clip(ru * inv, 0.0, 1.0).astype(np.float32)
+    return w.astype(np.float32, copy=False), conf
+
+
+def _dot_k(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """sum over the first axis of a * b, in slot order (deterministic)."""
+    acc = a[0] * b[0]
+    for k in range(1, a.shape[0]):
+        acc += a[k] * b[k]
+    return acc

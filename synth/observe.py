@@ -1,9 +1,19 @@
 """Sampling the references: observations along candidate trajectories and endpoint patches.
 
-Sub-sample positions are interpolated with OpenCV's ``remap``: 'bicubic' is the cubic convolution
-kernel with a = -0.75 (R. G. Keys, "Cubic convolution interpolation for digital image processing",
-IEEE TASSP 29(6), 1981, doi:10.1109/TASSP.1981.1163711, with OpenCV's coefficient), 'bilinear' the
-2x2 linear kernel; positions are quantised to 1/32 sample by OpenCV. Outside the picture the
+Sub-sample positions are interpolated by one of three named filters:
+
+- 'sixtap' (default): the reference is first upsampled by two in each direction, the half-sample
+  positions computed with the six-tap filter (1, -5, 20, 20, -5, 1) / 32 of ITU-T H.264 clause
+  8.4.2.2.1 (separably, so the centre half-sample position is filtered both ways), then positions
+  in between are interpolated bilinearly on the upsampled grid (as H.264 derives quarter-sample
+  luma positions from integer and half-sample ones). The upsampled plane is stored as uint16 with
+  2**(14 - bit_depth) fractional steps per sample and an offset for the filter's undershoot.
+- 'bicubic': cubic convolution with a = -0.75 (R. G. Keys, "Cubic convolution interpolation for
+  digital image processing", IEEE TASSP 29(6), 1981, doi:10.1109/TASSP.1981.1163711, with OpenCV's
+  coefficient), on float32 samples.
+- 'bilinear': the 2x2 linear kernel on float32 samples.
+
+All use OpenCV's ``remap`` (positions quantised to 1/32 of its grid). Outside the picture the
 nearest edge sample is used (replicated border, as in motion-compensated prediction in ITU-T H.264
 and H.265; common practice).
 """
@@ -16,17 +26,78 @@ import numpy as np
 from .errors import ParameterError
 from .project import LandedVectors
 
-__all__ = ["remap_plane", "endpoint_patches", "INTERPOLATION_FLAGS"]
+__all__ = ["PlaneSampler", "remap_plane", "endpoint_patches", "INTERPOLATION_FLAGS", "SIXTAP"]
 
 INTERPOLATION_FLAGS = {"bicubic": cv2.INTER_CUBIC, "bilinear": cv2.INTER_LINEAR}
+#: Half-sample filter of ITU-T H.264 clause 8.4.2.2.1.
+SIXTAP = np.array([1, -5, 20, 20, -5, 1], np.float32) / 32.0
+_OFFSET = 16384.0
 
 
-def remap_plane(plane: np.ndarray, map_x: np.ndarray, map_y: np.ndarray, *, interpolation: str) -> np.ndarray:
-    """Sample a float32 plane at positions (map_x, map_y); result float32 of the maps' shape."""
+def remap_plane(plane: np.ndarray, map_x: np.ndarray, map_y: np.ndarray | None, *, interpolation: str) -> np.ndarray:
+    """Sample a float32 plane at positions (map_x, map_y) (or a 2-channel map_x); float32 result."""
     flag = INTERPOLATION_FLAGS.get(interpolation)
     if flag is None:
         raise ParameterError(f"interpolation must be one of {', '.join(INTERPOLATION_FLAGS)}, got {interpolation!r}")
     return cv2.remap(plane, map_x, map_y, flag, borderMode=cv2.BORDER_REPLICATE)
+
+
+def _halfpel_upsample(plane: np.ndarray) -> np.ndarray:
+    """Plane upsampled by two: even positions are the samples, odd ones six-tap half-samples."""
+    h, w = plane.shape
+    kernel = SIXTAP
+    # value at x + 1/2 uses samples x-2 .. x+3: anchor 2 of the 6 taps
+    hor = cv2.filter2D(plane, cv2.CV_32F, kernel[None, :], anchor=(2, 0), borderType=cv2.BORDER_REPLICATE)
+    ver = cv2.filter2D(plane, cv2.CV_32F, kernel[:, None], anchor=(0, 2), borderType=cv2.BORDER_REPLICATE)
+    dia = cv2.filter2D(hor, cv2.CV_32F, kernel[:, None], anchor=(0, 2), borderType=cv2.BORDER_REPLICATE)
+    up = np.empty((2 * h, 2 * w), np.float32)
+    up[0::2, 0::2] = plane
+    up[0::2, 1::2] = hor
+    up[1::2, 0::2] = ver
+    up[1::2, 1::2] = dia
+    return up
+
+
+class PlaneSampler:
+    """Samples one reference plane at arbitrary positions with a named filter.
+
+    Parameters
+    ----------
+    plane : ndarray, 2-D
+        Integer or float samples.
+    interpolation : {'sixtap', 'bicubic', 'bilinear'}
+    bit_depth : int
+    """
+
+    def __init__(self, plane: np.ndarray, *, interpolation: str, bit_depth: int):
+        self.interpolation = interpolation
+        f = plane.astype(np.float32)
+        if interpolation == "sixtap":
+            self.scale = 2.0
+            self._unit = float(1 << max(0, 14 - int(bit_depth)))
+            up = _halfpel_upsample(f)
+            up *= np.float32(self._unit)
+            up += np.float32(_OFFSET + 0.5)  # + 0.5: rounds half up when truncated below
+            np.maximum(up, np.float32(0), out=up)
+            np.minimum(up, np.float32(65535), out=up)
+            self._src = up.astype(np.uint16)
+            self._flag = cv2.INTER_LINEAR
+        elif interpolation in INTERPOLATION_FLAGS:
+            self.scale = 1.0
+            self._src = f
+            self._flag = INTERPOLATION_FLAGS[interpolation]
+        else:
+            raise ParameterError(
+                f"interpolation must be one of sixtap, {', '.join(INTERPOLATION_FLAGS)}, got {interpolation!r}"
+            )
+
+    def sample(self, positions: np.ndarray) -> np.ndarray:
+        """Samples at ``positions`` (float32, shape (h, w, 2), x first) *already multiplied by*
+        :attr:`scale`; float32 result in sample units."""
+        out = cv2.remap(self._src, positions, None, self._flag, borderMode=cv2.BORDER_REPLICATE)
+        if self.interpolation == "sixtap":
+            return (out.astype(np.float32) - np.float32(_OFFSET)) * np.float32(1.0 / self._unit)
+        return out
 
 
 def endpoint_patches(
@@ -35,8 +106,11 @@ def endpoint_patches(
     """Yield ``(index, past_patches, future_patches)`` per block size, patches of shape (n, m).
 
     The patch of a landed vector is its block's footprint at the target time (grown by ``margin``
-    luma samples on each side), moved to the past and to the future endpoint.
+    luma samples on each side), moved to the past and to the future endpoint; sampled from float32
+    planes with 'bicubic' or 'bilinear' (the 'sixtap' filter is used as 'bicubic' here).
     """
+    if interpolation not in INTERPOLATION_FLAGS:
+        interpolation = "bicubic"
     sizes = np.stack([landed.bw, landed.bh], axis=1)
     if len(sizes) == 0:
         return

@@ -32,7 +32,7 @@ PARAMS_VERSION = 1
 #: Ways of combining the candidates of a pixel (same candidate pool for all three).
 METHODS = ("lmmse", "distance_weighted", "nearest")
 #: Sub-sample interpolation filters for the observations (OpenCV remap kernels).
-INTERPOLATIONS = ("bicubic", "bilinear")
+INTERPOLATIONS = ("sixtap", "bicubic", "bilinear")
 
 
 @dataclass(frozen=True)
@@ -73,9 +73,13 @@ class SynthParams:
         The endpoint patches are the block's footprint grown by this many luma samples on each side.
     loading : float
         Diagonal loading added to R (relative; the diagonal of R is 1) in the direct solver.
-    interpolation : {'bicubic', 'bilinear'}
-        Sub-sample interpolation of the observations (OpenCV ``remap``: bicubic is the a = -0.75
-        cubic convolution kernel, bilinear the 2x2 linear one).
+    interpolation : {'sixtap', 'bicubic', 'bilinear'}
+        Sub-sample interpolation of the observations (see `synth.observe`: 'sixtap' is the H.264
+        half-sample filter followed by bilinear interpolation, 'bicubic' the a = -0.75 cubic
+        convolution kernel, 'bilinear' the 2x2 linear one).
+    weight_cell : int
+        Weights are computed per square cell of this many luma samples (1: per pixel); must divide
+        ``group_size``.
     idw_power : float
         Exponent of the inverse-distance weights of the 'distance_weighted' control.
     disagreement_threshold : float
@@ -89,16 +93,17 @@ class SynthParams:
     method: str = "lmmse"
     candidates: int = 8
     candidates_both_directions: int = 12
-    group_size: int = 4
+    group_size: int = 8
     reach: float = 48.0
-    spatial_correlation: float = 0.95
+    spatial_correlation: float = 0.7
     innovation_nugget: float = 0.1
     reliability_scale: float = 16.0
     max_correlation: float = 0.99
     agreement_floor: float = 20.0
     agreement_margin: int = 0
     loading: float = 0.01
-    interpolation: str = "bicubic"
+    interpolation: str = "sixtap"
+    weight_cell: int = 2
     idw_power: float = 2.0
     disagreement_threshold: float = 0.0
     border_margin: float = 1.0
@@ -132,6 +137,10 @@ class SynthParams:
         integer("agreement_margin", 0, 16)
         if self.group_size not in (1, 2, 4, 8) or isinstance(self.group_size, bool):
             raise ParameterError(f"parameter group_size must be 1, 2, 4 or 8, got {self.group_size!r}")
+        if self.weight_cell not in (1, 2, 4, 8) or isinstance(self.weight_cell, bool) or self.group_size % self.weight_cell:
+            raise ParameterError(
+                f"parameter weight_cell must be 1, 2, 4 or 8 and divide group_size ({self.group_size}), got {self.weight_cell!r}"
+            )
         rules = {
             "reach": (lambda v: 0 < v <= 1024, "in (0, 1024]"),
             "spatial_correlation": (lambda v: 0 < v < 1, "in (0, 1)"),

@@ -123,7 +123,10 @@ class EstimatorMaker:
         from .synthesis import synthesise
 
         t = fraction_of(time, state.past_time, state.future_time)
-        return synthesise(state.past, state.future, state.fields, t=t, params=self.params)
+        return synthesise(
+            state.past, state.future, state.fields, t=t, params=self.params,
+            past_time=state.past_time, future_time=state.future_time,
+        )
 
     def describe(self, state: _Pair) -> list[dict]:
         return [

@@ -26,9 +26,12 @@ range of rows gives exactly (bit for bit) the rows of the whole picture.
 from __future__ import annotations
 
 import math
+import os
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from typing import Sequence
 
+import cv2
 import numpy as np
 
 from .candidates import CandidateSearch
@@ -38,10 +41,10 @@ from .estimate import (
     endpoint_agreement_stats,
     innovation_correlation,
     link_correlation,
-    lmmse_weights_soa,
+    lmmse_weights_structured,
 )
 from .field import VectorField
-from .observe import endpoint_patches, remap_plane
+from .observe import PlaneSampler, endpoint_patches
 from .params import METHODS, SynthParams
 from .picture import Picture
 from .project import LandedVectors, project_fields, reference_times
@@ -122,22 +125,52 @@ def _both_directions(fields: list[VectorField]) -> bool:
     return len(signs) == 2
 
 
+def _resample_axis(a: np.ndarray, axis: int, cell: int, sample: int) -> np.ndarray:
+    """Cell-resolution values -> plane-resolution values along one axis (sizes in luma samples):
+    repeat when the cell is larger than the plane's sample, average when smaller."""
+    if cell == sample:
+        return a
+    if cell > sample:
+        return np.repeat(a, cell // sample, axis=axis)
+    f = sample // cell
+    sl = [slice(None)] * a.ndim
+    sl[axis] = slice(0, None, f)
+    out = a[tuple(sl)].copy()
+    for i in range(1, f):
+        sl[axis] = slice(i, None, f)
+        out += a[tuple(sl)]
+    out *= np.float32(1.0 / f)
+    return out
+
+
 class _Synthesiser:
     """Everything computed once per call (full-picture inputs), and the per-band computation."""
 
-    def __init__(self, past: Picture, future: Picture, landed: LandedVectors, params: SynthParams, k: int):
+    def __init__(
+        self, past: Picture, future: Picture, landed: LandedVectors, params: SynthParams, k: int, group_rows, pool
+    ):
         self.p = params
         self.k = k
         self.g = params.group_size
+        self.c = params.weight_cell
         self.H, self.W = past.height, past.width
         self.fx, self.fy = (1, 1) if past.chroma_format == "mono" else past.chroma_factors
-        self.past = [pl.astype(np.float32) for pl in past.planes]
-        self.future = [pl.astype(np.float32) for pl in future.planes]
         self.bit_depth = past.bit_depth
         self.landed = landed
-        self.search = CandidateSearch(landed, height=self.H, width=self.W, k=k, group=self.g, reach=params.reach)
-        self.rho = self._agreement()
-        # per-vector columns gathered per band
+        # d_future = kappa * d_past for every vector (see synth.project)
+        self.kappa = (landed.future_time - landed.target_time) / (landed.past_time - landed.target_time)
+        search = CandidateSearch(landed, height=self.H, width=self.W, k=k, group=self.g, reach=params.reach)
+        self.g_row0, g_row1 = group_rows
+        jobs = [pool.submit(search.for_group_rows, self.g_row0, g_row1)]
+        jobs.append(pool.submit(self._agreement, past.y.astype(np.float32), future.y.astype(np.float32)))
+
+        def sampler(plane):
+            return PlaneSampler(plane, interpolation=params.interpolation, bit_depth=past.bit_depth)
+
+        flat = list(pool.map(sampler, [pl for pair in zip(past.planes, future.planes) for pl in pair]))
+        self.samplers = [(flat[2 * i], flat[2 * i + 1]) for i in range(len(flat) // 2)]
+        self.idx = jobs[0].result()  # (rows, cols, K)
+        rho = jobs[1].result()
         self._cols = {
             "cx": landed.cx,
             "cy": landed.cy,
@@ -147,180 +180,157 @@ class _Synthesiser:
             "dpy": landed.past_dy,
             "dfx": landed.future_dx,
             "dfy": landed.future_dy,
-            "rho": self.rho,
+            "srho": link_correlation(rho).astype(np.float32),
         }
 
     # -- per-vector endpoint agreement ----------------------------------------------------------
-    def _agreement(self) -> np.ndarray:
+    def _agreement(self, past_y: np.ndarray, future_y: np.ndarray) -> np.ndarray:
         rho = np.zeros(len(self.landed), np.float32)
         scale = float(1 << (self.bit_depth - 8)) ** 2
         floor = self.p.agreement_floor * scale
         for index, a, b in endpoint_patches(
-            self.past[0], self.future[0], self.landed, margin=self.p.agreement_margin, interpolation=self.p.interpolation
+            past_y, future_y, self.landed, margin=self.p.agreement_margin, interpolation=self.p.interpolation
         ):
             rho[index] = endpoint_agreement_stats(a, b, floor=floor)
         return rho
 
     # -- one band -------------------------------------------------------------------------------
     def band(self, y0: int, y1: int):
-        """Luma rows y0..y1 (y0 a multiple of BAND_ROWS); returns planes and maps of those rows."""
-        g, K, p = self.g, self.k, self.p
+        """Luma rows y0..y1 (y0 a multiple of BAND_ROWS); returns planes and maps of those rows
+        (padded to whole groups)."""
+        g, c, K, p = self.g, self.c, self.k, self.p
         gy0, gy1 = y0 // g, -(-y1 // g)
-        idx = self.search.for_group_rows(gy0, gy1)  # (Gr, Gx, K)
+        idx = self.idx[gy0 - self.g_row0 : gy1 - self.g_row0]  # (Gr, Gx, K)
         Gr, Gx = idx.shape[:2]
-        valid_g = idx >= 0
-        safe = np.where(valid_g, idx, 0)
-        cols = {}
-        for name, col in self._cols.items():
-            v = col[safe]
-            if name in ("dpx", "dpy", "dfx", "dfy", "rho"):
-                v = np.where(valid_g, v, np.float32(0))
-            cols[name] = np.ascontiguousarray(np.moveaxis(v, -1, 0))  # (K, Gr, Gx)
-        valid_k = np.ascontiguousarray(np.moveaxis(valid_g, -1, 0))
-
-        def expand(q, fy=1, fx=1):
-            """(..., Gr, Gx) group values -> (..., Gr*g/fy, Gx*g/fx) sample values."""
-            sy, sx = g // fy, g // fx
-            lead = q.shape[:-2]
-            out = np.broadcast_to(q[..., :, None, :, None], lead + (Gr, sy, Gx, sx))
-            return out.reshape(lead + (Gr * sy, Gx * sx))
-
-        Pr, Pc = Gr * g, Gx * g
-        X = np.arange(Pc, dtype=np.float32)[None, None, :]
-        Y = (np.arange(Pr, dtype=np.float32) + np.float32(gy0 * g))[None, :, None]
-        valid = expand(valid_k)
-        count = valid.sum(axis=0).astype(np.float32)  # (Pr, Pc)
-
-        # distances: to the landing centre and to the footprint
-        ddx = X - expand(cols["cx"])
-        ddy = Y - expand(cols["cy"])
-        dist_centre = np.sqrt(ddx * ddx + ddy * ddy)
-        big = np.float32(1e9)
-        dist_centre = np.where(valid, dist_centre, big)
-
-        nearest = np.argmin(dist_centre, axis=0)  # (Pr, Pc), lowest slot on ties
-        fallback = None
+        G = Gr * Gx
+        idx = np.ascontiguousarray(idx.reshape(G, K).T)  # (K, G)
+        valid = idx >= 0
+        safe = np.where(valid, idx, 0)
+        zero = np.float32(0)
+        col = {}
+        for name, values in self._cols.items():
+            v = values[safe]
+            if name in ("dpx", "dpy", "dfx", "dfy", "srho"):
+                v = np.where(valid, v, zero)
+            col[name] = v.astype(np.float32, copy=False)
+        count = valid.sum(axis=0)  # (G,)
+        # group origins and cell centres
+        gxo = np.tile(np.arange(Gx, dtype=np.float32) * g, Gr)
+        gyo = np.repeat(np.arange(gy0, gy1, dtype=np.float32) * g, Gx)
+        n = g // c
+        off = np.arange(n, dtype=np.float32) * c + np.float32((c - 1) / 2)
+        ocy, ocx = np.meshgrid(off, off, indexing="ij")
+        Xc = gxo[None, :] + ocx.reshape(-1, 1)  # (M, G)
+        Yc = gyo[None, :] + ocy.reshape(-1, 1)
+        ddx = Xc[None] - col["cx"][:, None, :]  # (K, M, G)
+        ddy = Yc[None] - col["cy"][:, None, :]
+        vmask = valid[:, None, :]
+        conf = None
+        if p.method in ("nearest", "distance_weighted") or p.disagreement_threshold > 0:
+            dc = np.sqrt(ddx * ddx + ddy * ddy)
+            dc = np.where(vmask, dc, np.float32(np.inf))
         if p.method == "nearest":
-            w = (np.arange(K)[:, None, None] == nearest[None]).astype(np.float32) * valid
-            conf = np.zeros((Pr, Pc), np.float32)
-            mean_mix = False
+            coef = (np.arange(K)[:, None, None] == np.argmin(dc, axis=0)[None]) & vmask
+            coef = coef.astype(np.float32)
         elif p.method == "distance_weighted":
-            w = np.where(valid, 1.0 / np.power(dist_centre + 1.0, np.float32(p.idw_power)), 0).astype(np.float32)
+            w = np.where(vmask, np.float32(1) / np.power(dc + np.float32(1), np.float32(p.idw_power)), zero)
             sw = w.sum(axis=0)
-            w = w / np.where(sw > 0, sw, 1)
-            conf = np.zeros((Pr, Pc), np.float32)
-            mean_mix = False
+            coef = (w / np.where(sw > 0, sw, np.float32(1))[None]).astype(np.float32)
         else:
-            ex = np.maximum(np.abs(ddx) - expand(cols["hw"]), 0)
-            ey = np.maximum(np.abs(ddy) - expand(cols["hh"]), 0)
-            dist_fp = np.sqrt(ex * ex + ey * ey)
-            rel = distance_reliability(dist_fp, scale=p.reliability_scale)
-            r = link_correlation(expand(cols["rho"])) * rel
-            r = np.where(valid, np.minimum(r, np.float32(p.max_correlation)), 0).astype(np.float32)
-            Cg = innovation_correlation(
-                *(np.moveaxis(cols[n], 0, -1).reshape(-1, K) for n in ("dpx", "dpy", "dfx", "dfy")),
-                np.moveaxis(valid_k, 0, -1).reshape(-1, K),
-                spatial_correlation=p.spatial_correlation,
-                nugget=p.innovation_nugget,
-            )  # (Gr*Gx, K, K)
-            Cg = np.moveaxis(Cg.reshape(Gr, Gx, K, K), (2, 3), (0, 1))  # (K, K, Gr, Gx)
-            P = Pr * Pc
-            w_flat, conf_flat = lmmse_weights_soa(
-                r.reshape(K, P), lambda i, j: expand(Cg[i, j]).reshape(P), loading=p.loading
-            )
-            w = w_flat.reshape(K, Pr, Pc)
-            conf = conf_flat.reshape(Pr, Pc)
-            mean_mix = True
+            ex = np.maximum(np.abs(ddx) - col["hw"][:, None, :], zero)
+            ey = np.maximum(np.abs(ddy) - col["hh"][:, None, :], zero)
+            dist = np.sqrt(ex * ex + ey * ey)
+            rel = distance_reliability(dist, scale=p.reliability_scale)
+            r = np.minimum(col["srho"][:, None, :] * rel, np.float32(p.max_correlation))
+            r = np.where(vmask, r, zero).astype(np.float32)
+            C = innovation_correlation(
+                col["dpx"], col["dpy"], col["dfx"], col["dfy"], valid,
+                spatial_correlation=p.spatial_correlation, nugget=p.innovation_nugget,
+            )  # (K, K, G)
+            w, conf = lmmse_weights_structured(r, C, loading=p.loading)
+            nv = np.maximum(count, 1).astype(np.float32)
+            coef = w + vmask * ((np.float32(1) - w.sum(axis=0)) / nv[None, :])[None]
             if p.disagreement_threshold > 0:
-                rho_max = np.where(valid, expand(cols["rho"]), 0).max(axis=0)
-                fall = (rho_max < p.disagreement_threshold) & (count > 0)
+                srho_max = np.where(valid, col["srho"], zero).max(axis=0)  # (G,)
+                fall = srho_max < np.float32(np.sqrt(p.disagreement_threshold))
                 if fall.any():
-                    fallback = (fall, (np.arange(K)[:, None, None] == nearest[None]).astype(np.float32))
+                    onehot = ((np.arange(K)[:, None, None] == np.argmin(dc, axis=0)[None]) & vmask).astype(np.float32)
+                    coef = np.where(fall[None, None, :], onehot, coef)
+                    conf = np.where(fall[None, :], zero, conf)
+            coef = coef.astype(np.float32)
+        if conf is None:
+            conf = np.zeros(coef.shape[1:], np.float32)
+        # which endpoints are usable (group centre moved by the displacement inside the picture)
+        m = np.float32(p.border_margin)
+        gcx, gcy = gxo + np.float32((g - 1) / 2), gyo + np.float32((g - 1) / 2)
 
-        # coefficients c_k on the observations: estimate = sum_k c_k o_k
-        if mean_mix:
-            n = np.maximum(count, 1)
-            c = w + valid * ((1.0 - w.sum(axis=0)) / n)[None]
-            if fallback is not None:
-                fall, onehot = fallback
-                c = np.where(fall[None], onehot, c)
-                conf = np.where(fall, 0, conf)
-        else:
-            c = w
-        c = c.astype(np.float32)
+        def outside(dx, dy):
+            x, y = gcx[None] + dx, gcy[None] + dy
+            return (x < -m) | (x > np.float32(self.W - 1) + m) | (y < -m) | (y > np.float32(self.H - 1) + m)
+
+        op, of = outside(col["dpx"], col["dpy"]), outside(col["dfx"], col["dfy"])
+        share = np.where(op & ~of, zero, np.where(of & ~op, np.float32(1), np.float32(0.5)))  # (K, G)
         hole = count == 0
-        conf = np.where(hole, 0, conf).astype(np.float32)
+        if hole.any():  # co-located average through slot 0 (zero displacement)
+            coef[0][:, hole] = 1.0
+            share[0][hole] = 0.5
+            conf[:, hole] = 0
+        alpha = coef * share[:, None, :]
+        beta = coef - alpha
+        # cell layout (K, M, G) -> cell planes (K, Gr*n, Gx*n)
 
-        planes_out = []
-        past_weight = None
-        for pi in range(len(self.past)):
+        def cells_to_plane(a):
+            lead = a.shape[:-2]
+            a = a.reshape(lead + (n, n, Gr, Gx))
+            a = np.moveaxis(a, (-4, -3), (-3, -1))  # (..., Gr, n_y, Gx, n_x)
+            return np.ascontiguousarray(a).reshape(lead + (Gr * n, Gx * n))
+
+        alpha_cells = cells_to_plane(alpha)
+        beta_cells = cells_to_plane(beta)
+        planes = []
+        for pi, (sp, sf) in enumerate(self.samplers):
             fy, fx = (1, 1) if pi == 0 else (self.fy, self.fx)
-            if pi == 0:
-                cp = c
-            else:
-                cp = c.reshape(K, Pr // fy, fy, Pc // fx, fx).mean(axis=(2, 4))
-            est, pw = self._combine(pi, cp, cols, expand, fy, fx, gy0 * g // fy, want_side=(pi == 0))
-            if pi == 0:
-                past_weight = pw
-            holes_p = hole if pi == 0 else hole.reshape(Pr // fy, fy, Pc // fx, fx)[:, 0, :, 0]
-            if holes_p.any():
-                ph, pwid = est.shape
-                r0 = gy0 * g // fy
-                pa = self._rows(self.past[pi], r0, ph, pwid)
-                fu = self._rows(self.future[pi], r0, ph, pwid)
-                est = np.where(holes_p, 0.5 * (pa + fu), est)
-            planes_out.append(est)
-        past_weight = np.where(hole, 0.5, past_weight).astype(np.float32)
-        maps = {"candidates": count, "confidence": conf, "past_weight": past_weight}
-        return planes_out, maps
+            A = _resample_axis(_resample_axis(alpha_cells, 1, c, fy), 2, c, fx)
+            B = _resample_axis(_resample_axis(beta_cells, 1, c, fy), 2, c, fx)
+            planes.append(self._combine(pi, A, B, col, Gr, Gx, gy0 * g // fy, fy, fx))
+        total = alpha_cells.sum(axis=0) + beta_cells.sum(axis=0)
+        pw = np.where(total > 1e-6, alpha_cells.sum(axis=0) / np.where(total > 1e-6, total, 1), np.float32(0.5))
+        up = lambda a: _resample_axis(_resample_axis(a, 0, c, 1), 1, c, 1)  # noqa: E731
+        maps = {
+            "candidates": np.repeat(np.repeat(count.reshape(Gr, Gx).astype(np.float32), g, 0), g, 1),
+            "confidence": up(cells_to_plane(conf)),
+            "past_weight": up(np.clip(pw, 0, 1).astype(np.float32)),
+        }
+        return planes, maps
 
-    @staticmethod
-    def _rows(plane, r0, nrows, ncols):
-        """Rows r0..r0+nrows of a plane, edge-replicated to (nrows, ncols)."""
-        h, w = plane.shape
-        rr = np.clip(np.arange(r0, r0 + nrows), 0, h - 1)
-        cc = np.clip(np.arange(ncols), 0, w - 1)
-        return plane[rr][:, cc]
-
-    def _combine(self, pi, c, cols, expand, fy, fx, row0, *, want_side):
-        """sum_k c_k o_k on plane pi; returns the estimate and (luma) the past-side share."""
-        K = self.k
-        past, future = self.past[pi], self.future[pi]
-        h, w = past.shape
-        margin = np.float32(self.p.border_margin)
-        Pr, Pc = c.shape[1:]
-        X = np.arange(Pc, dtype=np.float32)[None, :]
-        Y = (np.arange(Pr, dtype=np.float32) + np.float32(row0))[:, None]
+    def _combine(self, pi, A, B, col, Gr, Gx, row0, fy, fx):
+        """sum_k A_k past(p + d_past_k) + B_k future(p + d_future_k) on plane pi."""
+        g = self.g
+        sp, sf = self.samplers[pi]
+        Pr, Pc = A.shape[1:]
+        scale = np.float32(sp.scale)
+        base = np.empty((Pr, Pc, 2), np.float32)
+        base[..., 0] = np.arange(Pc, dtype=np.float32)[None, :] * scale
+        base[..., 1] = (np.arange(Pr, dtype=np.float32)[:, None] + np.float32(row0)) * scale
+        ry, rx = g // fy, g // fx
         est = np.zeros((Pr, Pc), np.float32)
-        side = np.zeros((Pr, Pc), np.float32) if want_side else None
-        sx, sy = np.float32(1.0 / fx), np.float32(1.0 / fy)
-        for k in range(K):
-            ck = c[k]
-            if not np.any(ck):
+        # every future displacement is the past one times kappa (same vector, other time span)
+        kappa = self.kappa
+        for k in range(self.k):
+            a_k, b_k = A[k], B[k]
+            use_p, use_f = a_k.any(), b_k.any()
+            if not (use_p or use_f):
                 continue
-            dpx = expand(cols["dpx"][k], fy, fx) * sx
-            dpy = expand(cols["dpy"][k], fy, fx) * sy
-            dfx = expand(cols["dfx"][k], fy, fx) * sx
-            dfy = expand(cols["dfy"][k], fy, fx) * sy
-            mpx, mpy = X + dpx, Y + dpy
-            mfx, mfy = X + dfx, Y + dfy
-            a = remap_plane(past, mpx, mpy, interpolation=self.p.interpolation)
-            b = remap_plane(future, mfx, mfy, interpolation=self.p.interpolation)
-            lo, hx, hy = -margin, np.float32(w - 1) + margin, np.float32(h - 1) + margin
-            out_p = (mpx < lo) | (mpx > hx) | (mpy < lo) | (mpy > hy)
-            out_f = (mfx < lo) | (mfx > hx) | (mfy < lo) | (mfy > hy)
-            only_f = out_p & ~out_f
-            only_p = out_f & ~out_p
-            o = np.where(only_f, b, np.where(only_p, a, np.float32(0.5) * (a + b)))
-            est += ck * o
-            if want_side:
-                share = np.where(only_p, np.float32(1), np.where(only_f, np.float32(0), np.float32(0.5)))
-                side += ck * share
-        if want_side:
-            total = c.sum(axis=0)
-            side = np.where(np.abs(total) > 1e-6, side / np.where(np.abs(total) > 1e-6, total, 1), 0.5)
-            side = np.clip(side, 0, 1).astype(np.float32)
-        return est, side
+            d = np.empty((Gr, Gx, 2), np.float32)
+            d[..., 0] = col["dpx"][k].reshape(Gr, Gx) * np.float32(scale / fx)
+            d[..., 1] = col["dpy"][k].reshape(Gr, Gx) * np.float32(scale / fy)
+            pos_p = base + np.repeat(np.repeat(d, ry, axis=0), rx, axis=1)
+            if use_p:
+                cv2.accumulateProduct(sp.sample(pos_p), a_k, est)
+            if use_f:
+                pos_f = cv2.addWeighted(base, 1.0 - kappa, pos_p, kappa, 0.0)
+                cv2.accumulateProduct(sf.sample(pos_f), b_k, est)
+        return est
 
 
 def synthesise_with_maps(
@@ -334,6 +344,7 @@ def synthesise_with_maps(
     past_time: float | None = None,
     future_time: float | None = None,
     method: str | None = None,
+    workers: int | None = None,
 ) -> SynthesisResult:
     """Synthesise the picture at time ``t`` between two references, with per-pixel maps.
 
@@ -354,6 +365,9 @@ def synthesise_with_maps(
         Display times of the references; default the earliest and latest time the fields refer to.
     method : {'lmmse', 'distance_weighted', 'nearest'}, optional
         Overrides ``params.method``.
+    workers : int, optional
+        Threads processing bands in parallel (default: the CPU count, at most 4). Results do not
+        depend on it.
 
     Returns
     -------
@@ -397,7 +411,18 @@ def synthesise_with_maps(
         if y0 % fy or (y1 % fy and y1 != H):
             raise ParameterError(f"rows must start and end on multiples of the chroma factor {fy}, got {rows!r}")
     k = params.candidates_both_directions if _both_directions(fields) else params.candidates
-    eng = _Synthesiser(past, future, landed, params, k)
+    g = params.group_size
+    b_first = (y0 // BAND_ROWS) * BAND_ROWS
+    b_last = min(H, -(-y1 // BAND_ROWS) * BAND_ROWS)
+    if workers is None:
+        workers = min(4, os.cpu_count() or 1)
+    if isinstance(workers, bool) or not isinstance(workers, int) or workers < 1:
+        raise ParameterError(f"workers must be a positive integer, got {workers!r}")
+    with ThreadPoolExecutor(max_workers=workers) as pool:
+        eng = _Synthesiser(past, future, landed, params, k, (b_first // g, -(-b_last // g)), pool)
+        starts = list(range((y0 // BAND_ROWS) * BAND_ROWS, y1, BAND_ROWS))
+        results = pool.map(lambda b0: (b0, eng.band(b0, min(H, b0 + BAND_ROWS))), starts)
+        results = list(results)
     n_planes = len(past.planes)
     out = []
     for pi in range(n_planes):
@@ -407,9 +432,8 @@ def synthesise_with_maps(
             ch, cw = past.planes[pi].shape
             out.append(np.zeros((-(-y1 // fy) - y0 // fy, cw), np.float32))
     maps = {name: np.zeros((y1 - y0, W), np.float32) for name in MAP_NAMES}
-    for b0 in range((y0 // BAND_ROWS) * BAND_ROWS, y1, BAND_ROWS):
+    for b0, (planes, bmaps) in results:
         b1 = min(H, b0 + BAND_ROWS)
-        planes, bmaps = eng.band(b0, b1)
         # luma rows of this band inside the requested range
         s0, s1 = max(b0, y0), min(b1, y1)
         out[0][s0 - y0 : s1 - y0] = planes[0][s0 - b0 : s1 - b0, :W]
@@ -435,8 +459,18 @@ def synthesise(
     past_time: float | None = None,
     future_time: float | None = None,
     method: str | None = None,
+    workers: int | None = None,
 ) -> Picture:
     """Synthesise the picture at time ``t``; see `synthesise_with_maps` (same parameters)."""
     return synthesise_with_maps(
-        past, future, fields, t=t, params=params, rows=rows, past_time=past_time, future_time=future_time, method=method
+        past,
+        future,
+        fields,
+        t=t,
+        params=params,
+        rows=rows,
+        past_time=past_time,
+        future_time=future_time,
+        method=method,
+        workers=workers,
     ).picture

@@ -95,6 +95,9 @@ class LocalExecutor(Executor):
             return
         methods = multiprocessing.get_all_start_methods()
         ctx = multiprocessing.get_context("forkserver" if "forkserver" in methods else "spawn")
+        if ctx.get_start_method() == "forkserver":
+            # Workers fork from a server that has imported synth once, instead of each importing it.
+            ctx.set_forkserver_preload(["synth.study.worker", "synth.study.builtin_kinds"])
         self._pool = cf.ProcessPoolExecutor(max_workers=self.workers, mp_context=ctx, initializer=_quiet_worker)
         futures = {self._pool.submit(execute_job, job, run_id=run_id): job for job in jobs}
         try:

