@@ -14,7 +14,7 @@ $(STAMP): pyproject.toml
 	$(PY) -m pip install --quiet -e '.[test,cluster]'
 	touch $(STAMP)
 
-# Until the `synth demo` command exists, the demo describes every bundled clip.
+# The main job on the bundled demo clips: GOP runs and comparisons, report in ./synth-demo/
 demo: $(STAMP)
 	$(VENV)/bin/synth demo
 

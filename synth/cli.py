@@ -473,7 +473,7 @@ def gop(
     predictors: Optional[str] = typer.Option(None, "--predictors", "-p", help="Comma-separated predictor names (default: all available)."),
     vector_qp: Optional[str] = typer.Option(None, "--vector-qp", help="Comma-separated QPs to estimate vectors at, e.g. 22,32,42."),
     report: Optional[Path] = typer.Option(None, "--report", "-r", help="Directory for report.html, results.json and results.csv."),
-    export: Optional[Path] = typer.Option(None, "--export", help="Write the synthetic pictures (anchors = references) to this .y4m file."),
+    export: Optional[Path] = typer.Option(None, "--export", help="Write the synthetic pictures (display order, no anchors) to this .y4m file, with a JSON sidecar."),
     export_method: Optional[str] = typer.Option(None, "--export-method", help="Method whose pictures --export writes (default: lmmse, else the first predictor)."),
     frames: Optional[int] = typer.Option(None, "--frames", "-n", help="Use only the first N pictures of the clip."),
 ) -> None:
@@ -511,13 +511,16 @@ def gop(
         )
     typer.echo(run_tables(result))
     if export is not None:
-        from dataclasses import replace
+        from .export import sidecar_path
+        from .gop import write_gop_export
 
-        from .io import write_clip
+        info = reader.info
+        if not info.frame_count:
+            from dataclasses import replace
 
-        info = replace(reader.info, frame_count=len(result.synthetic))
-        write_clip(export, result.synthetic, info)
-        typer.echo(f"exported {len(result.synthetic)} pictures ({method}) to {export}")
+            info = replace(info, frame_count=len(reader))
+        write_gop_export(result, export, info=info, source_name=str(clip))
+        typer.echo(f"exported {len(result.synthetic)} synthetic pictures ({method}) to {export}; sidecar {sidecar_path(export)}")
     if report is not None:
         from .report import write_report
 

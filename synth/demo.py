@@ -38,7 +38,7 @@ class DemoStep:
 
     kind: str
     clip: str
-    path: Path
+    path: Path | None  # None: render the scene with synth.democlips
     options: dict = field(default_factory=dict)
 
     def jobs(self, n_pictures: int) -> int:
@@ -48,29 +48,27 @@ class DemoStep:
         return len(compare_jobs(n, self.options["gaps"]))
 
 
-def demo_clip_dir() -> Path:
-    """The folder holding the bundled demo clips (``demo_clips/`` of the source tree).
-
-    Raises
-    ------
-    FormatError
-        When the folder or one of `DEMO_CLIPS` is missing.
-    """
+def demo_clip_dir() -> Path | None:
+    """The folder holding the bundled demo clips (``$SYNTH_DEMO_CLIPS``, else ``demo_clips/`` of
+    the source tree), or None when neither holds all of `DEMO_CLIPS` (an installed package
+    without the source tree: the demo then renders the same scenes with `synth.democlips`)."""
     candidates = [Path(os.environ["SYNTH_DEMO_CLIPS"])] if os.environ.get("SYNTH_DEMO_CLIPS") else []
     candidates.append(Path(__file__).resolve().parents[1] / "demo_clips")
     for d in candidates:
         if all((d / name).is_file() for name in DEMO_CLIPS):
             return d
-    raise FormatError(
-        f"demo clips {', '.join(DEMO_CLIPS)} not found in {', '.join(str(c) for c in candidates)} "
-        "(set SYNTH_DEMO_CLIPS to their folder)"
-    )
+    return None
 
 
 def demo_plan(directory: Path | None = None) -> list[DemoStep]:
     """The demo's runs: per clip a GOP run (size `DEMO_GOP_SIZE`) and a comparison at `DEMO_GAPS`;
-    on the first clip a comparison at the widest gap with vectors at `DEMO_VECTOR_QPS`."""
-    d = Path(directory) if directory is not None else demo_clip_dir()
+    on the first clip a comparison at the widest gap with vectors at `DEMO_VECTOR_QPS`.
+
+    Steps read the clip files of `directory` (default `demo_clip_dir()`); with no folder found
+    their path is None and the clips are rendered in memory.
+    """
+    found = Path(directory) if directory is not None else demo_clip_dir()
+    d = found if found is not None else Path("<rendered>")
     steps = []
     for name in DEMO_CLIPS:
         steps.append(DemoStep("gop", name, d / name, {"size": DEMO_GOP_SIZE, "limit": DEMO_PICTURES}))
@@ -84,6 +82,9 @@ def demo_plan(directory: Path | None = None) -> list[DemoStep]:
             {"gaps": [max(DEMO_GAPS)], "limit": DEMO_PICTURES, "vector_qps": list(DEMO_VECTOR_QPS)},
         )
     )
+    if found is None:
+        for step in steps:
+            step.path = None
     return steps
 
 
@@ -113,7 +114,16 @@ def run_demo(
     """
     from .io import open_clip
 
-    readers = {s.clip: open_clip(s.path) for s in plan}
+    readers = {}
+    for s in plan:
+        if s.clip in readers:
+            continue
+        if s.path is not None:
+            readers[s.clip] = open_clip(s.path)
+        else:
+            from .democlips import render_scene
+
+            readers[s.clip] = render_scene(Path(s.clip).stem, frames=DEMO_PICTURES)
     totals = [s.jobs(len(readers[s.clip])) for s in plan]
     grand = sum(totals)
     results: list[RunResult] = []

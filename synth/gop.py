@@ -17,7 +17,7 @@ from .picture import Picture
 from .predictors import resolve_predictors
 from .workbench import FrameSource, Job, RunResult, parse_vector_qps, run_jobs
 
-__all__ = ["gop_jobs", "run_gop", "gop", "GopRun"]
+__all__ = ["gop_jobs", "run_gop", "gop", "GopRun", "write_gop_export"]
 
 
 @dataclass
@@ -26,12 +26,12 @@ class GopRun(RunResult):
 
     Attributes
     ----------
-    synthetic : list of Picture or None
-        Display order, pictures 0..last anchor: anchors are the references used (source or
-        decoded), every other picture is the prediction of `settings['export_method']`.
+    synthetic : list of (Job, Picture) or None
+        Every non-anchor picture in display order with the prediction of
+        `settings['export_method']`.
     """
 
-    synthetic: list[Picture] | None = None
+    synthetic: list[tuple[Job, Picture]] | None = None
 
 
 def gop_jobs(n_pictures: int, size: int, *, flat: bool = False) -> list[Job]:
@@ -117,7 +117,7 @@ def run_gop(
         preds = resolve_predictors(predictors, vectors=True if estimate_fields is not None else None)
     else:
         preds = resolve_predictors(list(predictors))
-    collected: dict[int, Picture] = {}
+    collected: dict[int, tuple[Job, Picture]] = {}
     if export_method is not None:
         labels = set()
         several = qps is not None and len(qps) > 1
@@ -129,7 +129,7 @@ def run_gop(
 
     def keep(job: Job, label: str, prediction) -> None:
         if label == export_method:
-            collected[job.target] = prediction.picture
+            collected[job.target] = (job, prediction.picture)
 
     methods, records, pairs, highlights = run_jobs(
         jobs,
@@ -151,9 +151,7 @@ def run_gop(
         "vector_qps": qps,
         "export_method": export_method,
     }
-    synthetic = None
-    if export_method is not None:
-        synthetic = [collected[i] if i in collected else references[i] for i in range(last + 1)]
+    synthetic = [collected[i] for i in sorted(collected)] if export_method is not None else None
     return GopRun("gop", clip_name, settings, methods, records, pairs, highlights, group_key="layer", synthetic=synthetic)
 
 
@@ -186,3 +184,87 @@ def gop(
         frame_rate=reader.info.frame_rate,
         progress=progress,
     )
+
+
+def write_gop_export(run: GopRun, output, *, info, source_name: str) -> dict:
+    """Write the synthetic pictures of a GOP run (display order, anchors left out) as Y4M, with a
+    JSON sidecar beside it, in the layout of ``synth export`` (`synth.export`).
+
+    Parameters
+    ----------
+    run : GopRun
+        A run made with `export_method`.
+    output : path
+        The ``.y4m`` file; the sidecar is ``output + '.json'``.
+    info : ClipInfo
+        The source clip's metadata (frame rate and the like).
+    source_name : str
+        Recorded in the sidecar.
+
+    Returns
+    -------
+    dict
+        The sidecar document: ``format`` 'synth-reference-sidecar', ``version`` 1, ``source``,
+        ``output``, ``container``, ``width``, ``height``, ``chroma_format``, ``bit_depth``,
+        ``frame_rate``, ``gop``, ``synthesiser`` (the method), ``qp`` (vector QP, null for methods
+        without vectors), ``pictures`` (``position``, ``time``, ``past``, ``future``, ``t``,
+        ``layer``, ``fields``), ``uncovered``, and two keys of this command: ``structure``
+        ('dyadic' or 'flat') and ``references`` ('source' or 'decoded-qpNN').
+
+    Raises
+    ------
+    ParameterError
+        When the run holds no exported pictures or `output` is not a ``.y4m`` file.
+    """
+    import json
+    from dataclasses import replace
+    from pathlib import Path
+
+    from .export import sidecar_path
+    from .io import atomic_write_text, write_clip
+
+    output = Path(output)
+    if output.suffix.lower() != ".y4m":
+        raise ParameterError(f"export output must be a .y4m file, got {str(output)!r}")
+    if not run.synthetic:
+        raise ParameterError("the GOP run holds no exported pictures (run it with export_method)")
+    method = run.settings["export_method"]
+    qp = None
+    uses_vectors = any(r["method"] == method and r["vector_qp"] is not None for r in run.records)
+    if uses_vectors:
+        qp = next(r["vector_qp"] for r in run.records if r["method"] == method)
+    pairs = {(p["past"], p["future"], p["vector_qp"]): p for p in run.pairs}
+    pictures = []
+    for pos, (job, _) in enumerate(run.synthetic):
+        pair = pairs.get((job.past, job.future, qp)) if uses_vectors else None
+        fields = [dict(f, source="estimated", qp=qp) for f in pair["fields"]] if pair else []
+        pictures.append(
+            {"position": pos, "time": job.target, "past": job.past, "future": job.future, "t": job.t,
+             "layer": dict(job.tags)["layer"], "fields": fields}
+        )
+    last = run.settings["pictures_used"] - 1
+    first = run.synthetic[0][1]
+    clip_info = replace(info, width=first.width, height=first.height, frame_count=len(run.synthetic))
+    write_clip(output, [pic for _, pic in run.synthetic], clip_info)
+    decoded = run.settings.get("decoded_refs_qp")
+    doc = {
+        "format": "synth-reference-sidecar",
+        "version": 1,
+        "source": source_name,
+        "output": output.name,
+        "container": "y4m",
+        "width": first.width,
+        "height": first.height,
+        "chroma_format": first.chroma_format,
+        "bit_depth": first.bit_depth,
+        "frame_rate": f"{info.frame_rate.numerator}/{info.frame_rate.denominator}",
+        "gop": run.settings["gop_size"],
+        "synthesiser": method,
+        "qp": qp,
+        "pictures": pictures,
+        "uncovered": list(range(last + 1, int(info.frame_count or last + 1))),
+        "structure": run.settings["structure"],
+        "references": "source" if decoded is None else f"decoded-qp{decoded}",
+    }
+    atomic_write_text(sidecar_path(output), json.dumps(doc, indent=2) + "\n")
+    return doc

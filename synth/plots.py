@@ -132,7 +132,7 @@ def weight_map(weights: np.ndarray, *, title: str) -> bytes:
     return _png(fig)
 
 
-def vector_overlay(picture: np.ndarray, field: VectorField, *, title: str, max_arrows: int = 1200) -> bytes:
+def vector_overlay(picture: np.ndarray, field: VectorField, *, title: str, max_arrows: int = 600) -> bytes:
     """Block vectors drawn over the picture they are coded on, in luma samples (1:1 scale).
 
     Each arrow starts at a block centre and ends where the block's content is on the reference.
@@ -148,7 +148,7 @@ def vector_overlay(picture: np.ndarray, field: VectorField, *, title: str, max_a
     cy = field.y[idx] + field.h[idx] / 2.0
     ax.quiver(
         cx, cy, field.dx[idx] / 4.0, field.dy[idx] / 4.0,
-        angles="xy", scale_units="xy", scale=1.0, color="#ffcc00", width=0.003,
+        angles="xy", scale_units="xy", scale=1.0, color="#ffcc00", alpha=0.85, width=0.0025,
     )
     intra = np.flatnonzero(field.intra)
     if len(intra):

@@ -8,7 +8,8 @@ results.json
     ``group_key`` ('gap' or 'layer'), ``summary`` (per method and group means; see
     `synth.workbench.summarise`), ``vector_qp_table`` (when several vector QPs ran), ``pairs``
     (vector estimation per reference pair) and ``pictures`` (one record per picture and method).
-    Infinite PSNR (identical pictures) is written as null.
+    With several runs, ``overview`` pools them (`synth.workbench.overview`): ``columns`` and per
+    method ``rows``. Infinite PSNR (identical pictures) is written as null.
 results.csv
     The ``pictures`` records of all runs, one line each, columns `CSV_COLUMNS`.
 report.html
@@ -30,7 +31,7 @@ from typing import Sequence
 import numpy as np
 
 from .io import atomic_write_text
-from .workbench import METRIC_KEYS, RunResult
+from .workbench import METRIC_KEYS, RunResult, overview
 
 __all__ = ["CSV_COLUMNS", "results_document", "results_csv", "report_html", "write_report"]
 
@@ -86,7 +87,10 @@ def results_document(runs: Sequence[RunResult]) -> dict:
         )
     from . import __version__
 
-    return _jsonable({"format": "synth-results", "format_version": 1, "synth_version": __version__, "runs": doc_runs})
+    doc = {"format": "synth-results", "format_version": 1, "synth_version": __version__, "runs": doc_runs}
+    if len(runs) > 1:
+        doc["overview"] = overview(runs)
+    return _jsonable(doc)
 
 
 def results_csv(runs: Sequence[RunResult]) -> str:
@@ -167,6 +171,24 @@ def _qp_table(run_id: int, table: list[dict], qps: list[int]) -> str:
     return f"<table>{head}{''.join(rows)}</table>"
 
 
+def _overview_table(ov: dict) -> str:
+    cols = ov["columns"]
+    head = '<tr><th class="name">method</th>' + "".join(f"<th>{html.escape(c)}</th>" for c in cols) + "<th>wins</th><th>ms/picture</th></tr>"
+    best = {c: max((r[c] for r in ov["rows"] if r[c] is not None), default=None) for c in cols}
+    rows = []
+    for i, r in enumerate(ov["rows"]):
+        cells = []
+        for c in cols:
+            cell = _cell(r[c], "psnr_yuv", f"overview.rows.{i}.{c}")
+            if r[c] is not None and r[c] == best[c]:
+                cell = cell.replace("<td ", '<td style="font-weight:600" ', 1)
+            cells.append(cell)
+        cells.append(_cell(r["wins"], "wins", f"overview.rows.{i}.wins"))
+        cells.append(_cell(r["ms_per_picture"], "ms_per_picture", f"overview.rows.{i}.ms_per_picture"))
+        rows.append(f'<tr><td class="name">{html.escape(r["method"])}</td>{"".join(cells)}</tr>')
+    return f"<table>{head}{''.join(rows)}</table>"
+
+
 def _run_title(run: RunResult) -> str:
     s = run.settings
     if run.kind == "compare":
@@ -222,6 +244,15 @@ def report_html(runs: Sequence[RunResult], doc: dict, *, title: str = "synth eva
         "estimation, which is shared by all vector-based predictors. A picture is won by the method with "
         "the highest PSNR YUV on it.</p>"
     )
+    if doc.get("overview") and doc["overview"]["rows"]:
+        body.append('<section id="overview"><h2>Overview: mean PSNR YUV over all runs</h2>')
+        body.append(
+            '<p class="note">Each column pools the pictures of every run that has it: GOP N = every B picture '
+            "of a dyadic GOP of N from its hierarchy references, gap N = every picture between references "
+            "N apart. Wins and ms/picture over all those pictures.</p>"
+        )
+        body.append(_overview_table(doc["overview"]))
+        body.append("</section>")
     for i, run in enumerate(runs):
         rdoc = doc["runs"][i]
         group_title = "gap" if run.group_key == "gap" else "layer"

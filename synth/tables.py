@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from typing import Sequence
 
-from .workbench import RunResult
+from .workbench import RunResult, overview
 
 __all__ = ["summary_table", "vector_qp_table", "run_tables"]
 
@@ -69,56 +69,13 @@ def run_tables(run: RunResult) -> str:
 
 
 def overview_table(runs: Sequence[RunResult]) -> str:
-    """Mean PSNR-YUV per method pooled over several runs (e.g. the demo clips).
-
-    Columns: one per GOP size (all layers) and one per comparison gap, then the wins over all
-    those pictures and the mean time per picture. Runs with several vector QPs are left out (they
-    have their own table, `vector_qp_table`).
-    """
-    runs = [r for r in runs if len(r.settings.get("vector_qps") or []) < 2]
-    if not runs:
+    """Mean PSNR-YUV per method pooled over several runs (see `synth.workbench.overview`)."""
+    ov = overview(runs)
+    if not ov["rows"]:
         return ""
-    methods: list[str] = []
-    for r in runs:
-        for m in r.methods:
-            if m not in methods:
-                methods.append(m)
-    columns: list[tuple[str, list[dict]]] = []
-    for kind, key, label in (("gop", "gop_size", "GOP {}"), ("compare", None, "gap {}")):
-        for r in runs:
-            if r.kind != kind:
-                continue
-            values = [r.settings[key]] if key else r.settings["gaps"]
-            for v in values:
-                name = label.format(v)
-                recs = r.records if key else [x for x in r.records if x.get("gap") == v]
-                tagged = [dict(x, _run=id(r)) for x in recs]
-                for existing in columns:
-                    if existing[0] == name:
-                        existing[1].extend(tagged)
-                        break
-                else:
-                    columns.append((name, tagged))
-    all_recs = [x for _, recs in columns for x in recs]
-    wins: dict[str, int] = {m: 0 for m in methods}
-    best: dict[tuple, tuple[float, int, str]] = {}
-    order = {m: i for i, m in enumerate(methods)}
-    for col, recs in columns:
-        for x in recs:
-            key = (col, x["_run"], x["target"])
-            v = float("inf") if x["psnr_yuv"] is None else x["psnr_yuv"]
-            cand = (v, -order[x["method"]], x["method"])
-            if key not in best or cand[:2] > best[key][:2]:
-                best[key] = cand
-    for v in best.values():
-        wins[v[2]] += 1
-    header = ["method", "", *[c[0] for c in columns], "wins", "ms/pic"]
-    rows = []
-    for m in methods:
-        cells = []
-        for _, recs in columns:
-            vals = [x["psnr_yuv"] for x in recs if x["method"] == m and x["psnr_yuv"] is not None]
-            cells.append(_fmt(sum(vals) / len(vals) if vals else None, "{:.2f}"))
-        secs = [x["seconds"] for x in all_recs if x["method"] == m]
-        rows.append([m, "", *cells, str(wins[m]), _fmt(1000.0 * sum(secs) / len(secs) if secs else None, "{:.1f}")])
+    header = ["method", "", *ov["columns"], "wins", "ms/pic"]
+    rows = [
+        [r["method"], "", *[_fmt(r[c], "{:.2f}") for c in ov["columns"]], str(r["wins"]), _fmt(r["ms_per_picture"], "{:.1f}")]
+        for r in ov["rows"]
+    ]
     return _grid(header, rows)

@@ -34,6 +34,7 @@ __all__ = [
     "parse_vector_qps",
     "run_jobs",
     "summarise",
+    "overview",
     "METRIC_KEYS",
 ]
 
@@ -101,7 +102,8 @@ class RunResult:
         One per target picture and method: tags, target/past/future/t, predictor, vector_qp,
         method, the metrics of `METRIC_KEYS` (None for an infinite PSNR) and seconds.
     pairs : list of dict
-        One per reference pair and vector QP: past, future, vector_qp, vector_seconds, blocks.
+        One per reference pair and vector QP: past, future, vector_qp, vector_seconds, blocks,
+        fields (coded_time, reference_time and blocks of each field).
     highlights : list of Highlight
     group_key : str
         Tag the summary groups by ('gap' or 'layer').
@@ -117,8 +119,8 @@ class RunResult:
     group_key: str = "gap"
 
     def to_rows(self) -> list[dict]:
-        """The per-picture records (copies), e.g. for `synth study`."""
-        return [dict(r) for r in self.records]
+        """The per-picture records without timings (deterministic), e.g. for `synth study`."""
+        return [{k: v for k, v in r.items() if k != "seconds"} for r in self.records]
 
     def summary(self) -> list[dict]:
         """Per-method means per group and over all pictures (see `summarise`)."""
@@ -327,6 +329,10 @@ def run_jobs(
                             "vector_qp": qp,
                             "vector_seconds": time.perf_counter() - start,
                             "blocks": int(sum(len(f) for f in fl)),
+                            "fields": [
+                                {"coded_time": f.coded_time, "reference_time": f.reference_time, "blocks": len(f)}
+                                for f in fl
+                            ],
                         }
                     )
                 fields_by_qp[qp] = field_cache[key]
@@ -410,3 +416,57 @@ def summarise(records: Sequence[dict], methods: Sequence[str], *, group_key: str
             row["wins"] = sum(1 for pic, w in wins.items() if w == m and (g == "all" or pic[0] == g))
             rows.append(row)
     return rows
+
+
+def overview(runs: Sequence[RunResult]) -> dict:
+    """Mean PSNR-YUV per method pooled over several runs (e.g. the demo clips).
+
+    Columns: one per GOP size ('GOP 16', all layers) and one per comparison gap ('gap 8'), each
+    pooling the pictures of every run that has it. Runs with several vector QPs are left out (they
+    have their own table). A picture is won by the method with the highest PSNR-YUV on it (ties
+    to the earlier method).
+
+    Returns
+    -------
+    dict
+        ``columns`` (list of column names) and ``rows``: per method ``method``, one key per column
+        (mean PSNR-YUV or None), ``wins`` and ``ms_per_picture`` over all pooled pictures.
+    """
+    runs = [r for r in runs if len(r.settings.get("vector_qps") or []) < 2]
+    methods: list[str] = []
+    for r in runs:
+        for m in r.methods:
+            if m not in methods:
+                methods.append(m)
+    columns: dict[str, list[tuple[int, dict]]] = {}
+    for kind in ("gop", "compare"):
+        for i, r in enumerate(runs):
+            if r.kind != kind:
+                continue
+            if kind == "gop":
+                columns.setdefault(f"GOP {r.settings['gop_size']}", []).extend((i, x) for x in r.records)
+            else:
+                for g in r.settings["gaps"]:
+                    columns.setdefault(f"gap {g}", []).extend((i, x) for x in r.records if x.get("gap") == g)
+    order = {m: k for k, m in enumerate(methods)}
+    best: dict[tuple, tuple] = {}
+    for col, recs in columns.items():
+        for i, x in recs:
+            key = (col, i, x["target"])
+            v = float("inf") if x["psnr_yuv"] is None else x["psnr_yuv"]
+            cand = (v, -order[x["method"]])
+            if key not in best or cand > best[key]:
+                best[key] = cand
+    wins = {m: 0 for m in methods}
+    for _, neg in best.values():
+        wins[methods[-neg]] += 1
+    rows = []
+    for m in methods:
+        row: dict = {"method": m}
+        for col, recs in columns.items():
+            row[col] = _mean(x["psnr_yuv"] for _, x in recs if x["method"] == m)
+        secs = [x["seconds"] for recs in columns.values() for _, x in recs if x["method"] == m]
+        row["wins"] = wins[m]
+        row["ms_per_picture"] = 1000.0 * float(np.mean(secs)) if secs else None
+        rows.append(row)
+    return {"columns": list(columns), "rows": rows}

@@ -34,10 +34,16 @@ def test_compare_writes_report_and_table(small_y4m, tmp_path):
 
 def test_gop_export_writes_a_clip(small_y4m, tmp_path):
     out = tmp_path / "synthetic.y4m"
-    proc = _synth("gop", small_y4m, "--size", 4, "-p", "average", "--export", out)
+    proc = _synth("gop", small_y4m, "--size", 4, "-p", "average,obmc", "--export", out, "--export-method", "obmc")
     assert proc.returncode == 0, proc.stderr
-    assert "layer" in proc.stdout and f"exported 9 pictures (average) to {out}" in proc.stdout
-    assert len(open_clip(out)) == 9
+    assert "layer" in proc.stdout and f"exported 6 synthetic pictures (obmc) to {out}" in proc.stdout
+    assert len(open_clip(out)) == 6
+    # Sidecar in the layout of `synth export` (synth.export).
+    doc = json.loads(out.with_name(out.name + ".json").read_text())
+    assert doc["format"] == "synth-reference-sidecar" and doc["gop"] == 4 and doc["synthesiser"] == "obmc"
+    assert [p["time"] for p in doc["pictures"]] == [1, 2, 3, 5, 6, 7]
+    assert [p["layer"] for p in doc["pictures"]] == [2, 1, 2, 2, 1, 2]
+    assert doc["qp"] == 27 and [f["coded_time"] for f in doc["pictures"][0]["fields"]] == [2.0, 0.0]
 
 
 @pytest.mark.parametrize(
@@ -65,3 +71,22 @@ def test_errors_are_one_line(small_y4m, tmp_path, monkeypatch, args, message):
 def test_error_in_a_child_process_is_one_line(tmp_path):
     proc = _synth("gop", tmp_path / "none.y4m", "--size", "8")
     assert proc.returncode == 2 and proc.stderr.strip() == f"synth: error: {tmp_path / 'none.y4m'}: no such file"
+
+
+def test_demo_plan_and_a_reduced_demo_run(tmp_path):
+    from synth.demo import DEMO_CLIPS, demo_plan, run_demo
+
+    plan = demo_plan()
+    assert [(s.kind, s.clip) for s in plan][:3] == [("gop", c) for c in DEMO_CLIPS]
+    assert plan[-1].options["vector_qps"] == [22, 32, 42]
+    # The same machinery on a small part of the plan: one GOP run and one comparison, few pictures.
+    small = [plan[0], plan[3]]
+    small[0].options.update(size=4, limit=5)
+    small[1].options.update(gaps=[2], limit=5)
+    seen = []
+    results, paths = run_demo(small, out=tmp_path / "demo", predictors="average,dis-fast", progress=lambda d, t, label: seen.append((d, t)))
+    assert [r.kind for r in results] == ["gop", "compare"]
+    assert seen[-1] == (3 + 2, 3 + 2)  # one progress count over both runs
+    doc = json.loads(paths["json"].read_text())
+    assert doc["overview"]["columns"] == ["GOP 4", "gap 2"]
+    assert paths["html"].exists() and paths["csv"].exists()

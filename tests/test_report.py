@@ -38,7 +38,7 @@ window.addEventListener('load', function () {
 def report_dir(carphone_crop, tmp_path_factory):
     pics = carphone_crop(9)
     runs = [
-        compare_clip(pics, gaps=[2, 4], predictors="average,dis-fast", clip_name="crop"),
+        compare_clip(pics, gaps=[2, 4], predictors="lmmse,average,dis-fast", vector_qps="22,37", clip_name="crop"),
         run_gop(pics, size=4, predictors="average,dis-fast", clip_name="crop"),
     ]
     out = tmp_path_factory.mktemp("report")
@@ -65,7 +65,10 @@ def test_json_csv_and_html_agree(report_dir):
     page = (report_dir / "report.html").read_text()
     # Self-contained: no fetched resource (every image is a data: URL, no external link or script).
     assert not re.search(r"""(src|href)=["']?(https?:|//)""", page)
-    assert page.count('src="data:image/png;base64,') >= 6
+    # Per run: PSNR per picture and PSNR per group; compare run: the vector-QP plot; per highlighted
+    # picture (worst, best): error maps and weight map, plus the vector overlay in the compare run.
+    assert page.count('src="data:image/png;base64,') == (2 + 1 + 2 * 3) + (2 + 2 * 2)
+    assert 'alt="weight map, worst picture"' in page and 'alt="vector overlay, best picture"' in page
     cells = re.findall(r'data-src="([^"]+)" data-value="([^"]*)"', page)
     assert len(cells) > 40
     for path, value in cells:
@@ -89,7 +92,7 @@ def test_report_renders_in_headless_chromium(report_dir, tmp_path):
 
     checks = json.loads(_html.unescape(found.group(1)))
     doc = json.loads((report_dir / "results.json").read_text())
-    assert checks["images"] >= 6 and checks["decoded"] == checks["images"]
+    assert checks["images"] == 15 and checks["decoded"] == checks["images"]
     assert len(checks["cells"]) > 40
     for path, value, text in checks["cells"]:
         want = _lookup(doc, path)
