@@ -25,11 +25,9 @@ from fractions import Fraction
 from pathlib import Path
 from typing import Any, Iterator
 
-import numpy as np
-
-from synth.errors import FormatError, ParameterError
+from synth.errors import ParameterError
 from synth.io import open_clip, write_y4m
-from synth.picture import ClipInfo, Picture, chroma_factors, chroma_shape
+from synth.picture import ClipInfo, Picture, chroma_factors
 
 __all__ = ["ClipView", "open_job_clip", "clip_as_y4m", "check_raw_geometry", "raw_geometry_for"]
 
