@@ -174,5 +174,5 @@ def test_rd_is_available_as_a_study_job_kind(crop_clip):
 
     kind = get_kind("rd")
     assert kind.unavailable_reason() is None
-    rows = kind.run(crop_clip, {"gap": 8, "qps": "24,30,36,42", "synthesiser": "blend", "limit": 1})
+    rows = kind.run(crop_clip, kind.resolve({"gap": 8, "qps": "24,30,36,42", "synthesiser": "blend", "limit": 1}))
     assert len(rows) == 3 * 4 and all("bits" in r and "psnr_y" in r for r in rows)
