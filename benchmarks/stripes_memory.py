@@ -93,7 +93,7 @@ def _child(mode: str, path: str, stripe_rows: int) -> dict:
 def main() -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--size", default="3840x2160")
-    ap.add_argument("--stripe-rows", type=int, nargs="+", default=[256])
+    ap.add_argument("--stripe-rows", type=int, nargs="+", default=[512])
     ap.add_argument("--no-whole", action="store_true", help="skip the whole-picture run")
     ap.add_argument("--child", nargs=3, metavar=("MODE", "Y4M", "ROWS"), help=argparse.SUPPRESS)
     ap.add_argument("--make-inputs", nargs=3, metavar=("Y4M", "W", "H"), help=argparse.SUPPRESS)

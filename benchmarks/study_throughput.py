@@ -9,7 +9,8 @@ few seconds each): measures useful parallel work. Each executor runs the study f
 folder; the aggregated ``study.json`` must be byte-identical across executors (checked). Times count
 from the first job submitted to the last record written, so a local pool's process start-up is
 included; Dask runs on a `distributed.LocalCluster` with 2 worker processes whose start-up is
-reported separately.
+reported separately, once with Dask's default worker environment (``MALLOC_TRIM_THRESHOLD_=65536``)
+and once with that variable unset.
 """
 
 from __future__ import annotations
@@ -55,19 +56,23 @@ def main() -> int:
             o = run_study(manifest, out, executor=LocalExecutor(workers))
             results[f"local, {workers} worker(s)"] = (o.ran, o.seconds, (out / "study.json").read_bytes())
         if not args.no_dask:
+            import dask
             from distributed import LocalCluster
 
-            t0 = time.perf_counter()
-            with LocalCluster(n_workers=2, processes=True, threads_per_worker=1, dashboard_address=None) as cluster:
-                start = time.perf_counter() - t0
-                with DaskExecutor(cluster.scheduler_address) as ex:
-                    out = tmp / "dask"
-                    o = run_study(manifest, out, executor=ex)
-                    results[f"dask LocalCluster, 2 workers (start-up {start:.1f} s not counted)"] = (o.ran, o.seconds, (out / "study.json").read_bytes())
+            for trim, label in (("default", "Dask's worker environment"), (None, "MALLOC_TRIM_THRESHOLD_ unset")):
+                settings = {} if trim == "default" else {"distributed.nanny.pre-spawn-environ.MALLOC_TRIM_THRESHOLD_": None}
+                t0 = time.perf_counter()
+                with dask.config.set(settings), LocalCluster(n_workers=2, processes=True, threads_per_worker=1, dashboard_address=None) as cluster:
+                    start = time.perf_counter() - t0
+                    with DaskExecutor(cluster.scheduler_address) as ex:
+                        out = tmp / f"dask-{trim}"
+                        o = run_study(manifest, out, executor=ex)
+                        results[f"dask LocalCluster, 2 workers, {label} (start-up {start:.1f} s not counted)"] = (
+                            o.ran, o.seconds, (out / "study.json").read_bytes())
         ref = next(iter(results.values()))[2]
         print(f"kind {args.kind}: {len(clips)} clips, {next(iter(results.values()))[0]} jobs")
         for name, (ran, sec, doc) in results.items():
-            print(f"{name:<58} {ran:>4} jobs in {sec:6.2f} s = {ran / sec:7.2f} jobs/s   identical: {doc == ref}")
+            print(f"{name:<92} {ran:>4} jobs in {sec:6.2f} s = {ran / sec:7.2f} jobs/s   identical: {doc == ref}")
         if any(doc != ref for _, _, doc in results.values()):
             print("aggregated results differ between executors", file=sys.stderr)
             return 1

@@ -595,6 +595,8 @@ def study(
         return
 
     executor = make_executor(workers=workers, cluster=cluster)
+    for note in executor.warnings:
+        typer.echo(f"synth: note: {note}", err=True)
     with executor, Progress(
         TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(), TextColumn("{task.fields[note]}"),
         TimeElapsedColumn(), TimeRemainingColumn(), console=console, transient=False,

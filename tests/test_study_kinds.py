@@ -70,3 +70,34 @@ def test_rd_kind_passes_the_measurement_through(clip, tmp_path):
             assert got["bd_rate"] == pytest.approx(bd[want["config"]]["bd_rate"], abs=1e-12)
     # The tables split by configuration and QP: one mean per (config, qp).
     assert {(m["config"], m["qp"]) for m in doc["means"]} == {(r["config"], r["qp"]) for r in direct.rows}
+
+
+@pytest.mark.parametrize(
+    "kind, fixed, call",
+    [
+        ("compare", 'gap = 2, predictors = "average,lmmse"', dict(gap=2, predictors="average,lmmse")),
+        ("gop", 'size = 2, predictors = "average,obmc"', dict(size=2, predictors="average,obmc")),
+    ],
+)
+def test_workbench_kinds_pass_the_rows_through(clip, tmp_path, kind, fixed, call):
+    if get_kind(kind).unavailable_reason():
+        pytest.skip(get_kind(kind).unavailable_reason())
+    import importlib
+
+    from synth.io import write_y4m
+
+    (tmp_path / "s.toml").write_text(
+        f'[[clips]]\npath = "{clip}"\nname = "dock"\npictures = [0, 2]\nwindow = [0, 0, 64, 48]\n'
+        f'[[tasks]]\nkind = "{kind}"\nfixed = {{ {fixed} }}\n'
+    )
+    outcome = run_study(load_manifest(tmp_path / "s.toml"), tmp_path / "out")
+    assert not outcome.failed, outcome.failed
+    doc = json.loads((tmp_path / "out" / "study.json").read_text())
+    view = ClipView(open_clip(clip), pictures=[0, 2], window=[0, 0, 64, 48])
+    write_y4m(tmp_path / "same.y4m", iter(view), view.info)
+    direct = getattr(importlib.import_module(f"synth.{kind}"), kind)(tmp_path / "same.y4m", **call).to_rows()
+    drop = ("seconds", "job", "kind", "clip", "pictures", "window", *call)  # timings differ run to run
+    assert [{k: v for k, v in r.items() if k not in drop} for r in doc["rows"]] == [
+        {k: v for k, v in r.items() if k not in drop} for r in direct
+    ]
+    assert {m["method"] for m in doc["means"]} == {r["method"] for r in direct}

@@ -12,9 +12,10 @@
     The encoder-in-the-loop measurement (`synth.rdmeasure.measure_clip`): rows per target picture,
     configuration and QP, with each configuration's BD-rate against the real references.
 ``compare``, ``gop``
-    Adapters around the evaluation workbench (`synth.compare`, `synth.gop`). Each one reads the
-    clip by path (a temporary ``.y4m`` when the manifest selects pictures or a window) and returns
-    the per-picture rows of the library's result.
+    Adapters around the evaluation workbench (`synth.compare.compare`, `synth.gop.gop`). Each one
+    reads the clip by path (a temporary ``.y4m`` on the worker when the manifest selects pictures or
+    a window) and returns the per-picture rows of the library's result. Their rows carry the
+    measured ``seconds`` per picture, which naturally differ from run to run.
 
 While a kind's library function is missing from the installation, the kind reports itself
 unavailable and a manifest using it is rejected before any job starts.
@@ -46,6 +47,18 @@ def _at_least(n: int) -> Callable[[Any], str | None]:
 
 def _one_of(options) -> Callable[[Any], str | None]:
     return lambda v: None if v in options else f"must be one of {', '.join(options)}"
+
+
+def _with_defaults(kind: str, params: dict) -> dict:
+    """`params` with the kind's declared defaults filled in for keys it lacks (callers that bypass
+    the manifest, e.g. tests calling ``get_kind(...).run`` directly, may pass only some keys)."""
+    from .kinds import get_kind
+
+    out = dict(params)
+    for key, spec in (get_kind(kind).params or {}).items():
+        if key not in out and spec.default is not None:
+            out[key] = spec.default
+    return out
 
 
 def _blend(past: Picture, future: Picture, *, t: float, method: str) -> Picture:
@@ -87,8 +100,8 @@ def blend_rows(clip_path, params: dict, *, progress=None) -> list[dict]:
     ParameterError
         When the clip is shorter than one gap.
     """
-    gap = int(params.get("gap", 2))
-    method = params.get("method", "linear")
+    params = _with_defaults("blend", params)
+    gap, method = int(params["gap"]), params["method"]
     with open_job_clip(clip_path, params) as clip:
         n = len(clip)
         if n <= gap:
@@ -161,6 +174,7 @@ def synthesise_rows(clip_path, params: dict, *, progress=None) -> list[dict]:
 
     from .stripes import synthesise_striped
 
+    params = _with_defaults("synthesise", params)
     gap, qp, stripe_rows = int(params["gap"]), int(params["qp"]), int(params["stripe_rows"])
     sp = SynthParams().with_changes(method=params["method"])
     with open_job_clip(clip_path, params) as clip:
@@ -230,6 +244,7 @@ def rd_rows(clip_path, params: dict, *, progress=None) -> list[dict]:
     from synth.rdmeasure import measure_clip, parse_qps
     from synth.reference_makers import maker_by_name
 
+    params = _with_defaults("rd", params)
     with open_job_clip(clip_path, params) as clip:
         result = measure_clip(
             clip.read, len(clip), clip=str(clip_path), gap=int(params["gap"]),
@@ -263,7 +278,8 @@ def _rows_of(result) -> list[dict]:
     return [dict(r) for r in rows]
 
 
-def _adapter(kind: str, module: str, name: str, issue: int, headline: tuple[str, ...], group_by: tuple[str, ...], summary: str) -> JobKind:
+def _adapter(kind: str, module: str, name: str, issue: int, *, params: dict[str, Param] | None, headline: tuple[str, ...],
+             metrics: tuple[str, ...] | None, group_by: tuple[str, ...], summary: str) -> JobKind:
     def available() -> str | None:
         if _library_function(module, name) is None:
             return f"job kind {kind!r} is not available yet: {module}.{name} is not in this installation (issue {issue})"
@@ -275,11 +291,13 @@ def _adapter(kind: str, module: str, name: str, issue: int, headline: tuple[str,
             raise KindUnavailable(available())
         options = {k: v for k, v in params.items() if k not in ("raw", "pictures", "window")}
         with clip_as_y4m(clip_path, params) as path:
-            return _rows_of(fn(path, **options))
+            rows = _rows_of(fn(path, **options))
+        return [{k: v for k, v in r.items() if k != "clip"} for r in rows]  # the study names clips itself
 
     run.__name__ = f"{kind}_rows"
     run.__doc__ = f"Run ``{module}.{name}`` on the job's clip and return its per-picture rows."
-    return JobKind(name=kind, run=run, params=None, headline=headline, group_by=group_by, summary=summary, available=available)
+    return JobKind(name=kind, run=run, params=params, headline=headline, metrics=metrics, group_by=group_by,
+                   summary=summary, available=available)
 
 
 def _rd_available() -> str | None:
@@ -333,5 +351,47 @@ register_kind(
         available=_rd_available,
     )
 )
-register_kind(_adapter("compare", "synth.compare", "compare", 6, ("psnr_y",), ("predictor",), "every predictor on every in-between picture (workbench)"))
-register_kind(_adapter("gop", "synth.gop", "gop", 6, ("psnr_y",), ("predictor",), "hierarchical GOP synthesis per temporal layer (workbench)"))
+_WORKBENCH_METRICS = ("psnr_yuv", "psnr_y", "psnr_cb", "psnr_cr", "ssim_y", "mae_y")
+
+
+def _qp_list(v) -> str | None:
+    if isinstance(v, int):
+        return None if 0 <= v <= 51 else "must be in 0..51"
+    parts = [p.strip() for p in str(v).split(",")]
+    if not parts or not all(p.isdigit() and 0 <= int(p) <= 51 for p in parts):
+        return "must be a QP 0..51 or comma-separated QPs such as \"22,32,42\""
+    return None
+
+
+def _positive(v) -> str | None:
+    return None if v >= 1 else "must be at least 1"
+
+
+register_kind(
+    _adapter(
+        "compare", "synth.compare", "compare", 6,
+        params={
+            "gap": Param((int,), 8, _at_least(2), "distance between the two references"),
+            "predictors": Param((str,), None, None, "comma-separated predictor names (default: all)"),
+            "vector_qp": Param((int, str), None, _qp_list, "QP(s) of the estimated vectors"),
+            "frames": Param((int,), None, _positive, "use only the first N pictures"),
+        },
+        headline=("psnr_yuv",), metrics=_WORKBENCH_METRICS, group_by=("method",),
+        summary="every predictor on every in-between picture (workbench)",
+    )
+)
+register_kind(
+    _adapter(
+        "gop", "synth.gop", "gop", 6,
+        params={
+            "size": Param((int,), 16, _one_of((2, 4, 8, 16, 32, 64)), "GOP size"),
+            "flat": Param((bool,), None, None, "synthesise every picture straight from the anchors"),
+            "decoded_refs": Param((int,), None, _int_range(0, 51), "references after an H.264 encode at this QP"),
+            "predictors": Param((str,), None, None, "comma-separated predictor names (default: all)"),
+            "vector_qp": Param((int, str), None, _qp_list, "QP(s) of the estimated vectors"),
+            "frames": Param((int,), None, _positive, "use only the first N pictures"),
+        },
+        headline=("psnr_yuv",), metrics=_WORKBENCH_METRICS, group_by=("method", "layer"),
+        summary="hierarchical GOP synthesis per temporal layer (workbench)",
+    )
+)
