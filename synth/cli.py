@@ -187,16 +187,29 @@ def frame(
     qp: int = typer.Option(27, "--qp", help="QP of the motion estimator when vectors are estimated."),
     two_way: bool = typer.Option(False, "--two-way", help="Estimate vectors in both coding directions."),
     as_json: bool = typer.Option(False, "--json", help="Print the summary as JSON."),
+    # issue 5: corrective offsets on the synthesised picture
+    offsets_out: Optional[Path] = typer.Option(None, "--offsets", help="Also search corrective block offsets against picture --at and write them (JSON)."),
+    offset_block: int = typer.Option(16, "--block", help="Offset block size in luma samples (with --offsets)."),
+    offset_window: int = typer.Option(2, "--window", help="Offset search range in luma samples, quarter-pel steps (with --offsets)."),
 ) -> None:
     """Synthesise one picture between two pictures of a clip from the vectors coded between them."""
     from .frame_job import run_frame
     from .params import SynthParams
 
+    if offsets_out is not None and at is None:  # issue 5
+        raise SynthError("--offsets needs --at (the true picture is the target of the offset search)")
     p = SynthParams.load(params) if params is not None else None
     summary = run_frame(
         clip, past=past, future=future, at=at, t=t, output=output, field_path=field, params=p,
         maps_dir=maps, qp=qp, two_way=two_way, method=method,
     )  # fmt: skip
+    if offsets_out is not None:  # issue 5
+        from .offsets_job import offsets_for_frame
+
+        summary["offsets"] = offsets_for_frame(
+            clip, at=at, synthetic_path=output, output=offsets_out, past=past, future=future,
+            block=offset_block, window=offset_window, qp=qp,
+        )  # fmt: skip
     if as_json:
         _print_json(summary)
         return
@@ -212,6 +225,13 @@ def frame(
     typer.echo(f"written        {summary['output']}")
     for m in summary["maps"]:
         typer.echo(f"map            {m}")
+    if summary.get("offsets"):  # issue 5
+        o = summary["offsets"]
+        typer.echo(
+            f"offsets        {o['blocks']} blocks of {o['block']}, {100 * o['zero_share']:.0f} % zero, {o['bits_total']} bits "
+            f"({o['bits_per_block']:.2f}/block); PSNR-Y {o['psnr_before']['Y']:.2f} -> {o['psnr_after']['Y']:.2f} dB"
+        )
+        typer.echo(f"written        {o['output']}")
 
 
 # =============================================================================================

@@ -170,3 +170,24 @@ def test_export_with_vector_based_makers_names_the_fields_used(crop_clip, tmp_pa
     assert first["fields"] and first["fields"][0]["coded_time"] == first["future"]
     assert first["fields"][0]["reference_time"] == first["past"] and first["fields"][0]["qp"] == 32
 
+
+
+def test_frame_command_searches_offsets_on_its_synthesised_picture(crop_clip, tmp_path):
+    out, off = tmp_path / "f.y4m", tmp_path / "off.json"
+    r = runner.invoke(
+        app,
+        ["frame", str(crop_clip), "--past", "0", "--future", "8", "--at", "4", "-o", str(out),
+         "--offsets", str(off), "--block", "8", "--window", "1", "--json"],
+    )
+    assert r.exit_code == 0, r.output
+    field, doc = read_offsets(off)
+    assert len(field) == 64 and field.coded_time == 4.0 and doc["search"]["window"] == 1
+    # the offsets were searched on exactly the picture `frame` wrote, against the true picture 4
+    from synth.offsets import refine_with_offsets
+
+    with Y4MReader(out) as syn, open_clip(crop_clip) as clip:
+        again = refine_with_offsets(clip.read(4), syn.read(0), block=8, window=1, qp=27)
+    np.testing.assert_array_equal(field.dx, again.field.dx)
+    assert doc["statistics"]["bits_total"] == again.stats.bits_total
+    bad = runner.invoke(app, ["frame", str(crop_clip), "--past", "0", "--future", "8", "--t", "0.5", "-o", str(out), "--offsets", str(off)])
+    assert bad.exit_code == 2 and "--offsets needs --at" in bad.output
