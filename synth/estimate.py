@@ -246,8 +246,8 @@ def endpoint_agreement_stats(past_patches: np.ndarray, future_patches: np.ndarra
     -------
     ndarray of float32, shape (n,), in [0, 1]
     """
-    a = past_patches.astype(np.float32)
-    b = future_patches.astype(np.float32)
+    a = past_patches.astype(np.float32, copy=False)
+    b = future_patches.astype(np.float32, copy=False)
     m = np.float32(1.0 / a.shape[1])
     diff = a - b
     mse = np.einsum("ij,ij->i", diff, diff) * m

@@ -184,18 +184,17 @@ class _Synthesiser:
         self.kappa = (landed.future_time - landed.target_time) / (landed.past_time - landed.target_time)
         search = CandidateSearch(landed, height=self.H, width=self.W, k=k, group=self.g, reach=params.reach)
         self.g_row0, g_row1 = group_rows
-        jobs = [pool.submit(search.for_group_rows, self.g_row0, g_row1)]
-        jobs.append(pool.submit(self._agreement, past.y.astype(np.float32), future.y.astype(np.float32)))
+        query = pool.submit(search.for_group_rows, self.g_row0, g_row1)
 
         def sampler(item):
             index, plane = item
-            return PlaneSampler(plane, interpolation=params.interpolation, bit_depth=past.bit_depth, chroma=index > 0)
+            return PlaneSampler(plane, interpolation=params.interpolation, chroma=index > 0)
 
         pairs = [(i, pl) for i, pair in enumerate(zip(past.planes, future.planes)) for pl in pair]
         flat = list(pool.map(sampler, pairs))
         self.samplers = [(flat[2 * i], flat[2 * i + 1]) for i in range(len(flat) // 2)]
-        self.idx = jobs[0].result()  # (rows, cols, K)
-        rho = jobs[1].result()
+        rho = self._agreement()
+        self.idx = query.result()  # (rows, cols, K)
         self._cols = {
             "cx": landed.cx,
             "cy": landed.cy,
@@ -209,13 +208,12 @@ class _Synthesiser:
         }
 
     # -- per-vector endpoint agreement ----------------------------------------------------------
-    def _agreement(self, past_y: np.ndarray, future_y: np.ndarray) -> np.ndarray:
+    def _agreement(self) -> np.ndarray:
         rho = np.zeros(len(self.landed), np.float32)
         scale = float(1 << (self.bit_depth - 8)) ** 2
         floor = self.p.agreement_floor * scale
-        for index, a, b in endpoint_patches(
-            past_y, future_y, self.landed, margin=self.p.agreement_margin, interpolation=self.p.interpolation
-        ):
+        sp, sf = self.samplers[0]
+        for index, a, b in endpoint_patches(sp, sf, self.landed, margin=self.p.agreement_margin):
             rho[index] = endpoint_agreement_stats(a, b, floor=floor)
         return rho
 
@@ -365,17 +363,22 @@ class _Synthesiser:
         )
         sx, sy = np.float32(scale / fx), np.float32(scale / fy)
         est = np.zeros((Pr, Pc), np.float32)
+        kappa = np.float32(self.kappa)  # d_future = kappa * d_past for every vector
         for k in range(self.k):
-            for coefs, active, dx, dy, sampler in ((A, act_a, "dpx", "dpy", sp), (B, act_b, "dfx", "dfy", sf)):
-                if not active[k].any():
-                    continue
-                # group displacement, repeated over the group's columns, broadcast over its rows
-                mx = base_x + np.repeat((col[dx][k] * sx).reshape(Gr, Gx), rx, axis=1)[:, None, :]
-                my = base_y + np.repeat((col[dy][k] * sy).reshape(Gr, Gx), rx, axis=1)[:, None, :]
-                obs = sampler.sample_raw(mx.reshape(Pr, Pc), my.reshape(Pr, Pc))
-                cv2.accumulateProduct(obs, coefs[k], est)
-        total = A.sum(axis=0) + B.sum(axis=0)
-        return sp.finish(est, total)
+            use_a, use_b = act_a[k].any(), act_b[k].any()
+            if not (use_a or use_b):
+                continue
+            # group displacement repeated over the group's columns (broadcast over its rows below)
+            rx_k = np.repeat((col["dpx"][k] * sx).reshape(Gr, Gx), rx, axis=1)[:, None, :]
+            ry_k = np.repeat((col["dpy"][k] * sy).reshape(Gr, Gx), rx, axis=1)[:, None, :]
+            if use_a:
+                obs = sp.sample_xy((base_x + rx_k).reshape(Pr, Pc), (base_y + ry_k).reshape(Pr, Pc))
+                cv2.accumulateProduct(obs, A[k], est)
+            if use_b:
+                fx_k, fy_k = rx_k * kappa, ry_k * kappa
+                obs = sf.sample_xy((base_x + fx_k).reshape(Pr, Pc), (base_y + fy_k).reshape(Pr, Pc))
+                cv2.accumulateProduct(obs, B[k], est)
+        return est
 
 
 def synthesise_with_maps(
