@@ -120,6 +120,21 @@ def _check_inputs(past: Picture, future: Picture, fields: list[VectorField], t: 
         raise ParameterError(f"t must lie strictly between 0 and 1, got {t!r}")
 
 
+def _check_reach(landed: LandedVectors, width: int, height: int) -> None:
+    """Every endpoint must lie within one picture size of the picture (vectors out of range are bad
+    input, not motion)."""
+    for side, dx, dy in (("past", landed.past_dx, landed.past_dy), ("future", landed.future_dx, landed.future_dy)):
+        x = landed.cx + dx
+        y = landed.cy + dy
+        bad = (x < -width) | (x > 2 * width) | (y < -height) | (y > 2 * height) | ~np.isfinite(x) | ~np.isfinite(y)
+        if bad.any():
+            i = int(np.flatnonzero(bad)[0])
+            raise ParameterError(
+                f"fields[{landed.field[i]}] block {landed.block[i]}: its {side} endpoint ({x[i]:.1f}, {y[i]:.1f}) lies "
+                f"more than a picture size outside the {width}x{height} picture (vector out of range)"
+            )
+
+
 def _both_directions(fields: list[VectorField]) -> bool:
     signs = {f.span > 0 for f in fields}
     return len(signs) == 2
@@ -445,6 +460,7 @@ def synthesise_with_maps(
     pt = dpt if past_time is None else past_time
     ft = dft if future_time is None else future_time
     landed = project_fields(fields, past_time=pt, future_time=ft, t=float(t))
+    _check_reach(landed, past.width, past.height)
     H, W = past.height, past.width
     fx, fy = (1, 1) if past.chroma_format == "mono" else past.chroma_factors
     if rows is None:

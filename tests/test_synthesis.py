@@ -170,6 +170,9 @@ def test_bad_inputs_raise_parameter_errors():
         synthesise(past, future, field, t=0.5, params={"candidates": 4})
     with pytest.raises(ParameterError, match="workers"):
         synthesise(past, future, field, t=0.5, workers=0)
+    far = VectorField.uniform_grid(W, H, block=16, coded_time=2, reference_time=0, dx=-4 * 4 * W, dy=0)
+    with pytest.raises(ParameterError, match=r"block 0: its past endpoint .* \(vector out of range\)"):
+        synthesise(past, future, far, t=0.5)
 
 
 @pytest.mark.parametrize(
