@@ -145,8 +145,13 @@ def summarise(rows, variants):
     out = []
     for (clip, gap), rs in table.items():
         out.append({"clip": clip, "gap": gap, "n": len(rs), **{v: float(np.mean([r[v] for r in rs])) for v in variants}})
-    overall = {"clip": "MEAN", "gap": "-", "n": len(rows), **{v: float(np.mean([o[v] for o in out])) for v in variants}}
-    out.append(overall)
+    cells = list(out)
+    groups = {"MEAN demo clips": lambda c: c.endswith(".y4m"), "MEAN real footage": lambda c: not c.endswith(".y4m")}
+    for name, sel in groups.items():
+        part = [o for o in cells if sel(o["clip"])]
+        if part and len(part) < len(cells):
+            out.append({"clip": name, "gap": "-", "n": sum(o["n"] for o in part), **{v: float(np.mean([o[v] for o in part])) for v in variants}})
+    out.append({"clip": "MEAN", "gap": "-", "n": len(rows), **{v: float(np.mean([o[v] for o in cells])) for v in variants}})
     return out
 
 

