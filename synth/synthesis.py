@@ -221,6 +221,8 @@ class _Synthesiser:
             "dfy": landed.future_dy,
             "srho": link_correlation(rho).astype(np.float32),
         }
+        if len(landed) == 0:  # no vector at all (e.g. all blocks intra): one dummy entry, never valid
+            self._cols = {name: np.zeros(1, np.float32) for name in self._cols}
 
     # -- per-vector endpoint agreement ----------------------------------------------------------
     def _agreement(self) -> np.ndarray:

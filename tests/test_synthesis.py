@@ -215,3 +215,27 @@ def test_parameter_file_round_trip(tmp_path):
     path.write_text("{not json")
     with pytest.raises(FormatError, match="not valid JSON"):
         SynthParams.load(path)
+
+
+def test_odd_sizes_and_a_field_without_vectors():
+    # sizes that are no multiple of the group or band; every block intra -> co-located average
+    rgb = data.astronaut()[:77, :101].astype(np.float64) / 255
+    past = rgb_to_picture(rgb, chroma_format="444")
+    future = rgb_to_picture(np.roll(rgb, 3, axis=1), chroma_format="444")
+    rng = np.random.default_rng(2)
+    xs, ys = np.meshgrid(np.arange(0, 101, 8), np.arange(0, 77, 8))
+    field = VectorField.from_arrays(
+        width=101, height=77, coded_time=1, reference_time=0, x=xs.ravel(), y=ys.ravel(),
+        w=np.minimum(8, 101 - xs.ravel()), h=np.minimum(8, 77 - ys.ravel()), dx=-12, dy=rng.integers(-2, 2, xs.size),
+    )
+    whole = synthesise(past, future, field, t=0.5)
+    assert whole.y.shape == (77, 101)
+    assert np.array_equal(synthesise(past, future, field, t=0.5, rows=(13, 77)).y, whole.y[13:])
+    intra = VectorField.from_arrays(
+        width=101, height=77, coded_time=1, reference_time=0, x=[0], y=[0], w=101, h=77, dx=0, dy=0, intra=[True],
+        gaps_allowed=True,
+    )
+    res = synthesise_with_maps(past, future, intra, t=0.5)
+    for p, a, b in zip(res.picture.planes, past.planes, future.planes):
+        np.testing.assert_array_equal(p, np.floor((a.astype(np.float64) + b) / 2 + 0.5))
+    assert np.all(res.maps["candidates"] == 0) and np.all(res.maps["confidence"] == 0)
