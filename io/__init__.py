@@ -1,8 +1,19 @@
-"""File input and output for synth: clips, pictures and (later) vector fields.
+"""File input and output for synth: clips, pictures and vector fields.
 
 This package lives in the repository's ``io/`` folder and installs as ``synth.io`` (a top-level
 package named ``io`` would shadow Python's standard library). It knows files and bytes, nothing
 about motion or estimation.
+
+Formats (chosen from the file name by `open_clip` and `write_clip`):
+
+- ``*.y4m``: YUV4MPEG2, any chroma format and bit depth (`Y4MReader`, `write_y4m`);
+- ``*.yuv``: raw planar, geometry from the caller or the file name (`RawYUVReader`, `write_yuv`);
+- ``*.png`` or a pattern such as ``frame_%03d.png``: image sequence, PNG 8/16-bit and other stills,
+  BT.601 or BT.709 conversion (`ImageSequenceReader`, `write_images`);
+- anything else: any video OpenCV decodes, read only, 4:2:0 8-bit (`VideoReader`).
+
+Vector fields: ``*.json`` (versioned, readable) and ``*.npz`` through `write_fields` / `read_fields`,
+CSV export with `fields_to_csv` (see :mod:`synth.io.fields`).
 """
 
 from __future__ import annotations
@@ -11,22 +22,38 @@ import os
 from pathlib import Path
 from typing import Iterable, Protocol
 
-from synth.errors import FormatError
+from synth.errors import FormatError, ParameterError
 from synth.picture import ClipInfo, Picture
 
 from .atomic import atomic_output, atomic_write_bytes, atomic_write_text
+from .colour import MATRICES, picture_to_rgb, rgb_to_picture, rgb_to_ycbcr420
 from .fields import fields_to_csv, read_fields, write_fields
-from .video import VideoReader, rgb_to_ycbcr420
-from .y4m import Y4MReader, write_y4m
+from .images import ImageSequenceReader, is_image_pattern, write_images
+from .rawyuv import RawYUVReader, geometry_from_name, parse_size, write_yuv
+from .video import VideoReader
+from .y4m import Y4MReader, format_y4m_header, parse_y4m_header, write_y4m
 
 __all__ = [
     "ClipReader",
     "open_clip",
     "write_clip",
+    "clip_kind",
+    "describe_kind",
     "Y4MReader",
+    "RawYUVReader",
+    "ImageSequenceReader",
     "VideoReader",
     "write_y4m",
+    "write_yuv",
+    "write_images",
+    "parse_y4m_header",
+    "format_y4m_header",
+    "parse_size",
+    "geometry_from_name",
+    "rgb_to_picture",
+    "picture_to_rgb",
     "rgb_to_ycbcr420",
+    "MATRICES",
     "atomic_output",
     "atomic_write_bytes",
     "atomic_write_text",
@@ -38,32 +65,111 @@ __all__ = [
 
 
 class ClipReader(Protocol):
-    """What every clip reader offers: metadata, length, random access and iteration."""
+    """What every clip reader offers: metadata, length, random access, iteration, closing."""
 
     info: ClipInfo
 
     def __len__(self) -> int: ...
     def read(self, index: int) -> Picture: ...
     def close(self) -> None: ...
+    def __enter__(self): ...
+    def __exit__(self, *exc) -> None: ...
+
+
+#: Options each kind of reader accepts through `open_clip`.
+_OPTIONS = {
+    "y4m": {"check_range"},
+    "yuv": {"width", "height", "size", "chroma_format", "bit_depth", "frame_rate", "check_range"},
+    "images": {"matrix", "chroma_format", "bit_depth", "frame_rate"},
+    "video": {"matrix", "cache_frames"},
+}
+_DESCRIPTIONS = {
+    "y4m": "YUV4MPEG2",
+    "yuv": "raw planar YUV",
+    "images": "image sequence",
+    "video": "compressed video (OpenCV decode)",
+}
+
+
+def clip_kind(path: str | os.PathLike) -> str:
+    """The kind of clip a file name names: 'y4m', 'yuv', 'images' or 'video'."""
+    suffix = Path(str(path)).suffix.lower()
+    if suffix == ".y4m":
+        return "y4m"
+    if suffix == ".yuv":
+        return "yuv"
+    if is_image_pattern(path):
+        return "images"
+    return "video"
+
+
+def describe_kind(kind: str) -> str:
+    """Human name of a clip kind."""
+    return _DESCRIPTIONS[kind]
 
 
 def open_clip(path: str | os.PathLike, **options) -> ClipReader:
     """Open a clip for reading, choosing the reader from the file name.
 
-    ``.y4m`` is read as YUV4MPEG2; anything else is handed to OpenCV's decoder (mp4 and the like).
+    Parameters
+    ----------
+    path : path-like
+        ``.y4m`` (YUV4MPEG2), ``.yuv`` (raw planar), an image file or printf-style image pattern
+        (``frame_%03d.png``), or any video OpenCV decodes.
+    **options
+        Passed to the reader. Options that do not apply to the reader (e.g. ``size`` for a
+        ``.y4m``) raise `ParameterError`; options given as None are dropped, so a command line
+        can pass all of its options through.
+
+    Returns
+    -------
+    ClipReader
+        Use it as a context manager, or call ``close()``.
+
+    Raises
+    ------
+    FormatError
+        Missing, empty or malformed file (see each reader).
+    ParameterError
+        Options the reader does not take, or bad option values.
     """
-    path = Path(path)
-    if not path.exists():
-        raise FormatError(f"{path}: no such file")
-    suffix = path.suffix.lower()
-    if suffix == ".y4m":
-        return Y4MReader(path)
-    return VideoReader(path, **options)
+    options = {k: v for k, v in options.items() if v is not None}
+    kind = clip_kind(path)
+    unknown = sorted(set(options) - _OPTIONS[kind])
+    if unknown:
+        raise ParameterError(
+            f"{path}: {', '.join(unknown)} does not apply to a {_DESCRIPTIONS[kind]} file"
+        )
+    if kind == "images":
+        return ImageSequenceReader(path, **options)
+    p = Path(path)
+    if not p.exists():
+        raise FormatError(f"{p}: no such file")
+    if kind == "y4m":
+        return Y4MReader(p, **options)
+    if kind == "yuv":
+        return RawYUVReader(p, **options)
+    return VideoReader(p, **options)
 
 
-def write_clip(path: str | os.PathLike, pictures: Iterable[Picture], info: ClipInfo | None = None) -> int:
-    """Write pictures to a clip file, atomically; the format follows the file name."""
-    path = Path(path)
-    if path.suffix.lower() == ".y4m":
+def write_clip(path: str | os.PathLike, pictures: Iterable[Picture], info: ClipInfo | None = None, **options) -> int:
+    """Write pictures to a clip file, atomically; the format follows the file name.
+
+    ``.y4m`` (`write_y4m`), ``.yuv`` (`write_yuv`) or a ``.png`` pattern with a ``%d`` field
+    (`write_images`; takes ``matrix`` and ``start``). Returns the number of pictures written.
+
+    Raises
+    ------
+    FormatError
+        A kind of file that cannot be written, or pictures the format cannot hold.
+    """
+    kind = clip_kind(path)
+    if kind == "images":
+        return write_images(path, pictures, info, **options)
+    if options:
+        raise ParameterError(f"{path}: writing {_DESCRIPTIONS.get(kind, kind)} takes no options, got {', '.join(options)}")
+    if kind == "y4m":
         return write_y4m(path, pictures, info)
-    raise FormatError(f"{path}: cannot write this kind of file (use .y4m)")
+    if kind == "yuv":
+        return write_yuv(path, pictures, info)
+    raise FormatError(f"{path}: cannot write this kind of file (use .y4m, .yuv or a .png pattern such as f_%04d.png)")

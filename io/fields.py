@@ -43,7 +43,7 @@ import numpy as np
 
 from synth.errors import FormatError, ParameterError
 from synth.field import VectorField
-from synth.field_checks import COLUMNS, check_picture_size, field_from_columns
+from synth.field_checks import COLUMNS, check_picture_size, field_from_columns, validate_field
 
 from .atomic import atomic_output, atomic_write_text
 
@@ -69,6 +69,10 @@ def _as_list(fields) -> list[VectorField]:
             raise ParameterError(
                 f"fields[{i}] is for {f.width}x{f.height} pictures, fields[0] for {w}x{h}: one file holds one picture size"
             )
+        try:  # never write a file that would not read back
+            validate_field(f, label=f"fields[{i}]")
+        except FormatError as exc:
+            raise ParameterError(str(exc)) from None
     return fields
 
 
@@ -133,7 +137,8 @@ def write_fields(path: str | os.PathLike, fields: VectorField | Iterable[VectorF
     FormatError
         Unknown suffix.
     ParameterError
-        No fields, or fields of different picture sizes.
+        No fields, fields of different picture sizes, or a field breaking a rule of
+        :mod:`synth.field_checks` (the file would not read back).
     """
     path = Path(path)
     kind = _suffix(path)

@@ -1,114 +1,175 @@
 """Read-only access to any video OpenCV can decode (mp4 and the like), as 4:2:0 8-bit pictures.
 
-Decoded BGR frames are converted to Y'CbCr with the BT.601 matrix (ITU-R BT.601-7, studio range:
-Y' in 16..235, Cb/Cr in 16..240) by default, or BT.709 (ITU-R BT.709-6) on request; chroma is
-subsampled 2:1 both ways by averaging each 2x2 block (centre siting, as ``420jpeg``).
+Decoded frames are converted from R'G'B' to studio-range Y'CbCr with the ITU-R BT.601-7 matrix by
+default, or ITU-R BT.709-6 on request, and chroma is subsampled 2:1 both ways by averaging each
+2x2 block (centre siting, as ``420jpeg``); see `synth.io.colour`. Odd sizes are cropped to even.
+
+Compressed streams decode forwards: the reader keeps one decoder open and a small cache of
+converted pictures, so sequential reads decode each frame once and nearby random reads are cheap;
+reading an earlier frame than the decoder's position restarts decoding from the first frame.
 """
 
 from __future__ import annotations
 
+import operator
 import os
+from collections import OrderedDict
 from fractions import Fraction
 from pathlib import Path
 from typing import Iterator
 
 import cv2
-import numpy as np
 
 from synth.errors import FormatError, ParameterError
 from synth.picture import ClipInfo, Picture
 
+from .colour import MATRICES, check_matrix, rgb_to_ycbcr420
+from .planar import frame_index
+
 __all__ = ["VideoReader", "rgb_to_ycbcr420", "MATRICES"]
-
-#: Luma coefficients (Kr, Kb) of the supported matrices.
-MATRICES: dict[str, tuple[float, float]] = {"601": (0.299, 0.114), "709": (0.2126, 0.0722)}
-
-
-def rgb_to_ycbcr420(bgr: np.ndarray, matrix: str = "601") -> Picture:
-    """Convert an 8-bit BGR image (OpenCV order) to a 4:2:0 8-bit studio-range picture.
-
-    Parameters
-    ----------
-    bgr : ndarray of uint8, shape (height, width, 3)
-    matrix : {'601', '709'}
-        ITU-R BT.601 or BT.709 luma coefficients.
-    """
-    if matrix not in MATRICES:
-        raise ParameterError(f"matrix must be 601 or 709, got {matrix!r}")
-    kr, kb = MATRICES[matrix]
-    kg = 1.0 - kr - kb
-    h, w = bgr.shape[:2]
-    if h % 2 or w % 2:
-        bgr = bgr[: h - h % 2, : w - w % 2]
-    f = bgr.astype(np.float32) / 255.0
-    b, g, r = f[..., 0], f[..., 1], f[..., 2]
-    y = kr * r + kg * g + kb * b
-    cb = (b - y) / (2.0 * (1.0 - kb))
-    cr = (r - y) / (2.0 * (1.0 - kr))
-    Y = 16.0 + 219.0 * y
-
-    def down(c: np.ndarray) -> np.ndarray:
-        c = 128.0 + 224.0 * c
-        return 0.25 * (c[0::2, 0::2] + c[1::2, 0::2] + c[0::2, 1::2] + c[1::2, 1::2])
-
-    return Picture.from_float((Y, down(cb), down(cr)), chroma_format="420", bit_depth=8)
 
 
 class VideoReader:
     """Frames of a compressed video file decoded by OpenCV, converted to 4:2:0 8-bit.
 
-    Random access decodes sequentially from the start (compressed streams rarely allow better);
-    decoded pictures are cached per index so repeated access is cheap.
+    Parameters
+    ----------
+    path : path-like
+    matrix : {'601', '709'}, keyword-only
+        Conversion matrix (ITU-R BT.601-7 or BT.709-6).
+    cache_frames : int, keyword-only
+        Converted pictures kept for repeated access (least recently used dropped first).
+
+    Raises
+    ------
+    FormatError
+        Missing file, or one OpenCV cannot open or decode a single frame of.
+
+    Notes
+    -----
+    The frame count is found by decoding the stream once (container counts are often wrong);
+    it is done lazily, on the first `len()`.
     """
 
-    def __init__(self, path: str | os.PathLike, *, matrix: str = "601"):
+    def __init__(self, path: str | os.PathLike, *, matrix: str = "601", cache_frames: int = 16):
         self.path = Path(path)
         if not self.path.exists():
             raise FormatError(f"{self.path}: no such file")
-        if matrix not in MATRICES:
-            raise ParameterError(f"matrix must be 601 or 709, got {matrix!r}")
-        self.matrix = matrix
-        cap = cv2.VideoCapture(str(self.path))
-        if not cap.isOpened():
-            raise FormatError(f"{self.path}: OpenCV cannot decode this file")
-        fps = cap.get(cv2.CAP_PROP_FPS) or 25.0
-        frames = []
-        while True:
-            ok, bgr = cap.read()
-            if not ok:
-                break
-            frames.append(bgr)
-        cap.release()
-        if not frames:
-            raise FormatError(f"{self.path}: no decodable frames")
-        self._bgr = frames
-        h, w = frames[0].shape[:2]
+        if self.path.is_dir():
+            raise FormatError(f"{self.path}: is a directory, not a clip")
+        if self.path.stat().st_size == 0:
+            raise FormatError(f"{self.path}: file is empty")
+        self.matrix = check_matrix(matrix)
+        if int(cache_frames) < 1:
+            raise ParameterError(f"cache_frames must be >= 1, got {cache_frames!r}")
+        self._cache_size = int(cache_frames)
+        self._cache: OrderedDict[int, Picture] = OrderedDict()
+        self._cap = None
+        self._pos = 0  # index of the frame the open decoder returns next
+        self._count: int | None = None
+        self._open()
+        first = self._next_bgr()
+        if first is None:
+            self.close()
+            raise FormatError(f"{self.path}: OpenCV decodes no frame of this file")
+        self._remember(0, rgb_to_ycbcr420(first, self.matrix))
+        fps = self._cap.get(cv2.CAP_PROP_FPS) or 25.0
+        h, w = first.shape[:2]
         self.info = ClipInfo(
             width=w - w % 2,
             height=h - h % 2,
             chroma_format="420",
             bit_depth=8,
-            frame_count=len(frames),
+            frame_count=0,
             frame_rate=Fraction(fps).limit_denominator(1001),
-            container=self.path.suffix.lstrip(".") or "video",
+            container=self.path.suffix.lstrip(".").lower() or "video",
             chroma_siting="420jpeg",
         )
 
+    # -- decoder ---------------------------------------------------------------------------------
+    def _open(self) -> None:
+        if self._cap is not None:
+            self._cap.release()
+        cap = cv2.VideoCapture(str(self.path))
+        if not cap.isOpened():
+            cap.release()
+            raise FormatError(f"{self.path}: OpenCV cannot open this file as a video")
+        self._cap = cap
+        self._pos = 0
+
+    def _next_bgr(self):
+        ok, bgr = self._cap.read()
+        if not ok:
+            return None
+        self._pos += 1
+        return bgr
+
+    def _remember(self, index: int, pic: Picture) -> None:
+        self._cache[index] = pic
+        self._cache.move_to_end(index)
+        while len(self._cache) > self._cache_size:
+            self._cache.popitem(last=False)
+
+    # -- public ----------------------------------------------------------------------------------
     def __len__(self) -> int:
-        return len(self._bgr)
+        if self._count is None:
+            cap = cv2.VideoCapture(str(self.path))
+            n = 0
+            while cap.grab():
+                n += 1
+            cap.release()
+            self._count = n
+            self.info.frame_count = n
+        return self._count
 
     def read(self, index: int) -> Picture:
-        n = len(self._bgr)
-        if not -n <= index < n:
-            raise FormatError(f"{self.path}: frame index {index} out of range (clip has {n} frames)")
-        return rgb_to_ycbcr420(self._bgr[index], self.matrix)
+        """Frame `index` (negative counts from the end, which needs the frame count)."""
+        try:
+            i = operator.index(index)
+        except TypeError:
+            raise ParameterError(f"{self.path}: frame index must be an integer, got {index!r}") from None
+        if i < 0 or self._count is not None:
+            i = frame_index(i, len(self), source=str(self.path))
+        if i in self._cache:
+            self._cache.move_to_end(i)
+            return self._cache[i]
+        if self._cap is None:
+            raise FormatError(f"{self.path}: reader is closed")
+        if i < self._pos:
+            self._open()
+        while self._pos <= i:
+            at = self._pos
+            bgr = self._next_bgr()
+            if bgr is None:
+                self._count = at if self._count is None else self._count
+                self.info.frame_count = self._count
+                raise FormatError(f"{self.path}: frame index {i} out of range (clip has {self._count} frames)")
+            if at == i:
+                pic = rgb_to_ycbcr420(bgr, self.matrix)
+                if (pic.width, pic.height) != (self.info.width, self.info.height):
+                    raise FormatError(f"{self.path}: frame {at} is {pic.width}x{pic.height}, unlike frame 0")
+                self._remember(at, pic)
+        return self._cache[i]
 
     def __iter__(self) -> Iterator[Picture]:
-        for i in range(len(self)):
-            yield self.read(i)
+        i = 0
+        while True:
+            if self._count is not None and i >= self._count:
+                return
+            try:
+                pic = self.read(i)
+            except FormatError:
+                if self._count is not None and i >= self._count:
+                    return
+                raise
+            yield pic
+            i += 1
 
     def close(self) -> None:
-        self._bgr = []
+        if self._cap is not None:
+            self._cap.release()
+            self._cap = None
+        self._cache.clear()
 
     def __enter__(self) -> "VideoReader":
         return self

@@ -19,6 +19,12 @@ from .synthesis import SynthesisResult, synthesise, synthesise_with_maps
 from .bdrate import bd_psnr, bd_rate
 from .encode import encode_pictures
 from .offsets import refine_with_offsets
+# -- evaluation workbench (issue 6) --
+from .compare import compare_clip
+from .gop import run_gop
+from .metrics import picture_metrics, ssim, weighted_psnr
+from .predictors import PREDICTORS, Prediction, Predictor, get_predictor
+from .report import write_report
 
 __version__ = "0.1.0"
 
@@ -43,4 +49,15 @@ __all__ = [
     "bd_rate",
     "bd_psnr",
     "encode_pictures",
+    # evaluation workbench (issue 6)
+    "PREDICTORS",
+    "Prediction",
+    "Predictor",
+    "get_predictor",
+    "compare_clip",
+    "run_gop",
+    "write_report",
+    "picture_metrics",
+    "ssim",
+    "weighted_psnr",
 ]

@@ -72,25 +72,57 @@ def _print_json(obj) -> None:
 # =============================================================================================
 
 
+_INFO_LABELS = {
+    "file": "file",
+    "format": "format",
+    "width": "width",
+    "height": "height",
+    "frames": "frames",
+    "chroma_format": "chroma",
+    "bit_depth": "bit depth",
+    "frame_rate": "frame rate",
+    "interlacing": "interlacing",
+    "chroma_siting": "chroma siting",
+    "pixel_aspect": "pixel aspect",
+}
+
+
 @app.command()
 def info(
-    clip: Path = typer.Argument(..., help="Clip file (.y4m, or any video OpenCV decodes)."),
-    frame: int = typer.Option(0, "--frame", "-f", help="Frame whose plane statistics are shown."),
+    clip: Path = typer.Argument(
+        ..., help="Clip: .y4m, raw .yuv, image pattern (frame_%03d.png) or any video OpenCV decodes."
+    ),
+    frame: int = typer.Option(0, "--frame", "-f", help="Frame whose plane statistics are shown (negative: from the end)."),
     as_json: bool = typer.Option(False, "--json", help="Print JSON instead of a table."),
+    size: Optional[str] = typer.Option(None, "--size", help="Raw .yuv only: WIDTHxHEIGHT (else taken from the file name)."),
+    chroma: Optional[str] = typer.Option(None, "--chroma", help="Raw .yuv / images: 420, 422, 444 or mono."),
+    bit_depth: Optional[int] = typer.Option(None, "--bit-depth", help="Raw .yuv / images: bits per sample, 8..16."),
+    fps: Optional[float] = typer.Option(None, "--fps", help="Raw .yuv / images: frame rate to report."),
+    matrix: Optional[str] = typer.Option(None, "--matrix", help="Images / compressed video: R'G'B' to Y'CbCr matrix, 601 (default) or 709."),
 ) -> None:
-    """Show a clip's format, size, frame count and one frame's plane statistics."""
-    from .clipinfo import describe_clip
+    """Show a clip's format, size, frame count, sample format, frame rate and one frame's plane statistics."""
+    from .clipinfo import CHROMA_NAMES, describe_clip
 
-    desc = describe_clip(clip, frame=frame)
+    desc = describe_clip(
+        clip, frame=frame, size=size, chroma_format=chroma, bit_depth=bit_depth, frame_rate=fps, matrix=matrix
+    )
     if as_json:
         _print_json(desc)
         return
-    for key, value in desc.items():
-        if key == "planes":
-            for name, st in value.items():
-                typer.echo(f"  {name:<3} min {st['min']:>6}  max {st['max']:>6}  mean {st['mean']:10.3f}")
-        else:
-            typer.echo(f"{key:<14} {value}")
+    for key, label in _INFO_LABELS.items():
+        value = desc[key]
+        if value is None:
+            continue
+        if key == "chroma_format":
+            value = CHROMA_NAMES.get(value, value)
+        elif key == "frame_rate" and desc["frame_rate_value"] is not None:
+            value = f"{value} ({desc['frame_rate_value']:g}/s)"
+        typer.echo(f"{label:<14} {value}")
+    for k, v in desc["extra"].items():
+        typer.echo(f"{'X tag':<14} {k}={v}" if v else f"{'X tag':<14} {k}")
+    typer.echo(f"plane statistics of frame {desc['frame']}:")
+    for name, st in desc["planes"].items():
+        typer.echo(f"  {name:<3} min {st['min']:>6}  max {st['max']:>6}  mean {st['mean']:10.3f}")
 
 
 # =============================================================================================
@@ -98,9 +130,108 @@ def info(
 # =============================================================================================
 
 
+@app.command()
+def vectors(
+    clip: Path = typer.Argument(..., help="Clip file (.y4m, or any video OpenCV decodes)."),
+    coded: int = typer.Option(..., "--coded", help="Picture number whose blocks get vectors."),
+    ref: int = typer.Option(..., "--ref", help="Picture number the vectors point to."),
+    output: Path = typer.Option(..., "--output", "-o", help="Field file: .json, .npz, or .csv (export)."),
+    search_range: int = typer.Option(64, "--range", help="Largest vector component, luma samples."),
+    blocks: str = typer.Option("64,32,16,8", "--blocks", help="Block sizes the quadtree may use."),
+    qp: int = typer.Option(27, "--qp", help="QP setting the rate weight (0..51); higher = cheaper, smoother field."),
+    overlay: Optional[Path] = typer.Option(None, "--overlay", help="PNG with block outlines and arrows."),
+    as_json: bool = typer.Option(False, "--json", help="Print the summary as JSON."),
+) -> None:
+    """Estimate codec-like block vectors from one picture of a clip to another."""
+    from .vector_job import parse_block_sizes, run_vectors
+
+    summary = run_vectors(
+        clip, coded=coded, reference=ref, output=output, qp=qp, search_range=search_range,
+        block_sizes=parse_block_sizes(blocks), overlay=overlay,
+    )  # fmt: skip
+    if as_json:
+        _print_json(summary)
+        return
+    sizes = ", ".join(f"{k}: {v}" for k, v in summary["blocks_by_size"].items())
+    typer.echo(f"field          picture {coded} -> picture {ref}, written to {summary['output']}")
+    typer.echo(f"blocks         {summary['blocks']} ({sizes})")
+    typer.echo(f"intra share    {100 * summary['intra_share']:.1f} % of the area")
+    typer.echo(f"mean |v|       {summary['mean_vector_length']:.2f} luma samples")
+    typer.echo(f"vector bits    {summary['vector_bits']}")
+    typer.echo(
+        f"prediction     {summary['mc_psnr_y']:.2f} dB luma PSNR with the field, "
+        f"{summary['zero_motion_psnr_y']:.2f} dB with zero motion"
+    )
+    typer.echo(f"time           {summary['seconds']:.2f} s (QP {qp}, range +-{search_range})")
+    if summary["overlay"]:
+        typer.echo(f"overlay        {summary['overlay']}")
+
+
 # =============================================================================================
 # Synthesis: frame, calibrate  (issue 4)
 # =============================================================================================
+
+
+@app.command()
+def frame(
+    clip: Path = typer.Argument(..., help="Clip file (.y4m, or any video OpenCV decodes)."),
+    past: int = typer.Option(..., "--past", help="Picture number of the past reference."),
+    future: int = typer.Option(..., "--future", help="Picture number of the future reference."),
+    at: Optional[int] = typer.Option(None, "--at", help="Picture number to synthesise (its true picture is measured against)."),
+    t: Optional[float] = typer.Option(None, "--t", help="Fraction in (0, 1) from past to future, when no true picture exists."),
+    output: Path = typer.Option(..., "--output", "-o", help="Synthesised picture, 1-frame .y4m."),
+    field: Optional[Path] = typer.Option(None, "--field", help="Vector fields (.json/.npz) instead of estimating them."),
+    params: Optional[Path] = typer.Option(None, "--params", help="Synthesis parameter file (JSON)."),
+    maps: Optional[Path] = typer.Option(None, "--maps", help="Directory for PNG maps."),
+    method: Optional[str] = typer.Option(None, "--method", help="lmmse (default), distance_weighted or nearest."),
+    qp: int = typer.Option(27, "--qp", help="QP of the motion estimator when vectors are estimated."),
+    two_way: bool = typer.Option(False, "--two-way", help="Estimate vectors in both coding directions."),
+    as_json: bool = typer.Option(False, "--json", help="Print the summary as JSON."),
+    # issue 5: corrective offsets on the synthesised picture
+    offsets_out: Optional[Path] = typer.Option(None, "--offsets", help="Also search corrective block offsets against picture --at and write them (JSON)."),
+    offset_block: int = typer.Option(16, "--block", help="Offset block size in luma samples (with --offsets)."),
+    offset_window: int = typer.Option(2, "--window", help="Offset search range in luma samples, quarter-pel steps (with --offsets)."),
+) -> None:
+    """Synthesise one picture between two pictures of a clip from the vectors coded between them."""
+    from .frame_job import run_frame
+    from .params import SynthParams
+
+    if offsets_out is not None and at is None:  # issue 5
+        raise SynthError("--offsets needs --at (the true picture is the target of the offset search)")
+    p = SynthParams.load(params) if params is not None else None
+    summary = run_frame(
+        clip, past=past, future=future, at=at, t=t, output=output, field_path=field, params=p,
+        maps_dir=maps, qp=qp, two_way=two_way, method=method,
+    )  # fmt: skip
+    if offsets_out is not None:  # issue 5
+        from .offsets_job import offsets_for_frame
+
+        summary["offsets"] = offsets_for_frame(
+            clip, at=at, synthetic_path=output, output=offsets_out, past=past, future=future,
+            block=offset_block, window=offset_window, qp=qp,
+        )  # fmt: skip
+    if as_json:
+        _print_json(summary)
+        return
+    target = f"picture {at}" if at is not None else f"t = {summary['t']:.4g}"
+    typer.echo(f"synthesised    {target} from pictures {past} and {future} ({summary['size']}, {summary['format']})")
+    typer.echo(f"vectors        {summary['vectors']}, {summary['fields']} field(s)")
+    typer.echo(f"estimator      {summary['method']}, K = {summary['candidates']}, mean confidence {summary['mean_confidence']:.3f}")
+    if summary["psnr"] is not None:
+        ps = summary["psnr"]
+        typer.echo("PSNR           " + "  ".join(f"{k} {v:.2f} dB" for k, v in ps.items()))
+        typer.echo(f"SSIM (Y)       {summary['ssim_y']:.4f}")
+    typer.echo(f"time           vectors {summary['vector_seconds']:.2f} s, synthesis {summary['synthesis_seconds']:.2f} s")
+    typer.echo(f"written        {summary['output']}")
+    for m in summary["maps"]:
+        typer.echo(f"map            {m}")
+    if summary.get("offsets"):  # issue 5
+        o = summary["offsets"]
+        typer.echo(
+            f"offsets        {o['blocks']} blocks of {o['block']}, {100 * o['zero_share']:.0f} % zero, {o['bits_total']} bits "
+            f"({o['bits_per_block']:.2f}/block); PSNR-Y {o['psnr_before']['Y']:.2f} -> {o['psnr_after']['Y']:.2f} dB"
+        )
+        typer.echo(f"written        {o['output']}")
 
 
 # =============================================================================================
@@ -129,18 +260,17 @@ def _issue5_progress(description: str):
     return bar, update
 
 
-def _issue5_maker(name: str, field_path: Optional[Path] = None):
+def _issue5_maker(name: str, field_path: Optional[Path] = None, size: Optional[tuple[int, int]] = None):
     from .reference_makers import maker_by_name
 
     if field_path is None:
         return maker_by_name(name)
     if name != "estimator":
         raise SynthError(f"--field needs --synthesiser estimator, got {name!r}")
-    try:
-        from synth.io import read_fields  # type: ignore[attr-defined]
-    except ImportError:
-        raise SynthError("--field: reading vector-field files needs synth.io.read_fields, which this build lacks") from None
-    return maker_by_name(name, fields=list(read_fields(field_path)))
+    from synth.io.fields import read_fields
+
+    width, height = size if size is not None else (None, None)
+    return maker_by_name(name, fields=read_fields(field_path, width=width, height=height))
 
 
 @app.command()
@@ -155,31 +285,29 @@ def offsets(
     window: int = typer.Option(2, "--window", help="Search range in whole luma samples each way (quarter-pel steps)."),
     qp: int = typer.Option(27, "--qp", help="QP for lambda (and for estimated vectors)."),
     metric: str = typer.Option("satd", "--metric", help="Distortion: satd or sad."),
-    synthesiser: str = typer.Option("estimator", "--synthesiser", help="estimator (the product) or blend (control)."),
+    synthesiser: str = typer.Option("estimator", "--synthesiser", help="estimator (the product), blend (control) or a workbench predictor name."),
     prediction: Optional[Path] = typer.Option(None, "--prediction", help="Also write the corrected prediction (.y4m)."),
     as_json: bool = typer.Option(False, "--json", help="Print the statistics as JSON."),
 ) -> None:
     """Corrective block offsets of a target picture on its synthetic reference, and their bit cost."""
-    from synth.io import atomic_write_text, open_clip, write_y4m
+    from synth.io import open_clip, write_y4m
+    from synth.io.offsets_file import write_offsets
 
-    from .offsets import json_safe, offsets_document, refine_with_offsets
+    from .offsets import json_safe, refine_with_offsets
 
-    maker = _issue5_maker(synthesiser, field)
     reader = open_clip(clip)
     try:
         n = len(reader)
         for name, v in (("--past", past), ("--future", future), ("--at", at)):
             if not 0 <= v < n:
                 raise SynthError(f"{name} must be a picture number in 0..{n - 1}, got {v}")
+        maker = _issue5_maker(synthesiser, field, size=(reader.info.width, reader.info.height))
         state = maker.prepare(reader.read(past), reader.read(future), past_time=past, future_time=future, qp=qp)
         synthetic = maker.make(state, time=at)
         target = reader.read(at)
         search = refine_with_offsets(target, synthetic, block=block, window=window, metric=metric, qp=qp, time=at)
-        doc = offsets_document(
-            search,
-            extra={"source": str(clip), "past": past, "future": future, "synthesiser": maker.name, "fields": maker.describe(state)},
-        )
-        atomic_write_text(output, json.dumps(doc, indent=2) + "\n")
+        extra = {"source": str(clip), "past": past, "future": future, "synthesiser": maker.name, "fields": maker.describe(state)}
+        write_offsets(output, search, extra=extra)
         if prediction is not None:
             write_y4m(prediction, [search.prediction], reader.info)
     finally:
@@ -205,7 +333,7 @@ def export(
     raw: bool = typer.Option(False, "--raw", help="Write raw planar samples (no header) instead of Y4M."),
     sidecar: Optional[Path] = typer.Option(None, "--sidecar", help="Sidecar JSON path (default: OUTPUT + .json)."),
     qp: int = typer.Option(27, "--qp", help="QP of the estimated vectors."),
-    synthesiser: str = typer.Option("estimator", "--synthesiser", help="estimator (the product) or blend (control)."),
+    synthesiser: str = typer.Option("estimator", "--synthesiser", help="estimator (the product), blend (control) or a workbench predictor name."),
 ) -> None:
     """Synthetic reference pictures for every non-anchor picture of a hierarchical GOP, in display order."""
     from synth.io import open_clip
@@ -236,11 +364,12 @@ def rd(
     gap: int = typer.Option(8, "--gap", help="Distance between the two references."),
     qps: str = typer.Option("22,27,32,37", "--qps", help="Comma-separated QPs (four or more)."),
     codec: str = typer.Option("h264", "--codec", help="h264 (x264) or hevc (x265)."),
-    synthesiser: str = typer.Option("estimator", "--synthesiser", help="estimator (the product) or blend (control)."),
+    synthesiser: str = typer.Option("estimator", "--synthesiser", help="estimator (the product), blend (control) or a workbench predictor name."),
     refs: str = typer.Option("decoded", "--refs", help="Make the synthetic picture from decoded or source references."),
     extra_qp: int = typer.Option(4, "--extra-qp", help="QP at which the extra reference picture is coded (bits not charged)."),
     preset: str = typer.Option("medium", "--preset", help="Encoder speed preset."),
     with_offsets: bool = typer.Option(False, "--offsets", help="Also run the offset search and measure its corrected picture."),
+    also: str = typer.Option("dis-medium", "--also", help="Other makers measured as the third reference (d), comma-separated; 'none' for none."),
     block: int = typer.Option(16, "--block", help="Offset block size (with --offsets)."),
     window: int = typer.Option(2, "--window", help="Offset search range in luma samples (with --offsets)."),
     limit: Optional[int] = typer.Option(None, "--limit", help="Only the first N target pictures per clip."),
@@ -248,36 +377,31 @@ def rd(
     as_json: bool = typer.Option(False, "--json", help="Print the summary as JSON instead of a table."),
 ) -> None:
     """Bits a synthetic third reference saves a real encoder: BD-rate against the two real references."""
-    from synth.io import open_clip
-
     from .offsets import json_safe
-    from .rdmeasure import measure_clip, parse_qps, summarise_clips
+    from .rd import rd as measure_rd
+    from .rdmeasure import parse_qps, summarise_clips
     from .rdreport import format_rd_table, write_rd_report
+    from .reference_makers import maker_by_name
 
-    maker = _issue5_maker(synthesiser)
+    maker_by_name(synthesiser)  # fail early when the synthesiser is not available
     qp_list = parse_qps(qps)
     settings = {
-        "gap": gap, "qps": qp_list, "codec": codec, "synthesiser": maker.name, "refs": refs,
+        "gap": gap, "qps": qp_list, "codec": codec, "synthesiser": synthesiser, "refs": refs,
         "extra_qp": extra_qp, "preset": preset, "offsets": {"block": block, "window": window} if with_offsets else None,
-        "limit": limit,
+        "also": also, "limit": limit,
     }
     results = []
     bar, update = _issue5_progress("rd")
     with bar:
         for path in clips:
-            reader = open_clip(path)
-            try:
-                bar.console.print(f"{path}: {len(reader)} pictures", highlight=False)
-                results.append(
-                    measure_clip(
-                        reader.read, len(reader), clip=str(path), gap=gap, qps=qp_list, codec=codec, maker=maker,
-                        refs=refs, extra_qp=extra_qp, preset=preset,
-                        offsets={"block": block, "window": window} if with_offsets else None,
-                        limit=limit, progress=update,
-                    )
+            bar.console.print(f"measuring {path}", highlight=False)
+            results.append(
+                measure_rd(
+                    path, gap=gap, qps=qp_list, codec=codec, synthesiser=synthesiser, refs=refs, extra_qp=extra_qp,
+                    preset=preset, offsets=with_offsets, block=block, window=window, also=also, limit=limit, name=str(path),
+                    progress=update,
                 )
-            finally:
-                reader.close()
+            )
     summary = summarise_clips(results)
     if report is not None:
         write_rd_report(report, results, summary, settings)
@@ -292,6 +416,163 @@ def rd(
 # =============================================================================================
 # Evaluation workbench: compare, gop, demo  (issue 6)
 # =============================================================================================
+
+
+class _ProgressBar:
+    """A rich progress bar on stderr, used as the library's ``progress(done, total, label)`` callback."""
+
+    def __init__(self, description: str):
+        from rich.console import Console
+        from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn, TimeRemainingColumn
+
+        self._progress = Progress(
+            TextColumn("{task.description}"),
+            BarColumn(),
+            MofNCompleteColumn(),
+            TimeElapsedColumn(),
+            TimeRemainingColumn(),
+            TextColumn("{task.fields[label]}"),
+            console=Console(stderr=True),
+            transient=True,
+        )
+        self._description = description
+        self._task = None
+
+    def __enter__(self) -> "_ProgressBar":
+        return self
+
+    def __exit__(self, *exc) -> None:
+        if self._task is not None:
+            self._progress.stop()
+
+    def __call__(self, done: int, total: int, label: str) -> None:
+        if self._task is None:  # started on the first report, so an early error prints one line only
+            self._progress.start()
+            self._task = self._progress.add_task(self._description, total=total, label="")
+        self._progress.update(self._task, completed=done, total=total, label=label)
+
+
+def _open_for_run(clip: Path):
+    from .io import open_clip
+
+    return open_clip(clip)
+
+
+@app.command()
+def compare(
+    clip: Path = typer.Argument(..., help="Clip file (.y4m, or any video OpenCV decodes)."),
+    gap: list[int] = typer.Option([8], "--gap", "-g", help="Distance between the references; repeat for several gaps."),
+    predictors: Optional[str] = typer.Option(None, "--predictors", "-p", help="Comma-separated predictor names (default: all available)."),
+    vector_qp: Optional[str] = typer.Option(None, "--vector-qp", help="Comma-separated QPs to estimate vectors at, e.g. 22,32,42."),
+    report: Optional[Path] = typer.Option(None, "--report", "-r", help="Directory for report.html, results.json and results.csv."),
+    frames: Optional[int] = typer.Option(None, "--frames", "-n", help="Use only the first N pictures of the clip."),
+) -> None:
+    """Predict every picture between references GAP apart with every predictor and compare."""
+    from .compare import compare_clip
+    from .tables import run_tables
+
+    reader = _open_for_run(clip)
+    with _ProgressBar(f"compare {clip.name}") as bar:
+        result = compare_clip(
+            reader, gaps=gap, predictors=predictors, vector_qps=vector_qp, limit=frames, clip_name=clip.name, progress=bar
+        )
+    typer.echo(run_tables(result))
+    if report is not None:
+        from .report import write_report
+
+        paths = write_report([result], report, title=f"synth compare: {clip.name}")
+        typer.echo(f"report: {paths['html']}")
+
+
+@app.command()
+def gop(
+    clip: Path = typer.Argument(..., help="Clip file (.y4m, or any video OpenCV decodes)."),
+    size: int = typer.Option(16, "--size", "-s", help="GOP size: a power of two from 2 to 64."),
+    flat: bool = typer.Option(False, "--flat", help="Predict every picture straight from the two anchors (t = k/size)."),
+    decoded_refs: Optional[int] = typer.Option(None, "--decoded-refs", help="Take references from an H.264 encode/decode at this QP."),
+    predictors: Optional[str] = typer.Option(None, "--predictors", "-p", help="Comma-separated predictor names (default: all available)."),
+    vector_qp: Optional[str] = typer.Option(None, "--vector-qp", help="Comma-separated QPs to estimate vectors at, e.g. 22,32,42."),
+    report: Optional[Path] = typer.Option(None, "--report", "-r", help="Directory for report.html, results.json and results.csv."),
+    export: Optional[Path] = typer.Option(None, "--export", help="Write the synthetic pictures (display order, no anchors) to this .y4m file, with a JSON sidecar."),
+    export_method: Optional[str] = typer.Option(None, "--export-method", help="Method whose pictures --export writes (default: lmmse, else the first predictor)."),
+    frames: Optional[int] = typer.Option(None, "--frames", "-n", help="Use only the first N pictures of the clip."),
+) -> None:
+    """Synthesise every B picture of a dyadic hierarchical GOP from its references; statistics per layer."""
+    from .errors import ParameterError
+    from .gop import run_gop
+    from .predictors import resolve_predictors
+    from .tables import run_tables
+
+    if export is not None and export.suffix.lower() != ".y4m":
+        raise ParameterError(f"--export must name a .y4m file, got {str(export)!r}")
+    method = export_method
+    if export is not None and method is None:
+        names = [p.name for p in resolve_predictors(predictors)]
+        method = "lmmse" if "lmmse" in names else names[0]
+        qps = [q for q in (vector_qp or "").split(",") if q.strip()]
+        if len(qps) > 1 and resolve_predictors([method])[0].needs_fields:
+            method = f"{method}@qp{int(qps[0])}"
+    if export is None and export_method is not None:
+        raise ParameterError("--export-method needs --export")
+    reader = _open_for_run(clip)
+    with _ProgressBar(f"gop {clip.name}") as bar:
+        result = run_gop(
+            reader,
+            size=size,
+            flat=flat,
+            decoded_refs_qp=decoded_refs,
+            predictors=predictors,
+            vector_qps=vector_qp,
+            limit=frames,
+            clip_name=clip.name,
+            export_method=method,
+            frame_rate=reader.info.frame_rate,
+            progress=bar,
+        )
+    typer.echo(run_tables(result))
+    if export is not None:
+        from .export import sidecar_path
+        from .gop import write_gop_export
+
+        info = reader.info
+        if not info.frame_count:
+            from dataclasses import replace
+
+            info = replace(info, frame_count=len(reader))
+        write_gop_export(result, export, info=info, source_name=str(clip))
+        typer.echo(f"exported {len(result.synthetic)} synthetic pictures ({method}) to {export}; sidecar {sidecar_path(export)}")
+    if report is not None:
+        from .report import write_report
+
+        paths = write_report([result], report, title=f"synth gop: {clip.name}")
+        typer.echo(f"report: {paths['html']}")
+
+
+@app.command()
+def demo(
+    out: Path = typer.Option(Path("synth-demo"), "--out", "-o", help="Directory for the report."),
+) -> None:
+    """Run the main job on the bundled demo clips: GOP run and comparison, with a report."""
+    from .demo import demo_plan, run_demo
+    from .tables import overview_table, vector_qp_table
+
+    plan = demo_plan()
+    with _ProgressBar("demo") as bar:
+        results, paths = run_demo(plan, out=out, progress=bar)
+    clips = sorted({r.clip for r in results}, key=[r.clip for r in results].index)
+    typer.echo(f"Mean PSNR-YUV (dB) of the picture each method predicts, over {len(clips)} demo clips ({', '.join(clips)}):")
+    typer.echo("GOP = every B picture of a dyadic GOP from its hierarchy references; gap N = every picture")
+    typer.echo("between references N apart; wins = pictures on which the method is best.")
+    typer.echo(overview_table(results))
+    for r in results:
+        table = vector_qp_table(r)
+        if table:
+            typer.echo("")
+            typer.echo(f"Vector QP on {r.clip} (gap {', '.join(str(g) for g in r.settings['gaps'])}): mean PSNR-YUV of the vector-based methods")
+            typer.echo(table)
+    typer.echo("")
+    typer.echo(f"report: {paths['html']}  (per-clip and per-layer tables, plots, error and weight maps)")
+    typer.echo(f"data:   {paths['json']}, {paths['csv']}")
 
 
 # =============================================================================================
@@ -334,6 +615,8 @@ def study(
         return
 
     executor = make_executor(workers=workers, cluster=cluster)
+    for note in executor.warnings:
+        typer.echo(f"synth: note: {note}", err=True)
     with executor, Progress(
         TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(), TextColumn("{task.fields[note]}"),
         TimeElapsedColumn(), TimeRemainingColumn(), console=console, transient=False,
@@ -356,13 +639,17 @@ def study(
         f"{total} jobs: ran {outcome.ran} in {outcome.seconds:.1f} s on {outcome.executor}{rate}; "
         f"{outcome.skipped} already done; {len(outcome.failed)} failed"
     )
-    out_console = Console()
+    out_console = Console(width=None if sys.stdout.isatty() else 160)  # tables are not cut when piped
     for kind in dict.fromkeys(m["kind"] for m in tables.means):
         metrics = tables.metrics.get(kind, [])
-        table = Table(title=f"{kind}: mean over clips", title_justify="left")
-        for col in ["setting", "clips", *metrics]:
-            table.add_column(col, justify="left" if col == "setting" else "right")
-        for row in format_table([m for m in tables.means if m["kind"] == kind], ["setting", "clips", *metrics]):
+        shared = ", ".join(f"{k}={v}" for k, v in tables.fixed.get(kind, {}).items())
+        table = Table(title=f"{kind}: mean over clips", title_justify="left", caption=f"every job: {shared}" if shared else None, caption_justify="left")
+        from .study import get_kind
+
+        cols = ["setting", *get_kind(kind).group_by, "clips", *metrics]
+        for col in cols:
+            table.add_column(col, justify="left" if col in ("setting", *get_kind(kind).group_by) else "right")
+        for row in format_table([m for m in tables.means if m["kind"] == kind], cols):
             table.add_row(*row)
         out_console.print(table)
     for f in tables.failures:

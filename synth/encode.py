@@ -70,9 +70,14 @@ class CodedStream:
         return 8 * len(self.data)
 
 
-def max_qp(bit_depth: int) -> int:
-    """Largest QP of H.264 / HEVC at a bit depth: 51 + 6 (bit_depth - 8)."""
-    return 51 + 6 * (int(bit_depth) - 8)
+def max_qp(bit_depth: int = 8) -> int:
+    """Largest QP we take: 51 at every bit depth.
+
+    QP here is the standards' slice QP, whose quantiser step size does not depend on the bit depth
+    (ITU-T H.264 / H.265 add ``QpBdOffset = 6 (bit_depth - 8)`` internally). x265's ``qp`` option
+    uses that scale; x264's uses ``QP + QpBdOffset``, so we add the offset for x264.
+    """
+    return 51
 
 
 def _pix_fmt(picture: Picture, encoder: str) -> str:
@@ -112,9 +117,12 @@ def _from_frame(frame: av.VideoFrame, like: Picture) -> Picture:
     return Picture(planes[0], planes[1], planes[2], like.chroma_format, like.bit_depth)
 
 
-def _params(codec: str, *, qp: int, refs: int, zones: dict[int, int], frames: int) -> str:
+def _params(codec: str, *, qp: int, refs: int, zones: dict[int, int], frames: int, bit_depth: int) -> str:
     keyint = max(frames + 1, 250)
     if codec == "h264":
+        bd_offset = 6 * (bit_depth - 8)  # x264 takes QP + QpBdOffset above 8 bits
+        qp += bd_offset
+        zones = {k: q + bd_offset for k, q in zones.items()}
         opts = [
             f"qp={qp}", "ipratio=1.0", "pbratio=0.01", "bframes=0", f"ref={refs}", f"keyint={keyint}",
             "scenecut=0", "weightp=0", "psy=0", "aq-mode=0", "threads=1",
@@ -151,7 +159,8 @@ def encode_pictures(
     codec : {'h264', 'hevc'}
         x264 or x265 through PyAV.
     qp : int
-        QP of every picture (0 .. 51 + 6 (bit_depth - 8)).
+        QP of every picture, 0..51, on the standards' slice-QP scale at every bit depth (see
+        :func:`max_qp`).
     picture_qp : mapping of position -> QP, optional
         Pictures coded at their own QP (e.g. a reference that should lose little).
     refs : int, 1..16
@@ -209,7 +218,7 @@ def encode_pictures(
         stream = out.add_stream(encoder, rate=25)
         stream.width, stream.height, stream.pix_fmt = first.width, first.height, pix_fmt
         stream.time_base = Fraction(1, 25)
-        params = _params(codec, qp=int(qp), refs=int(refs), zones=zones, frames=len(pics))
+        params = _params(codec, qp=int(qp), refs=int(refs), zones=zones, frames=len(pics), bit_depth=first.bit_depth)
         stream.codec_context.options = {f"{encoder[3:]}-params": params, "preset": preset}
 
         def mux(packets):

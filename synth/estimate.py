@@ -246,12 +246,15 @@ def endpoint_agreement_stats(past_patches: np.ndarray, future_patches: np.ndarra
     -------
     ndarray of float32, shape (n,), in [0, 1]
     """
-    a = past_patches.astype(np.float64)
-    b = future_patches.astype(np.float64)
-    mse = np.mean((a - b) ** 2, axis=1)
-    va = np.var(a, axis=1)
-    vb = np.var(b, axis=1)
-    rho = 1.0 - mse / (va + vb + float(floor))
+    a = past_patches.astype(np.float32, copy=False)
+    b = future_patches.astype(np.float32, copy=False)
+    m = np.float32(1.0 / a.shape[1])
+    diff = a - b
+    mse = np.einsum("ij,ij->i", diff, diff) * m
+    ma, mb = a.sum(axis=1) * m, b.sum(axis=1) * m
+    va = np.maximum(np.einsum("ij,ij->i", a, a) * m - ma * ma, 0)
+    vb = np.maximum(np.einsum("ij,ij->i", b, b) * m - mb * mb, 0)
+    rho = 1.0 - mse / (va + vb + np.float32(floor))
     return np.clip(rho, 0.0, 1.0).astype(np.float32)
 
 

@@ -9,7 +9,16 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["ue_length", "se_length", "ue_codeword", "se_codeword", "signed_to_code_number"]
+from .errors import ParameterError
+
+__all__ = [
+    "ue_length",
+    "se_length",
+    "ue_codeword",
+    "se_codeword",
+    "signed_to_code_number",
+    "code_number_to_signed",
+]
 
 
 def signed_to_code_number(v):
@@ -18,12 +27,22 @@ def signed_to_code_number(v):
     return np.where(v > 0, 2 * v - 1, -2 * v)
 
 
+def code_number_to_signed(k):
+    """Inverse of :func:`signed_to_code_number`: (-1)**(k+1) * ceil(k / 2) (H.264 clause 9.1.1)."""
+    k = np.asarray(k, dtype=np.int64)
+    if np.any(k < 0):
+        raise ParameterError(f"se(v) code numbers must be >= 0, got {k.min()}")
+    return np.where(k % 2 == 1, (k + 1) // 2, -(k // 2))
+
+
 def ue_length(k):
     """Bit length of the ``ue(v)`` code word of code number(s) `k` >= 0 (H.264 clause 9.1)."""
     k = np.asarray(k, dtype=np.int64)
     if np.any(k < 0):
-        raise ValueError("ue(v) code numbers must be >= 0")
-    # floor(log2(k+1)) exactly, for k up to 2**62, via bit_length on the integer
+        raise ParameterError(f"ue(v) code numbers must be >= 0, got {k.min()}")
+    # floor(log2(k+1)) exactly: frexp's exponent is exact for integers below 2**53
+    if np.any(k >= 2**53 - 1):
+        raise ParameterError("ue(v) code numbers must be below 2**53 - 1")
     m = np.frexp((k + 1).astype(np.float64))[1] - 1
     return 2 * m + 1
 
@@ -36,7 +55,7 @@ def se_length(v):
 def ue_codeword(k: int) -> str:
     """The ``ue(v)`` code word of code number `k` as a string of '0'/'1' (H.264 Table 9-2)."""
     if k < 0:
-        raise ValueError("ue(v) code numbers must be >= 0")
+        raise ParameterError(f"ue(v) code numbers must be >= 0, got {k}")
     info = bin(k + 1)[3:]  # k+1 without its leading one
     return "0" * len(info) + "1" + info
 

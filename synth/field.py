@@ -113,10 +113,10 @@ class VectorField:
     def uniform_grid(
         cls, width: int, height: int, *, block: int, coded_time: float, reference_time: float, dx=0, dy=0
     ) -> "VectorField":
-        """A regular grid of `block`-sized blocks (edge blocks clipped by the caller's convention:
-        they keep the full size and may extend past the picture edge only if the size divides it).
+        """A regular grid of square `block`-sized blocks covering the picture exactly.
 
-        ``dx``/``dy`` may be scalars or arrays of shape (rows, cols) in quarter-pel units.
+        The picture size must be a multiple of `block`. ``dx``/``dy`` may be scalars or arrays of
+        shape (rows, cols) in quarter-pel units.
         """
         if width % block or height % block:
             raise ParameterError(f"picture size {width}x{height} is not a multiple of block size {block}")

@@ -168,6 +168,15 @@ def estimate_field(
     median predictor of clause 8.4.1.3. Lambda: Wiegand et al. 2003, doi:10.1109/TCSVT.2003.815168.
     Quadtree: the split decision of H.265 coding units (clause 7.3.8.4). See the module docstring.
     """
+    for name, pic in (("coded", coded), ("reference", reference)):
+        if not isinstance(pic, Picture):
+            raise ParameterError(f"{name} must be a Picture, got {type(pic).__name__}")
+    if isinstance(block_sizes, (int, np.integer)):
+        block_sizes = (int(block_sizes),)
+    try:
+        block_sizes = tuple(int(s) for s in block_sizes)
+    except (TypeError, ValueError):
+        raise ParameterError(f"block_sizes must be a tuple of integers, got {block_sizes!r}") from None
     if coded.y.shape != reference.y.shape:
         raise ParameterError(
             f"coded and reference pictures differ in size: {coded.width}x{coded.height} vs "
@@ -183,7 +192,6 @@ def estimate_field(
     qp = _check_int("qp", qp, 0, 51)
     search_range = _check_int("search_range", search_range, 1, 1024)
     pyramid_levels = _check_int("pyramid_levels", pyramid_levels, 1, 6)
-    block_sizes = tuple(int(s) for s in block_sizes)
 
     height, width = coded.y.shape
     bit_depth = coded.bit_depth

@@ -2,12 +2,12 @@
 
 Sub-sample positions are interpolated by one of three named filters:
 
-- 'sixtap' (default): the reference is first upsampled by two in each direction, the half-sample
+- 'sixtap' (default): the luma reference is first upsampled by two in each direction, the half-sample
   positions computed with the six-tap filter (1, -5, 20, 20, -5, 1) / 32 of ITU-T H.264 clause
   8.4.2.2.1 (separably, so the centre half-sample position is filtered both ways), then positions
   in between are interpolated bilinearly on the upsampled grid (as H.264 derives quarter-sample
-  luma positions from integer and half-sample ones). The upsampled plane is stored as uint16 with
-  2**(14 - bit_depth) fractional steps per sample and an offset for the filter's undershoot.
+  luma positions from integer and half-sample ones). Chroma planes are interpolated bilinearly
+  (as H.264 chroma, clause 8.4.2.2.2).
 - 'bicubic': cubic convolution with a = -0.75 (R. G. Keys, "Cubic convolution interpolation for
   digital image processing", IEEE TASSP 29(6), 1981, doi:10.1109/TASSP.1981.1163711, with OpenCV's
   coefficient), on float32 samples.
@@ -31,7 +31,6 @@ __all__ = ["PlaneSampler", "remap_plane", "endpoint_patches", "INTERPOLATION_FLA
 INTERPOLATION_FLAGS = {"bicubic": cv2.INTER_CUBIC, "bilinear": cv2.INTER_LINEAR}
 #: Half-sample filter of ITU-T H.264 clause 8.4.2.2.1.
 SIXTAP = np.array([1, -5, 20, 20, -5, 1], np.float32) / 32.0
-_OFFSET = 16384.0
 
 
 def remap_plane(plane: np.ndarray, map_x: np.ndarray, map_y: np.ndarray | None, *, interpolation: str) -> np.ndarray:
@@ -59,24 +58,24 @@ def _halfpel_upsample(plane: np.ndarray) -> np.ndarray:
 
 
 class PlaneSampler:
-    """Samples one reference plane at arbitrary positions with a named filter.
+    """Samples one reference plane at arbitrary positions with a named filter (float32 throughout).
 
     Parameters
     ----------
     plane : ndarray, 2-D
         Integer or float samples.
     interpolation : {'sixtap', 'bicubic', 'bilinear'}
-    bit_depth : int
+    chroma : bool
+        With 'sixtap', a chroma plane is interpolated bilinearly (as chroma in ITU-T H.264 clause
+        8.4.2.2.2) instead of through the half-sample grid.
     """
 
-    def __init__(self, plane: np.ndarray, *, interpolation: str, bit_depth: int):
+    def __init__(self, plane: np.ndarray, *, interpolation: str, chroma: bool = False):
         self.interpolation = interpolation
         f = plane.astype(np.float32)
         if interpolation == "sixtap":
-            self.scale = 2.0
-            self._unit = float(1 << max(0, 14 - int(bit_depth)))
-            up = _halfpel_upsample(f) * np.float32(self._unit) + np.float32(_OFFSET)
-            self._src = np.clip(np.rint(up), 0, 65535).astype(np.uint16)
+            self.scale = 1.0 if chroma else 2.0
+            self._src = f if chroma else _halfpel_upsample(f)
             self._flag = cv2.INTER_LINEAR
         elif interpolation in INTERPOLATION_FLAGS:
             self.scale = 1.0
@@ -87,26 +86,19 @@ class PlaneSampler:
                 f"interpolation must be one of sixtap, {', '.join(INTERPOLATION_FLAGS)}, got {interpolation!r}"
             )
 
-    def sample(self, positions: np.ndarray) -> np.ndarray:
-        """Samples at ``positions`` (float32, shape (h, w, 2), x first) *already multiplied by*
-        :attr:`scale`; float32 result in sample units."""
-        out = cv2.remap(self._src, positions, None, self._flag, borderMode=cv2.BORDER_REPLICATE)
-        if self.interpolation == "sixtap":
-            return (out.astype(np.float32) - np.float32(_OFFSET)) * np.float32(1.0 / self._unit)
-        return out
+    def sample_xy(self, map_x: np.ndarray, map_y: np.ndarray) -> np.ndarray:
+        """Samples at (map_x, map_y) (float32, same 2-D shape), positions *already multiplied by*
+        :attr:`scale`; float32 result."""
+        return cv2.remap(self._src, map_x, map_y, self._flag, borderMode=cv2.BORDER_REPLICATE)
 
 
-def endpoint_patches(
-    past: np.ndarray, future: np.ndarray, landed: LandedVectors, *, margin: int, interpolation: str
-):
+def endpoint_patches(past: PlaneSampler, future: PlaneSampler, landed: LandedVectors, *, margin: int):
     """Yield ``(index, past_patches, future_patches)`` per block size, patches of shape (n, m).
 
     The patch of a landed vector is its block's footprint at the target time (grown by ``margin``
-    luma samples on each side), moved to the past and to the future endpoint; sampled from float32
-    planes with 'bicubic' or 'bilinear' (the 'sixtap' filter is used as 'bicubic' here).
+    luma samples on each side), moved to the past and to the future endpoint, sampled with the
+    samplers' filter.
     """
-    if interpolation not in INTERPOLATION_FLAGS:
-        interpolation = "bicubic"
     sizes = np.stack([landed.bw, landed.bh], axis=1)
     if len(sizes) == 0:
         return
@@ -119,12 +111,10 @@ def endpoint_patches(
         cx = landed.cx[index][:, None, None]
         cy = landed.cy[index][:, None, None]
         out = []
-        for dx, dy, plane in (
-            (landed.past_dx, landed.past_dy, past),
-            (landed.future_dx, landed.future_dy, future),
-        ):
-            mx = (cx + dx[index][:, None, None]) + ox[None, None, :]
-            my = (cy + dy[index][:, None, None]) + oy[None, :, None]
+        for dx, dy, sampler in ((landed.past_dx, landed.past_dy, past), (landed.future_dx, landed.future_dy, future)):
+            sc = np.float32(sampler.scale)
+            mx = ((cx + dx[index][:, None, None]) + ox[None, None, :]) * sc
+            my = ((cy + dy[index][:, None, None]) + oy[None, :, None]) * sc
             mx = np.broadcast_to(mx, (len(index), ph, pw)).reshape(len(index) * ph, pw)
             my = np.broadcast_to(my, (len(index), ph, pw)).reshape(len(index) * ph, pw)
             # remap's maps are limited to 32767 rows: sample in chunks
@@ -132,11 +122,9 @@ def endpoint_patches(
             step = (32000 // ph) * ph
             for r0 in range(0, mx.shape[0], step):
                 parts.append(
-                    remap_plane(
-                        plane,
+                    sampler.sample_xy(
                         np.ascontiguousarray(mx[r0 : r0 + step], dtype=np.float32),
                         np.ascontiguousarray(my[r0 : r0 + step], dtype=np.float32),
-                        interpolation=interpolation,
                     )
                 )
             out.append(np.concatenate(parts, axis=0).reshape(len(index), ph * pw))

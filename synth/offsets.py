@@ -335,24 +335,34 @@ def json_safe(obj):
 def offsets_document(search: OffsetSearch, *, extra: dict | None = None) -> dict:
     """A JSON-ready description of an offset search: the blocks and their offsets, and statistics.
 
-    Layout (format ``synth-offsets``, version 1): ``width``, ``height``, ``time``, ``reference``
-    (always ``"synthetic"``), ``units`` (``"quarter-pel"``), ``blocks`` (parallel lists ``x``,
-    ``y``, ``w``, ``h``, ``dx``, ``dy``), ``gaps_allowed``, ``statistics`` and anything in `extra`
-    (e.g. the clip and picture numbers). Infinite PSNR figures (identical pictures) become null.
+    Layout (``format: synth-offsets``, ``schema_version: 1``): the block table of the vector-field
+    file format (``width``, ``height``, ``vector_unit: quarter-sample``, ``columns`` x, y, w, h,
+    dx, dy, intra and one row per block in ``blocks``, ``gaps_allowed``), plus ``time`` (the
+    target's display time), ``reference: synthetic`` (the vectors point into the synthetic picture
+    made for that same time, which is why this is not a vector-field file: those require two
+    different times), ``search`` (block, window, metric, lambda), ``statistics`` and anything in
+    `extra` (e.g. the clip and picture numbers). Infinite PSNR figures (identical pictures) are
+    written as null.
     """
+    from .field_checks import COLUMNS
+
     f = search.field
+    st = search.stats
+    rows = np.stack([f.x, f.y, f.w, f.h, f.dx, f.dy, f.intra.astype(np.int32)], axis=1).tolist()
     doc = {
         "format": "synth-offsets",
-        "version": 1,
+        "schema_version": 1,
         "width": f.width,
         "height": f.height,
-        "time": f.coded_time,
+        "vector_unit": "quarter-sample",
         "reference": "synthetic",
-        "units": "quarter-pel",
+        "time": float(f.coded_time),
         "gaps_allowed": bool(f.gaps_allowed),
-        "blocks": {k: getattr(f, k).tolist() for k in ("x", "y", "w", "h", "dx", "dy")},
-        "statistics": json_safe(search.stats.as_dict()),
+        "search": {"block": st.block, "window": st.window, "metric": st.metric, "lambda": st.lagrangian},
+        "statistics": json_safe(st.as_dict()),
+        "columns": list(COLUMNS),
+        "blocks": rows,
     }
     if extra:
-        doc.update(extra)
+        doc.update(json_safe(extra))
     return doc

@@ -47,7 +47,9 @@ def _label(config: str) -> str:
     if config in _LABELS:
         return _LABELS[config]
     if config.startswith("real+"):
-        return f"(d) + {config[5:]} reference"
+        name = config[5:]
+        kind = "optical-flow " if name in ("dis-fast", "dis-medium", "farneback") else ""
+        return f"(d) + {kind}{name} reference"
     return config
 
 

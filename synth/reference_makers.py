@@ -16,9 +16,9 @@ Makers here:
 ``blend``
     The temporally weighted average ``(1 - t) past + t future``. A stand-in and a control, not the
     product; reports name it.
-
-Other makers (e.g. optical-flow interpolation from the evaluation workbench) plug in by offering the
-same three methods.
+any predictor of the evaluation workbench (`synth.predictors`, e.g. ``dis-medium``)
+    Optical-flow interpolation and the other predictors, through :class:`PredictorMaker`; those
+    that work from vectors get the same estimated field as ``estimator``.
 """
 
 from __future__ import annotations
@@ -29,7 +29,10 @@ from typing import Any, Protocol
 from .errors import ParameterError
 from .picture import Picture
 
-__all__ = ["ReferenceMaker", "BlendMaker", "EstimatorMaker", "MAKERS", "maker_by_name", "fraction_of"]
+__all__ = [
+    "ReferenceMaker", "BlendMaker", "EstimatorMaker", "PredictorMaker", "MAKERS", "maker_by_name", "maker_names",
+    "fraction_of",
+]
 
 
 class ReferenceMaker(Protocol):
@@ -123,7 +126,10 @@ class EstimatorMaker:
         from .synthesis import synthesise
 
         t = fraction_of(time, state.past_time, state.future_time)
-        return synthesise(state.past, state.future, state.fields, t=t, params=self.params)
+        return synthesise(
+            state.past, state.future, state.fields, t=t, params=self.params,
+            past_time=state.past_time, future_time=state.future_time,
+        )
 
     def describe(self, state: _Pair) -> list[dict]:
         return [
@@ -138,13 +144,62 @@ class EstimatorMaker:
         ]
 
 
+class PredictorMaker:
+    """A predictor of the evaluation workbench (`synth.predictors`) as a reference maker.
+
+    Predictors that work from vectors get a field estimated as in :class:`EstimatorMaker` (the
+    future reference coded against the past one at the given QP).
+    """
+
+    def __init__(self, name: str, *, estimate_options: dict | None = None):
+        from .predictors import get_predictor
+
+        self.predictor = get_predictor(name)
+        self.name = name
+        self.estimate_options = dict(estimate_options or {})
+
+    def prepare(self, past, future, *, past_time, future_time, qp):
+        _check_pair(past, future)
+        fields, origin = [], "none"
+        if self.predictor.needs_fields:
+            from .motion import estimate_field
+
+            fields = [
+                estimate_field(
+                    future, past, coded_time=float(future_time), reference_time=float(past_time), qp=int(qp),
+                    **self.estimate_options,
+                )
+            ]
+            origin = "estimated"
+        return _Pair(past, future, float(past_time), float(future_time), int(qp), fields, origin)
+
+    def make(self, state: _Pair, *, time: float) -> Picture:
+        t = fraction_of(time, state.past_time, state.future_time)
+        return self.predictor(state.past, state.future, t=t, fields=state.fields or None).picture
+
+    def describe(self, state: _Pair) -> list[dict]:
+        return EstimatorMaker.describe(self, state)  # same record of the fields used
+
+
 MAKERS = ("estimator", "blend")
 
 
+def maker_names() -> list[str]:
+    """Every name `maker_by_name` accepts: ours, then the workbench's predictors."""
+    try:
+        from .predictors import PREDICTORS
+    except ImportError:  # pragma: no cover - the workbench ships with synth
+        return list(MAKERS)
+    return list(MAKERS) + [n for n in PREDICTORS if n not in MAKERS]
+
+
 def maker_by_name(name: str, **options) -> ReferenceMaker:
-    """A maker by its name: 'estimator' (the product) or 'blend' (stand-in/control)."""
+    """A maker by its name: 'estimator' (the product), 'blend' (stand-in/control), or the name of a
+    workbench predictor (e.g. 'dis-medium' for optical-flow interpolation)."""
     if name == "estimator":
         return EstimatorMaker(**options)
     if name == "blend":
         return BlendMaker()
-    raise ParameterError(f"synthesiser must be one of {', '.join(MAKERS)}, got {name!r}")
+    if name in maker_names():
+        return PredictorMaker(name, **options)
+    raise ParameterError(f"synthesiser must be one of {', '.join(maker_names())}, got {name!r}")

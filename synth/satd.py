@@ -37,18 +37,38 @@ def _check_tile(tile: int) -> None:
         raise ParameterError(f"SATD tile size must be 4 or 8, got {tile!r}")
 
 
-def _butterflies(a: np.ndarray, axis: int, n: int) -> np.ndarray:
-    """Walsh-Hadamard transform of length `n` along `axis` (Sylvester order), unnormalised."""
-    a = np.moveaxis(a, axis, -1)
-    shape = a.shape
+def _fwht(parts: list[np.ndarray]) -> list[np.ndarray]:
+    """Walsh-Hadamard transform of a list of equally shaped arrays (Sylvester order), unnormalised.
+
+    Element k of the result is ``sum_j H[k, j] parts[j]`` with ``H = scipy.linalg.hadamard(n)``.
+    """
+    n = len(parts)
     h = 1
     while h < n:
-        b = a.reshape(shape[:-1] + (n // (2 * h), 2, h))
-        lo = b[..., 0, :]
-        hi = b[..., 1, :]
-        a = np.stack((lo + hi, lo - hi), axis=-2).reshape(shape)
+        out = list(parts)
+        for start in range(0, n, 2 * h):
+            for i in range(start, start + h):
+                a, b = parts[i], parts[i + h]
+                out[i], out[i + h] = a + b, a - b
+        parts = out
         h *= 2
-    return np.moveaxis(a, -1, axis)
+    return parts
+
+
+def _tile_view(residual: np.ndarray, tile: int) -> np.ndarray:
+    _check_tile(tile)
+    r = np.asarray(residual)
+    h, w = r.shape[-2:]
+    if h % tile or w % tile:
+        raise ParameterError(f"residual size {w}x{h} is not a multiple of the SATD tile size {tile}")
+    return r.reshape(r.shape[:-2] + (h // tile, tile, w // tile, tile))
+
+
+def _coefficients(residual: np.ndarray, tile: int) -> list[list[np.ndarray]]:
+    """coeff[k][l] of every tile, each an array of shape (..., rows, cols)."""
+    v = _tile_view(residual, tile)
+    cols = _fwht([v[..., j] for j in range(tile)])  # along the tile's columns: (..., rows, tile, cols)
+    return [_fwht([c[..., i, :] for i in range(tile)]) for c in cols]  # [l][k] -> along rows
 
 
 def hadamard_tiles(residual: np.ndarray, *, tile: int = 4) -> np.ndarray:
@@ -66,16 +86,9 @@ def hadamard_tiles(residual: np.ndarray, *, tile: int = 4) -> np.ndarray:
         Coefficients of each tile in Sylvester (natural) order, the same order as
         ``scipy.linalg.hadamard(tile) @ X @ scipy.linalg.hadamard(tile).T``.
     """
-    _check_tile(tile)
-    r = np.asarray(residual)
-    h, w = r.shape[-2:]
-    if h % tile or w % tile:
-        raise ParameterError(f"residual size {w}x{h} is not a multiple of the SATD tile size {tile}")
-    lead = r.shape[:-2]
-    tiles = r.reshape(lead + (h // tile, tile, w // tile, tile))
-    tiles = np.swapaxes(tiles, -3, -2)  # (..., rows, cols, tile, tile)
-    out = _butterflies(tiles, -2, tile)
-    return _butterflies(out, -1, tile)
+    coeff = _coefficients(residual, tile)
+    # coeff[l][k]: row transform index k, column transform index l -> out[..., k, l]
+    return np.stack([np.stack([coeff[l][k] for l in range(tile)], axis=-1) for k in range(tile)], axis=-2)
 
 
 def satd_tiles(residual: np.ndarray, *, tile: int = 4) -> np.ndarray:
@@ -84,8 +97,13 @@ def satd_tiles(residual: np.ndarray, *, tile: int = 4) -> np.ndarray:
     Returns an array of shape (..., height // tile, width // tile), accumulated in the residual's
     float type (pass float64 for exact sums of large blocks).
     """
-    coeffs = hadamard_tiles(residual, tile=tile)
-    return np.abs(coeffs).sum(axis=(-1, -2)) / SATD_SCALE[tile]
+    coeff = _coefficients(residual, tile)
+    acc = None
+    for row in coeff:
+        for c in row:
+            a = np.abs(c)
+            acc = a if acc is None else acc + a
+    return acc / SATD_SCALE[tile]
 
 
 def _block_sum(per_tile: np.ndarray, factor: int) -> np.ndarray:

@@ -81,10 +81,12 @@ def luma_phases(plane: np.ndarray, *, pad: int, bit_depth: int = 8) -> np.ndarra
     def clip(v: np.ndarray) -> np.ndarray:
         return np.clip(v, 0, top)
 
-    G_full = g[m0 : m0 + hp + 1, m0 : m0 + wp + 1]
-    b_full = clip((b1[m0 : m0 + hp + 1, :] + 16) >> 5)  # half sample right of G, rows hp+1, cols wp+1
-    h_full = clip((h1[:, m0 : m0 + wp + 1] + 16) >> 5)  # half sample below G
-    j_full = clip((j1 + 512) >> 10)
+    # after clipping every value fits the sample range: continue in a narrower type (faster)
+    small = np.int16 if bit_depth <= 14 else np.int32
+    G_full = g[m0 : m0 + hp + 1, m0 : m0 + wp + 1].astype(small)
+    b_full = clip((b1[m0 : m0 + hp + 1, :] + 16) >> 5).astype(small)  # half sample right of G
+    h_full = clip((h1[:, m0 : m0 + wp + 1] + 16) >> 5).astype(small)  # half sample below G
+    j_full = clip((j1 + 512) >> 10).astype(small)
 
     G = G_full[:hp, :wp]
     H = G_full[:hp, 1 : wp + 1]

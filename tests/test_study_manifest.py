@@ -107,11 +107,12 @@ def test_bad_clip_entries(tmp_path, clips):
         (f'[[clips]]\npath = "{clips[0]}"\n[[clips]]\npath = "{clips[0]}"\n', "clips[1]: clip name"),
         ("[[clips]]\nname = 'x'\n", "clips[0].path: missing"),
     ]
-    raw = tmp_path / "dock_64x48.yuv"
-    raw.write_bytes(bytes(64 * 48 * 3 // 2))
-    cases.append(('[[clips]]\npath = "dock_64x48.yuv"\n', "clips[0].raw: missing"))
-    cases.append(('[[clips]]\npath = "dock_64x48.yuv"\nraw = { width = 64 }\n', "clips[0].raw.height: missing"))
-    cases.append(('[[clips]]\npath = "dock_64x48.yuv"\nraw = { width = 64, height = 48, depth = 8 }\n', "clips[0].raw.depth: unknown key"))
+    (tmp_path / "dock.yuv").write_bytes(bytes(64 * 48 * 3 // 2))
+    cases.append(('[[clips]]\npath = "dock.yuv"\n', "clips[0].raw.width: missing"))
+    cases.append(('[[clips]]\npath = "dock.yuv"\nraw = { width = 64 }\n', "clips[0].raw.height: missing"))
+    cases.append(('[[clips]]\npath = "dock.yuv"\nraw = { width = 64, height = 48, depth = 8 }\n', "clips[0].raw.depth: unknown key"))
+    cases.append(('[[clips]]\npath = "dock.yuv"\nraw = { width = 64, height = 48, chroma = "411" }\n', "clips[0].raw.chroma: expected one of"))
+    cases.append((f'[[clips]]\npath = "{clips[0]}"\nraw = {{ width = 64, height = 48 }}\n', "clips[0].raw: only for raw .yuv files"))
     for body, key in cases:
         path = _write(tmp_path, body + task)
         with pytest.raises(ParameterError) as info:
@@ -127,13 +128,17 @@ def test_toml_syntax_error_is_a_format_error_with_position(tmp_path):
 
 
 def test_unavailable_kind_is_rejected_before_any_job(tmp_path, clips):
-    from synth.study import get_kind
+    from synth.study import JobKind, register_kind
 
-    kind = get_kind("rd")
-    if kind.unavailable_reason() is None:
-        pytest.skip("synth.rd is installed: the kind is available")
-    path = _write(tmp_path, _clip_block(clips[:1]) + '[[tasks]]\nkind = "rd"\n')
-    with pytest.raises(ParameterError, match=r"tasks\[0\]\.kind: job kind 'rd' is not available yet"):
+    def never(clip_path, params, *, progress=None):
+        raise AssertionError("an unavailable kind must not run")
+
+    register_kind(
+        JobKind("unbuilt", never, available=lambda: "job kind 'unbuilt' is not available yet: synth.unbuilt is missing"),
+        replace=True,
+    )
+    path = _write(tmp_path, _clip_block(clips[:1]) + '[[tasks]]\nkind = "unbuilt"\n')
+    with pytest.raises(ParameterError, match=r"tasks\[0\]\.kind: job kind 'unbuilt' is not available yet"):
         load_manifest(path)
 
 
@@ -157,3 +162,11 @@ def test_cli_bad_manifest_one_line_exit_2_and_no_job(tmp_path, clips, body, key)
     assert len(lines) == 1 and lines[0].startswith("synth: error: study.toml: ") and key in lines[0]
     assert "Traceback" not in result.output
     assert not out.exists()  # nothing started: not even the study folder
+
+
+def test_raw_geometry_is_completed_from_the_file_name(tmp_path):
+    # WxH in the name, as raw YUV files are commonly named (common practice); the rest defaults.
+    (tmp_path / "dock_64x48_10bit.yuv").write_bytes(bytes(64 * 48 * 3))
+    path = _write(tmp_path, '[[clips]]\npath = "dock_64x48_10bit.yuv"\nraw = { rate = "30/1" }\n[[tasks]]\nkind = "blend"\n')
+    (clip,) = load_manifest(path).clips
+    assert clip.options["raw"] == {"width": 64, "height": 48, "chroma": "420", "bit_depth": 10, "rate": "30/1"}

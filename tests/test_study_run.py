@@ -109,6 +109,8 @@ def test_dask_local_cluster_gives_identical_results(reference, tmp_path):
     with distributed.LocalCluster(n_workers=2, processes=True, threads_per_worker=1, dashboard_address=None) as cluster:
         with DaskExecutor(cluster.scheduler_address) as ex:
             assert ex.workers == 2
+            # Dask's nanny sets MALLOC_TRIM_THRESHOLD_ by default (distributed.yaml); the executor says so.
+            assert any("MALLOC_TRIM_THRESHOLD_" in w for w in ex.warnings)
             outcome = run_study(load_manifest(manifest), out, executor=ex)
     assert outcome.ran == 18 and not outcome.failed
     # The jobs really ran in the cluster's worker processes, not here.
@@ -157,7 +159,7 @@ def test_interrupted_run_resumes_without_rerunning(reference, tmp_path):
 
 @pytest.mark.slow  # a real process tree killed with SIGKILL, then resumed through the CLI
 def test_killed_run_resumes_through_cli(clips, tmp_path):
-    manifest = write_manifest(tmp_path / "study.toml", clips, grid='{ gap = [2, 3, 4, 8], method = ["linear", "nearest", "past"] }', window="", pictures="")
+    manifest = write_manifest(tmp_path / "study.toml", clips, grid='{ gap = [2, 3, 4], method = ["linear", "nearest", "past"] }', window="", pictures="[0, 8]")
     ref = tmp_path / "ref"
     run_study(load_manifest(manifest), ref, executor=LocalExecutor(1))
     total = len(records(ref))
@@ -252,3 +254,23 @@ def test_worker_refuses_a_job_planned_with_other_code(reference):
     job["code_version"] = "0.0.0+000000000000"
     rec = execute_job(job, run_id="x")
     assert rec["status"] == "failed" and "study was planned with 0.0.0+000000000000" in rec["error"]
+
+
+def test_cluster_option_errors_are_one_line(reference, monkeypatch):
+    import sys
+
+    from synth.errors import ParameterError
+    from synth.study import DaskExecutor
+
+    manifest, out = reference
+    result = CliRunner().invoke(app, ["study", str(manifest), "--out", str(out), "--cluster", "tcp://h:1", "--workers", "2"])
+    assert result.exit_code == 2 and "--workers applies to local runs" in result.stderr
+    if "distributed" in sys.modules or __import__("importlib").util.find_spec("distributed"):
+        with pytest.raises(ParameterError, match=r"cannot reach the Dask scheduler at tcp://127\.0\.0\.1:9"):
+            DaskExecutor("tcp://127.0.0.1:9", timeout=0.5)
+    # The 'cluster' extra missing: importing distributed fails (None in sys.modules makes it fail).
+    monkeypatch.setitem(sys.modules, "distributed", None)
+    result = CliRunner().invoke(app, ["study", str(manifest), "--out", str(out), "--cluster", "tcp://127.0.0.1:9"])
+    assert result.exit_code == 2
+    lines = result.stderr.strip().splitlines()
+    assert len(lines) == 1 and "optional extra 'cluster'" in lines[0]

@@ -71,3 +71,34 @@ def test_striped_motion_compensated_sampling_is_bit_identical(photo):
     whole = sample(0, h)
     for rows in (16, 50, 128):
         assert np.array_equal(run_striped(sample, h, stripe_rows=rows, halo=reach), whole)
+
+
+# --- the synthesiser itself (synth.synthesise with rows=) ---------------------------------------
+
+
+@pytest.fixture(scope="module")
+def pair(tmp_path_factory):
+    """Two pictures 4 apart of a demo clip (or of real footage), cropped, with an estimated field."""
+    from synth import estimate_field
+    from synth.io import open_clip
+    from synth.study.clipsource import ClipView
+
+    from study_support import study_clip_files
+
+    clip = study_clip_files(tmp_path_factory.mktemp("clips"))[0]
+    view = ClipView(open_clip(clip), window=[0, 0, 160, 144])
+    past, future, truth = view.read(0), view.read(4), view.read(2)
+    field = estimate_field(future, past, coded_time=4, reference_time=0, qp=27)
+    return past, future, truth, field
+
+
+@pytest.mark.parametrize("stripe_rows", [2, 30, 64, 100])
+def test_synthesise_striped_is_bit_identical_to_the_whole_picture(pair, stripe_rows):
+    from synth import synthesise
+    from synth.study import synthesise_striped
+
+    past, future, _, field = pair
+    whole = synthesise(past, future, [field], t=0.5)
+    striped = synthesise_striped(past, future, [field], t=0.5, stripe_rows=stripe_rows)
+    for a, b in zip(whole.planes, striped.planes):
+        assert a.dtype == b.dtype and np.array_equal(a, b)

@@ -17,16 +17,33 @@ from typing import Any
 from .jobs import Job, jsonable
 from .kinds import CLIP_OPTIONS, get_kind
 
-__all__ = ["StudyTables", "aggregate", "setting_label", "to_csv", "to_json"]
+__all__ = ["StudyTables", "aggregate", "setting_label", "varying_parameters", "to_csv", "to_json"]
 
 _LEAD = ("job", "kind", "clip")
 
 
-def setting_label(params: dict) -> str:
-    """A short label of a job's parameter setting (clip options left out), keys sorted:
-    ``"gap=2 method=linear"``; ``"defaults"`` when there are none."""
-    items = [(k, v) for k, v in sorted(params.items()) if k not in CLIP_OPTIONS]
-    return " ".join(f"{k}={v}" for k, v in items) or "defaults"
+def setting_label(params: dict, keys=None) -> str:
+    """A short label of a job's parameter setting, keys sorted: ``"gap=2 method=linear"``.
+
+    Only `keys` are named when given (the parameters that vary within the study), clip options
+    never; ``"all"`` when no parameter is named.
+    """
+    items = [(k, v) for k, v in sorted(params.items()) if k not in CLIP_OPTIONS and (keys is None or k in keys)]
+    return " ".join(f"{k}={v}" for k, v in items) or "all"
+
+
+def varying_parameters(jobs: list[Job]) -> tuple[dict[str, list[str]], dict[str, dict]]:
+    """Per job kind: the parameters whose value differs between its jobs (sorted), and the
+    parameters every job of the kind shares, with their value."""
+    values: dict[str, dict[str, set]] = {}
+    for job in jobs:
+        per = values.setdefault(job.kind, {})
+        for k, v in job.params.items():
+            if k not in CLIP_OPTIONS:
+                per.setdefault(k, set()).add(json.dumps(v, sort_keys=True))
+    vary = {kind: sorted(k for k, vs in per.items() if len(vs) > 1) for kind, per in values.items()}
+    fixed = {kind: {k: json.loads(next(iter(vs))) for k, vs in sorted(per.items()) if len(vs) == 1} for kind, per in values.items()}
+    return vary, fixed
 
 
 def _number(value: Any) -> float | None:
@@ -54,17 +71,21 @@ class StudyTables:
     rows : list of dict
         Every result row of every finished job, in manifest order.
     per_clip : list of dict
-        One entry per (kind, setting, clip): ``kind``, ``setting``, ``clip``, ``rows`` and the mean of
-        each metric over the clip's rows.
+        One entry per (kind, setting, values of the kind's `group_by` columns, clip): ``kind``,
+        ``setting``, the group columns, ``clip``, ``rows`` and the mean of each metric over the
+        clip's rows.
     means : list of dict
-        One entry per (kind, setting): ``kind``, ``setting``, ``clips`` and the mean over clips of the
-        per-clip means (every clip weighs the same, whatever its length).
+        One entry per (kind, setting, group values): ``kind``, ``setting``, the group columns,
+        ``clips`` and the mean over clips of the per-clip means (every clip weighs the same, whatever
+        its length).
     metrics : dict of str to list of str
         Metric columns per kind, in first-seen order.
     failures : list of dict
         ``job``, ``kind``, ``clip``, ``setting``, ``error`` of each failed job.
     missing : list of str
         Ids of jobs without a record (not run yet).
+    fixed : dict of str to dict
+        Per kind, the parameters shared by all its jobs (the settings name only those that vary).
     """
 
     columns: list[str] = field(default_factory=list)
@@ -74,6 +95,7 @@ class StudyTables:
     metrics: dict[str, list[str]] = field(default_factory=dict)
     failures: list[dict] = field(default_factory=list)
     missing: list[str] = field(default_factory=list)
+    fixed: dict[str, dict] = field(default_factory=dict)
 
 
 def _param_columns(params: dict) -> dict:
@@ -106,9 +128,10 @@ def aggregate(jobs: list[Job], records: dict[str, dict]) -> StudyTables:
     columns: dict[str, None] = dict.fromkeys(_LEAD)
     result_columns: dict[str, None] = {}
     groups: dict[tuple, dict] = {}
+    vary, tables.fixed = varying_parameters(jobs)
     for job in jobs:
         rec = records.get(job.id)
-        setting = setting_label(job.params)
+        setting = setting_label(job.params, vary.get(job.kind, []))
         if rec is None:
             tables.missing.append(job.id)
             continue
@@ -118,15 +141,20 @@ def aggregate(jobs: list[Job], records: dict[str, dict]) -> StudyTables:
         pcols = _param_columns(job.params)
         for key in pcols:
             columns.setdefault(key, None)
-        kind_metrics = get_kind(job.kind).metrics
-        group = groups.setdefault((job.kind, setting, job.clip), {"n": 0, "sums": {}})
+        kind = get_kind(job.kind)
         for row in rec.get("rows", []):
             out = {"job": job.id, "kind": job.kind, "clip": job.clip, **pcols}
             for key, value in row.items():
-                name = key if key not in out or out[key] == value else f"row.{key}"
-                out[name] = value
+                out[key if key not in out or out[key] == value else f"row.{key}"] = value
+            split = tuple((g, row.get(g)) for g in kind.group_by)
+            group = groups.setdefault((job.kind, setting, split, job.clip), {"n": 0, "sums": {}})
+            for name, value in out.items():
+                if name in _LEAD or name in pcols:
+                    continue
                 result_columns.setdefault(name, None)
-                is_metric = name in kind_metrics if kind_metrics is not None else isinstance(value, float) or value in ("inf", "-inf", "nan")
+                if name in kind.group_by:
+                    continue
+                is_metric = name in kind.metrics if kind.metrics is not None else isinstance(value, float) or value in ("inf", "-inf", "nan")
                 if is_metric and _number(value) is not None:
                     ms = tables.metrics.setdefault(job.kind, [])
                     if name not in ms:
@@ -137,14 +165,14 @@ def aggregate(jobs: list[Job], records: dict[str, dict]) -> StudyTables:
     tables.columns = list(columns) + [c for c in result_columns if c not in columns]
 
     setting_clips: dict[tuple, list[dict]] = {}
-    for (kind, setting, clip), g in groups.items():
-        entry = {"kind": kind, "setting": setting, "clip": clip, "rows": g["n"]}
+    for (kind, setting, split, clip), g in groups.items():
+        entry = {"kind": kind, "setting": setting, **dict(split), "clip": clip, "rows": g["n"]}
         for m in tables.metrics.get(kind, []):
             entry[m] = _mean(g["sums"].get(m, []))
         tables.per_clip.append(entry)
-        setting_clips.setdefault((kind, setting), []).append(entry)
-    for (kind, setting), entries in setting_clips.items():
-        mean = {"kind": kind, "setting": setting, "clips": len(entries)}
+        setting_clips.setdefault((kind, setting, split), []).append(entry)
+    for (kind, setting, split), entries in setting_clips.items():
+        mean = {"kind": kind, "setting": setting, **dict(split), "clips": len(entries)}
         for m in tables.metrics.get(kind, []):
             vals = [e[m] for e in entries if not math.isnan(e[m])]
             mean[m] = _mean(vals)
@@ -175,6 +203,7 @@ def to_json(tables: StudyTables, *, header: dict) -> str:
     """
     doc = dict(header)
     doc.update(
+        fixed_parameters=tables.fixed,
         columns=tables.columns,
         means=tables.means,
         per_clip=tables.per_clip,

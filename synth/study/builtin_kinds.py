@@ -5,12 +5,20 @@
     `gap` pictures apart is predicted by a temporal blend of the references (or by one of them) and
     measured against the true picture. It needs nothing but the clip, runs in milliseconds on small
     clips, and is what the study machinery is tested with.
-``compare``, ``gop``, ``rd``
-    Adapters around the evaluation workbench (`synth.compare`, `synth.gop`) and the encoder-in-the-
-    loop measurement (`synth.rd`). Each one reads the clip by path (a temporary ``.y4m`` when the
-    manifest selects pictures or a window) and returns the per-picture rows of the library's result.
-    While a library function is missing from the installation, the kind reports itself unavailable
-    and a manifest using it is rejected before any job starts.
+``synthesise``
+    The product on the clip: vectors estimated between the references, the LMMSE synthesiser
+    (optionally in stripes), measured against the true in-between pictures.
+``rd``
+    The encoder-in-the-loop measurement (`synth.rdmeasure.measure_clip`): rows per target picture,
+    configuration and QP, with each configuration's BD-rate against the real references.
+``compare``, ``gop``
+    Adapters around the evaluation workbench (`synth.compare.compare`, `synth.gop.gop`). Each one
+    reads the clip by path (a temporary ``.y4m`` on the worker when the manifest selects pictures or
+    a window) and returns the per-picture rows of the library's result. Their rows carry the
+    measured ``seconds`` per picture, which naturally differ from run to run.
+
+While a kind's library function is missing from the installation, the kind reports itself
+unavailable and a manifest using it is rejected before any job starts.
 """
 
 from __future__ import annotations
@@ -39,6 +47,18 @@ def _at_least(n: int) -> Callable[[Any], str | None]:
 
 def _one_of(options) -> Callable[[Any], str | None]:
     return lambda v: None if v in options else f"must be one of {', '.join(options)}"
+
+
+def _with_defaults(kind: str, params: dict) -> dict:
+    """`params` with the kind's declared defaults filled in for keys it lacks (callers that bypass
+    the manifest, e.g. tests calling ``get_kind(...).run`` directly, may pass only some keys)."""
+    from .kinds import get_kind
+
+    out = dict(params)
+    for key, spec in (get_kind(kind).params or {}).items():
+        if key not in out and spec.default is not None:
+            out[key] = spec.default
+    return out
 
 
 def _blend(past: Picture, future: Picture, *, t: float, method: str) -> Picture:
@@ -80,8 +100,8 @@ def blend_rows(clip_path, params: dict, *, progress=None) -> list[dict]:
     ParameterError
         When the clip is shorter than one gap.
     """
-    gap = int(params.get("gap", 2))
-    method = params.get("method", "linear")
+    params = _with_defaults("blend", params)
+    gap, method = int(params["gap"]), params["method"]
     with open_job_clip(clip_path, params) as clip:
         n = len(clip)
         if n <= gap:
@@ -122,6 +142,76 @@ register_kind(
 )
 
 
+# --- synthesis with the product's estimator ------------------------------------------------------
+
+
+def synthesise_rows(clip_path, params: dict, *, progress=None) -> list[dict]:
+    """Run the ``synthesise`` kind: the LMMSE synthesiser on every in-between picture.
+
+    For each pair of references `gap` apart, a codec-like vector field of the future reference
+    against the past one is estimated at QP `qp` (`synth.estimate_field`), and every picture between
+    them is synthesised (`synth.study.stripes.synthesise_striped` with `stripe_rows` rows per stripe,
+    or the whole picture at once when `stripe_rows` is 0) and measured against the true picture.
+
+    Parameters
+    ----------
+    clip_path : path-like
+    params : dict
+        ``gap`` (int >= 2), ``qp`` (int 0..51, the vector field's rate constraint), ``method``
+        ('lmmse', 'distance_weighted', 'nearest'), ``stripe_rows`` (int >= 0) and the clip options.
+    progress : callable, optional
+        ``progress(done, total)`` after each synthesised picture.
+
+    Returns
+    -------
+    list of dict
+        ``past``, ``future``, ``target``, ``t``, ``psnr_y``/``psnr_cb``/``psnr_cr``, ``mse_y`` per
+        synthesised picture.
+    """
+    from synth.motion import estimate_field
+    from synth.params import SynthParams
+    from synth.synthesis import synthesise
+
+    from .stripes import synthesise_striped
+
+    params = _with_defaults("synthesise", params)
+    gap, qp, stripe_rows = int(params["gap"]), int(params["qp"]), int(params["stripe_rows"])
+    sp = SynthParams().with_changes(method=params["method"])
+    with open_job_clip(clip_path, params) as clip:
+        n = len(clip)
+        if n <= gap:
+            raise ParameterError(f"gap: the clip has {n} pictures, fewer than gap + 1 = {gap + 1}")
+        anchors = list(range(0, n - gap, gap))
+        total = len(anchors) * (gap - 1)
+        rows: list[dict] = []
+        future = clip.read(0)
+        for a in anchors:
+            past, future = future, clip.read(a + gap)
+            field = estimate_field(future, past, coded_time=a + gap, reference_time=a, qp=qp)
+            for k in range(1, gap):
+                t = k / gap
+                if stripe_rows:
+                    pred = synthesise_striped(past, future, [field], t=t, params=sp, stripe_rows=stripe_rows)
+                else:
+                    pred = synthesise(past, future, [field], t=t, params=sp)
+                truth = clip.read(a + k)
+                row = {"past": a, "future": a + gap, "target": a + k, "t": t}
+                for plane, value in picture_psnr(pred, truth).items():
+                    row[f"psnr_{plane.lower()}"] = value
+                row["mse_y"] = mean_squared_error(pred.y, truth.y)
+                rows.append(row)
+                if progress is not None:
+                    progress(len(rows), total)
+    return rows
+
+
+def _synthesis_available() -> str | None:
+    for module, name in (("synth.motion", "estimate_field"), ("synth.synthesis", "synthesise"), ("synth.params", "SynthParams")):
+        if _library_function(module, name) is None:
+            return f"job kind 'synthesise' is not available: {module}.{name} is not in this installation"
+    return None
+
+
 # --- adapters around the workbench and the encoder measurement ----------------------------------
 
 
@@ -131,6 +221,48 @@ def _library_function(module: str, name: str):
         return getattr(mod, name)
     except (ImportError, AttributeError):
         return None
+
+
+def rd_rows(clip_path, params: dict, *, progress=None) -> list[dict]:
+    """Run the ``rd`` kind: the encoder-in-the-loop measurement (`synth.rdmeasure.measure_clip`).
+
+    Parameters
+    ----------
+    clip_path : path-like
+    params : dict
+        ``gap``, ``qps`` (text such as ``"22,27,32,37"``), ``codec``, ``synthesiser``, ``refs``,
+        ``extra_qp``, ``preset``, ``offsets`` (with ``offset_block`` and ``offset_window``), ``limit``
+        (0: all targets), as for ``synth rd``; and the clip options.
+
+    Returns
+    -------
+    list of dict
+        The measurement's rows (one per target picture, configuration and QP: ``bits``, ``psnr_y``
+        ...), each with the clip's BD-rate (%) and BD-PSNR (dB) of its configuration against the
+        two real references (VCEG-M33; empty for the anchor itself).
+    """
+    from synth.rdmeasure import measure_clip, parse_qps
+    from synth.reference_makers import maker_by_name
+
+    params = _with_defaults("rd", params)
+    with open_job_clip(clip_path, params) as clip:
+        result = measure_clip(
+            clip.read, len(clip), clip=str(clip_path), gap=int(params["gap"]),
+            qps=parse_qps(params["qps"], bit_depth=clip.info.bit_depth), codec=params["codec"],
+            maker=maker_by_name(params["synthesiser"]), refs=params["refs"], extra_qp=int(params["extra_qp"]),
+            preset=params["preset"],
+            offsets={"block": int(params["offset_block"]), "window": int(params["offset_window"])} if params["offsets"] else None,
+            limit=int(params["limit"]) or None, progress=progress,
+        )
+    bd = result.bd()
+    rows = []
+    for r in result.rows:
+        r = {k: v for k, v in r.items() if k != "clip"}  # the study names clips itself
+        figures = bd.get(r["config"], {})
+        r["bd_rate"] = figures.get("bd_rate")
+        r["bd_psnr"] = figures.get("bd_psnr")
+        rows.append(r)
+    return rows
 
 
 def _rows_of(result) -> list[dict]:
@@ -146,7 +278,8 @@ def _rows_of(result) -> list[dict]:
     return [dict(r) for r in rows]
 
 
-def _adapter(kind: str, module: str, name: str, issue: int, headline: tuple[str, ...], summary: str) -> JobKind:
+def _adapter(kind: str, module: str, name: str, issue: int, *, params: dict[str, Param] | None, headline: tuple[str, ...],
+             metrics: tuple[str, ...] | None, group_by: tuple[str, ...], summary: str) -> JobKind:
     def available() -> str | None:
         if _library_function(module, name) is None:
             return f"job kind {kind!r} is not available yet: {module}.{name} is not in this installation (issue {issue})"
@@ -158,13 +291,107 @@ def _adapter(kind: str, module: str, name: str, issue: int, headline: tuple[str,
             raise KindUnavailable(available())
         options = {k: v for k, v in params.items() if k not in ("raw", "pictures", "window")}
         with clip_as_y4m(clip_path, params) as path:
-            return _rows_of(fn(path, **options))
+            rows = _rows_of(fn(path, **options))
+        return [{k: v for k, v in r.items() if k != "clip"} for r in rows]  # the study names clips itself
 
     run.__name__ = f"{kind}_rows"
     run.__doc__ = f"Run ``{module}.{name}`` on the job's clip and return its per-picture rows."
-    return JobKind(name=kind, run=run, params=None, headline=headline, summary=summary, available=available)
+    return JobKind(name=kind, run=run, params=params, headline=headline, metrics=metrics, group_by=group_by,
+                   summary=summary, available=available)
 
 
-register_kind(_adapter("compare", "synth.compare", "compare", 6, ("psnr_y",), "every predictor on every in-between picture (workbench)"))
-register_kind(_adapter("gop", "synth.gop", "gop", 6, ("psnr_y",), "hierarchical GOP synthesis per temporal layer (workbench)"))
-register_kind(_adapter("rd", "synth.rd", "rd", 5, ("bits", "psnr_y"), "rate-distortion points with a real encoder (encoder side)"))
+def _rd_available() -> str | None:
+    for module, name in (("synth.rdmeasure", "measure_clip"), ("synth.reference_makers", "maker_by_name")):
+        if _library_function(module, name) is None:
+            return f"job kind 'rd' is not available yet: {module}.{name} is not in this installation (issue 5)"
+    return None
+
+
+def _int_range(lo: int, hi: int) -> Callable[[Any], str | None]:
+    return lambda v: None if lo <= v <= hi else f"must be in {lo}..{hi}"
+
+
+register_kind(
+    JobKind(
+        name="synthesise",
+        run=synthesise_rows,
+        params={
+            "gap": Param((int,), 2, _at_least(2), "distance between the two references, in pictures"),
+            "qp": Param((int,), 27, _int_range(0, 51), "QP of the estimated vector field (rate constraint)"),
+            "method": Param((str,), "lmmse", _one_of(("lmmse", "distance_weighted", "nearest")), "weights of the candidates"),
+            "stripe_rows": Param((int,), 0, lambda v: None if v >= 0 else "must be >= 0", "rows per stripe (0: whole picture)"),
+        },
+        headline=("psnr_y",),
+        metrics=("psnr_y", "psnr_cb", "psnr_cr", "mse_y"),
+        summary="the LMMSE synthesiser from estimated coded vectors, measured against the true in-between pictures",
+        available=_synthesis_available,
+    )
+)
+register_kind(
+    JobKind(
+        name="rd",
+        run=rd_rows,
+        params={
+            "gap": Param((int,), 8, _at_least(2), "distance between the two references"),
+            "qps": Param((str,), "22,27,32,37", None, "comma-separated QPs, four or more"),
+            "codec": Param((str,), "h264", _one_of(("h264", "hevc")), "h264 (x264) or hevc (x265)"),
+            "synthesiser": Param((str,), "estimator", _one_of(("estimator", "blend")), "maker of the synthetic reference"),
+            "refs": Param((str,), "decoded", _one_of(("decoded", "source")), "synthesise from decoded or source references"),
+            "extra_qp": Param((int,), 4, _int_range(0, 51), "QP of the extra reference picture"),
+            "preset": Param((str,), "medium", None, "encoder speed preset"),
+            "offsets": Param((bool,), False, None, "also measure the offset-corrected synthetic picture"),
+            "offset_block": Param((int,), 16, _one_of((8, 16, 32)), "offset block size (with offsets)"),
+            "offset_window": Param((int,), 2, _at_least(1), "offset search range in luma samples (with offsets)"),
+            "limit": Param((int,), 0, lambda v: None if v >= 0 else "must be >= 0", "only the first N targets (0: all)"),
+        },
+        headline=("bits", "psnr_y"),
+        metrics=("bits", "psnr_y", "psnr_cb", "psnr_cr", "bd_rate", "bd_psnr"),
+        group_by=("config", "qp"),
+        summary="bits and PSNR of the target picture coded by a real encoder, per configuration and QP; BD-rate against the real references",
+        available=_rd_available,
+    )
+)
+_WORKBENCH_METRICS = ("psnr_yuv", "psnr_y", "psnr_cb", "psnr_cr", "ssim_y", "mae_y")
+
+
+def _qp_list(v) -> str | None:
+    if isinstance(v, int):
+        return None if 0 <= v <= 51 else "must be in 0..51"
+    parts = [p.strip() for p in str(v).split(",")]
+    if not parts or not all(p.isdigit() and 0 <= int(p) <= 51 for p in parts):
+        return "must be a QP 0..51 or comma-separated QPs such as \"22,32,42\""
+    return None
+
+
+def _positive(v) -> str | None:
+    return None if v >= 1 else "must be at least 1"
+
+
+register_kind(
+    _adapter(
+        "compare", "synth.compare", "compare", 6,
+        params={
+            "gap": Param((int,), 8, _at_least(2), "distance between the two references"),
+            "predictors": Param((str,), None, None, "comma-separated predictor names (default: all)"),
+            "vector_qp": Param((int, str), None, _qp_list, "QP(s) of the estimated vectors"),
+            "frames": Param((int,), None, _positive, "use only the first N pictures"),
+        },
+        headline=("psnr_yuv",), metrics=_WORKBENCH_METRICS, group_by=("method",),
+        summary="every predictor on every in-between picture (workbench)",
+    )
+)
+register_kind(
+    _adapter(
+        "gop", "synth.gop", "gop", 6,
+        params={
+            "size": Param((int,), 16, _one_of((2, 4, 8, 16, 32, 64)), "GOP size"),
+            "flat": Param((bool,), None, None, "synthesise every picture straight from the anchors"),
+            "decoded_refs": Param((int,), None, _int_range(0, 51), "references after an H.264 encode at this QP"),
+            "predictors": Param((str,), None, None, "comma-separated predictor names (default: all)"),
+            "vector_qp": Param((int, str), None, _qp_list, "QP(s) of the estimated vectors"),
+            "frames": Param((int,), None, _positive, "use only the first N pictures"),
+        },
+        headline=("psnr_yuv",), metrics=_WORKBENCH_METRICS, group_by=("method", "layer"),
+        summary="hierarchical GOP synthesis per temporal layer (workbench)",
+    )
+)

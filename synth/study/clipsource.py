@@ -4,7 +4,9 @@ A manifest's clip entry may carry three options that travel to every job as para
 part of the job's identity):
 
 ``raw``
-    geometry of a headerless planar ``.yuv`` file: ``{width, height, chroma, bit_depth, rate}``.
+    geometry of a headerless planar ``.yuv`` file: ``{width, height, chroma, bit_depth, rate}``,
+    completed from the file name (``dock_1280x720_10bit.yuv``) and defaults when the manifest loads,
+    so a job's identity always holds the whole geometry; read with `synth.io.open_clip`.
 ``pictures``
     ``[first, last]``: only pictures ``first..last`` (inclusive, 0-based) are used; they are
     renumbered from 0.
@@ -23,13 +25,11 @@ from fractions import Fraction
 from pathlib import Path
 from typing import Any, Iterator
 
-import numpy as np
-
-from synth.errors import FormatError, ParameterError
+from synth.errors import ParameterError
 from synth.io import open_clip, write_y4m
-from synth.picture import ClipInfo, Picture, chroma_factors, chroma_shape
+from synth.picture import ClipInfo, Picture, chroma_factors
 
-__all__ = ["RawYUVClip", "ClipView", "open_job_clip", "clip_as_y4m", "check_raw_geometry"]
+__all__ = ["ClipView", "open_job_clip", "clip_as_y4m", "check_raw_geometry", "raw_geometry_for"]
 
 
 def check_raw_geometry(raw: dict[str, Any], *, where: str = "raw") -> dict[str, Any]:
@@ -47,7 +47,7 @@ def check_raw_geometry(raw: dict[str, Any], *, where: str = "raw") -> dict[str, 
     out: dict[str, Any] = {}
     for key in ("width", "height"):
         if key not in raw:
-            raise ParameterError(f"{where}.{key}: missing (a raw .yuv file needs its width and height)")
+            raise ParameterError(f"{where}.{key}: missing (a raw .yuv file needs its width and height, here or as WxH in its name)")
         value = raw[key]
         if isinstance(value, bool) or not isinstance(value, int) or value <= 0:
             raise ParameterError(f"{where}.{key}: expected a positive integer, got {value!r}")
@@ -74,50 +74,25 @@ def check_raw_geometry(raw: dict[str, Any], *, where: str = "raw") -> dict[str, 
     return out
 
 
-class RawYUVClip:
-    """Random-access reader of a headerless planar YUV file (Y, then Cb, then Cr per picture;
-    16-bit little-endian samples above 8 bits), memory-mapped so only the pictures read are touched."""
+def raw_geometry_for(path: str | os.PathLike, given: dict[str, Any] | None, *, where: str = "raw") -> dict[str, Any]:
+    """The full geometry of a raw ``.yuv`` file: the manifest's `given` keys, else what the file name
+    says (``WxH``, rate after the size, ``10bit``, ``422``...; see `synth.io.rawyuv`), else defaults
+    (4:2:0, 8-bit, 25/1).
 
-    def __init__(self, path: str | os.PathLike, *, width: int, height: int, chroma: str = "420", bit_depth: int = 8, rate: str = "25/1"):
-        self.path = Path(path)
-        if not self.path.is_file():
-            raise FormatError(f"{self.path}: no such file")
-        self.info = ClipInfo(width, height, chroma, bit_depth, frame_rate=Fraction(rate), container="yuv")
-        size = self.path.stat().st_size
-        frame = self.info.frame_bytes
-        if size == 0 or size % frame:
-            raise FormatError(
-                f"{self.path}: file size {size} is not a multiple of the picture size {frame} bytes "
-                f"({width}x{height} {chroma} {bit_depth}-bit)"
-            )
-        self.info.frame_count = size // frame
-        self._dtype = np.dtype("<u2") if bit_depth > 8 else np.dtype(np.uint8)
-        self._map = np.memmap(self.path, dtype=self._dtype, mode="r")
+    Raises
+    ------
+    ParameterError
+        When neither the manifest nor the name gives the size, or a value is bad.
+    """
+    from synth.io.rawyuv import geometry_from_name
 
-    def __len__(self) -> int:
-        return self.info.frame_count
-
-    def read(self, index: int) -> Picture:
-        n = len(self)
-        if not -n <= index < n:
-            raise FormatError(f"{self.path}: picture index {index} out of range (clip has {n} pictures)")
-        index %= n
-        info = self.info
-        per = info.frame_bytes // self._dtype.itemsize
-        buf = self._map[index * per : (index + 1) * per]
-        h, w = info.height, info.width
-        native = np.uint16 if info.bit_depth > 8 else np.uint8
-        y = np.array(buf[: h * w].reshape(h, w), dtype=native)
-        cs = chroma_shape(h, w, info.chroma_format)
-        if cs is None:
-            return Picture(y, None, None, "mono", info.bit_depth)
-        m = cs[0] * cs[1]
-        cb = np.array(buf[h * w : h * w + m].reshape(cs), dtype=native)
-        cr = np.array(buf[h * w + m : h * w + 2 * m].reshape(cs), dtype=native)
-        return Picture(y, cb, cr, info.chroma_format, info.bit_depth)
-
-    def close(self) -> None:
-        self._map = None  # type: ignore[assignment]
+    hints = geometry_from_name(Path(path).name)
+    merged: dict[str, Any] = {}
+    for ours, theirs in (("width", "width"), ("height", "height"), ("chroma", "chroma_format"), ("bit_depth", "bit_depth"), ("rate", "frame_rate")):
+        if theirs in hints:
+            merged[ours] = hints[theirs] if ours != "rate" else str(Fraction(hints[theirs]))
+    merged.update(given or {})
+    return check_raw_geometry(merged, where=where)
 
 
 class ClipView:
@@ -185,7 +160,11 @@ class ClipView:
 def open_job_clip(clip_path: str | os.PathLike, params: dict[str, Any]) -> ClipView:
     """Open the clip of a job, applying the clip options found in `params` (raw, pictures, window)."""
     raw = params.get("raw")
-    reader = RawYUVClip(clip_path, **raw) if raw else open_clip(clip_path)
+    if raw:
+        reader = open_clip(clip_path, width=raw["width"], height=raw["height"], chroma_format=raw["chroma"],
+                           bit_depth=raw["bit_depth"], frame_rate=Fraction(raw["rate"]))
+    else:
+        reader = open_clip(clip_path)
     try:
         return ClipView(reader, pictures=params.get("pictures"), window=params.get("window"))
     except BaseException:

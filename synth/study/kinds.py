@@ -107,6 +107,9 @@ class JobKind:
     metrics : tuple of str, or None
         Result columns averaged in the per-clip and mean tables; None takes every column holding
         floating-point values.
+    group_by : tuple of str
+        Result columns that split the tables further (e.g. ``('config', 'qp')`` when a job's rows
+        cover several configurations): means are taken per value of these columns.
     summary : str
         One line for `synth study --kinds` and the documentation.
     available : callable, optional
@@ -118,6 +121,7 @@ class JobKind:
     params: dict[str, Param] | None = field(default_factory=dict)
     headline: tuple[str, ...] = ()
     metrics: tuple[str, ...] | None = None
+    group_by: tuple[str, ...] = ()
     summary: str = ""
     available: Callable[[], str | None] | None = None
 

@@ -10,7 +10,8 @@ A manifest is a TOML file (parsed with the standard library's `tomllib`)::
     name = "crane"                               # optional label (single files only)
     pictures = [0, 8]                            # optional: first and last picture used
     window = [0, 0, 128, 96]                     # optional: x, y, width, height (luma)
-    raw = { width = 640, height = 360 }          # required for .yuv: chroma, bit_depth, rate optional
+    raw = { width = 640, height = 360 }          # .yuv only, unless the name says WxH; chroma,
+                                                 # bit_depth, rate optional
 
     [[tasks]]                                    # one table per job kind to run
     kind = "blend"                               # a registered job kind
@@ -36,7 +37,7 @@ from typing import Any
 
 from synth.errors import FormatError, ParameterError
 
-from .clipsource import check_raw_geometry
+from .clipsource import raw_geometry_for
 from .kinds import get_kind
 
 __all__ = ["ClipEntry", "Task", "JobSpec", "Manifest", "load_manifest", "parse_manifest"]
@@ -44,7 +45,7 @@ __all__ = ["ClipEntry", "Task", "JobSpec", "Manifest", "load_manifest", "parse_m
 _TOP_KEYS = {"title", "description", "clips", "tasks"}
 _CLIP_KEYS = {"path", "name", "pictures", "window", "raw"}
 _TASK_KEYS = {"kind", "clips", "grid", "fixed"}
-_RAW_SUFFIXES = {".yuv", ".raw"}
+_RAW_SUFFIXES = {".yuv"}
 
 
 @dataclass(frozen=True)
@@ -165,7 +166,7 @@ def _clip_entries(i: int, table: Any, root: Path) -> list[tuple[str | None, Path
         options["window"] = [x, y, w, h]
     if "raw" in table:
         _expect(isinstance(table["raw"], dict), f"{where}.raw", f"expected a table, got {_type_name(table['raw'])}")
-        options["raw"] = check_raw_geometry(table["raw"], where=f"{where}.raw")
+        _check_keys(table["raw"], {"width", "height", "chroma", "bit_depth", "rate"}, f"{where}.raw")
     full = pattern if os.path.isabs(pattern) else str(root / pattern)
     if glob.has_magic(pattern):
         paths = sorted(Path(p) for p in glob.glob(full, recursive=True) if os.path.isfile(p))
@@ -180,9 +181,12 @@ def _clip_entries(i: int, table: Any, root: Path) -> list[tuple[str | None, Path
         _expect(isinstance(name, str) and name.strip() != "", f"{where}.name", f"expected a non-empty string, got {name!r}")
     out = []
     for p in paths:
-        is_raw = p.suffix.lower() in _RAW_SUFFIXES
-        _expect(not is_raw or "raw" in options, f"{where}.raw", f"missing: {p.name} is a raw YUV file and needs its geometry")
-        out.append((name, p.resolve(), dict(options)))
+        opts = dict(options)
+        if p.suffix.lower() in _RAW_SUFFIXES:
+            opts["raw"] = raw_geometry_for(p, table.get("raw"), where=f"{where}.raw")
+        else:
+            _expect("raw" not in table, f"{where}.raw", f"only for raw .yuv files, but {p.name} is not one")
+        out.append((name, p.resolve(), opts))
     return out
 
 

@@ -42,16 +42,21 @@ def _plot(tables: StudyTables, kind: str, metric: str, path: Path) -> bool:
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
 
-    settings = [m["setting"] for m in tables.means if m["kind"] == kind]
+    split = get_kind(kind).group_by
+
+    def label(e: dict) -> str:
+        return " ".join([e["setting"]] * (e["setting"] != "all") + [f"{g}={e.get(g)}" for g in split]) or "all"
+
+    settings = [label(m) for m in tables.means if m["kind"] == kind]
     if not settings:
         return False
     xs = range(len(settings))
     clips = sorted({e["clip"] for e in tables.per_clip if e["kind"] == kind})
-    fig, ax = plt.subplots(figsize=(max(5.0, 0.9 * len(settings) + 2.5), 3.6), dpi=100)
+    fig, ax = plt.subplots(figsize=(min(16.0, max(5.0, 0.6 * len(settings) + 2.5)), 3.8), dpi=100)
     for clip in clips:
-        by = {e["setting"]: e.get(metric, float("nan")) for e in tables.per_clip if e["kind"] == kind and e["clip"] == clip}
+        by = {label(e): e.get(metric, float("nan")) for e in tables.per_clip if e["kind"] == kind and e["clip"] == clip}
         ax.plot(xs, [by.get(s, float("nan")) for s in settings], marker="o", linewidth=1.0, alpha=0.75, label=clip)
-    means = {m["setting"]: m.get(metric, float("nan")) for m in tables.means if m["kind"] == kind}
+    means = {label(m): m.get(metric, float("nan")) for m in tables.means if m["kind"] == kind}
     ax.plot(xs, [means[s] for s in settings], marker="s", color="black", linewidth=2.2, label="mean over clips")
     ax.set_xticks(list(xs))
     ax.set_xticklabels(settings, rotation=30, ha="right", fontsize=8)
@@ -113,10 +118,15 @@ def write_report(tables: StudyTables, out_dir: str | os.PathLike, *, header: dic
     for kind in kinds:
         metrics = tables.metrics.get(kind, [])
         parts.append(f"<h2>{html.escape(kind)}: {html.escape(get_kind(kind).summary)}</h2>")
+        shared = tables.fixed.get(kind, {})
+        if shared:
+            text = ", ".join(f"{k} = {v}" for k, v in shared.items())
+            parts.append(f"<p class='note'>Every {html.escape(kind)} job: {html.escape(text)}.</p>")
+        split = list(get_kind(kind).group_by)
         parts.append("<h3>Mean over clips</h3>")
-        parts.append(_html_table([m for m in tables.means if m["kind"] == kind], ["setting", "clips", *metrics]))
+        parts.append(_html_table([m for m in tables.means if m["kind"] == kind], ["setting", *split, "clips", *metrics]))
         parts.append("<h3>Per clip</h3>")
-        parts.append(_html_table([e for e in tables.per_clip if e["kind"] == kind], ["setting", "clip", "rows", *metrics]))
+        parts.append(_html_table([e for e in tables.per_clip if e["kind"] == kind], ["setting", *split, "clip", "rows", *metrics]))
         for metric in get_kind(kind).headline:
             if metric not in metrics:
                 continue

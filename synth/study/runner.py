@@ -201,7 +201,8 @@ def run_study(
 
     run_id = datetime.now(timezone.utc).strftime("%Y%m%dT%H%M%S%fZ") + "-" + secrets.token_hex(3)
     log = _RunLog(out_dir / "runs" / f"{run_id}.jsonl")
-    log.write("start", executor=executor.describe(), total=len(unique), skipped=len(done), code_version=code_version())
+    log.write("start", executor=executor.describe(), total=len(unique), skipped=len(done), code_version=code_version(),
+              warnings=list(executor.warnings))
     log.write("submit", jobs=[j.id for j in pending])
     skipped, failed, ran = len(done), [], 0
     if progress is not None:

@@ -33,8 +33,8 @@ from synth.picture import Picture
 
 __all__ = ["plan_stripes", "run_striped", "synthesise_striped", "DEFAULT_STRIPE_ROWS"]
 
-#: Default stripe height in luma rows: 256 rows of a 3840-wide picture are about 1 million pixels.
-DEFAULT_STRIPE_ROWS = 256
+#: Default stripe height in luma rows (about 2 million pixels of a 3840-wide picture).
+DEFAULT_STRIPE_ROWS = 512
 
 
 def plan_stripes(height: int, *, stripe_rows: int, align: int = 1) -> list[tuple[int, int]]:
