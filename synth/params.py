@@ -31,6 +31,8 @@ PARAMS_VERSION = 1
 
 #: Ways of combining the candidates of a pixel (same candidate pool for all three).
 METHODS = ("lmmse", "distance_weighted", "nearest")
+#: How the 'lmmse' method judges its observations (see `synth.reliability`).
+RELIABILITIES = ("learned", "distance")
 #: Sub-sample interpolation filters for the observations (OpenCV remap kernels).
 INTERPOLATIONS = ("sixtap", "bicubic", "bilinear")
 
@@ -88,6 +90,15 @@ class SynthParams:
     border_margin : float
         An endpoint more than this many samples outside its picture is not used: the observation then
         comes from the other reference only.
+    reliability : {'learned', 'distance'}
+        How 'lmmse' judges its observations. 'distance': the correlation model of
+        :mod:`synth.estimate` (endpoint agreement tempered by the distance to the landing spot).
+        'learned': every side observation's error variance is predicted from cues by a model fitted
+        with ``synth calibrate`` (:mod:`synth.reliability`); used when the fields cover both coding
+        directions, else 'distance' applies.
+    reliability_coefficients : tuple of float
+        Coefficients of the learned error model (cue set ``synth.reliability.CUE_SET``); empty:
+        the built-in calibrated ones (``synth.reliability.DEFAULT_COEFFICIENTS``).
     """
 
     method: str = "lmmse"
@@ -107,6 +118,8 @@ class SynthParams:
     idw_power: float = 2.0
     disagreement_threshold: float = 0.0
     border_margin: float = 1.0
+    reliability: str = "distance"
+    reliability_coefficients: tuple = ()
 
     def __post_init__(self) -> None:
         self.validate()
@@ -128,6 +141,18 @@ class SynthParams:
 
         if self.method not in METHODS:
             raise ParameterError(f"parameter method must be one of {', '.join(METHODS)}, got {self.method!r}")
+        if self.reliability not in RELIABILITIES:
+            raise ParameterError(
+                f"parameter reliability must be one of {', '.join(RELIABILITIES)}, got {self.reliability!r}"
+            )
+        if not isinstance(self.reliability_coefficients, tuple):
+            raise ParameterError(
+                f"parameter reliability_coefficients must be a list of numbers, got {type(self.reliability_coefficients).__name__}"
+            )
+        if self.reliability_coefficients:
+            from .reliability import check_coefficients
+
+            check_coefficients(self.reliability_coefficients)
         if self.interpolation not in INTERPOLATIONS:
             raise ParameterError(
                 f"parameter interpolation must be one of {', '.join(INTERPOLATIONS)}, got {self.interpolation!r}"
@@ -167,7 +192,17 @@ class SynthParams:
         return replace(self, **changes)
 
     def to_dict(self) -> dict:
-        return asdict(self)
+        d = asdict(self)
+        d["reliability_coefficients"] = list(self.reliability_coefficients)
+        return d
+
+    def effective_coefficients(self) -> tuple:
+        """The learned model's coefficients in use: this file's, else the built-in calibrated ones."""
+        if self.reliability_coefficients:
+            return self.reliability_coefficients
+        from .reliability import DEFAULT_COEFFICIENTS
+
+        return DEFAULT_COEFFICIENTS
 
     @classmethod
     def from_dict(cls, data: dict) -> "SynthParams":
@@ -183,6 +218,10 @@ class SynthParams:
             default = getattr(cls, name)
             if isinstance(default, float) and isinstance(value, int) and not isinstance(value, bool):
                 value = float(value)
+            if isinstance(default, tuple) and isinstance(value, list):
+                if not all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in value):
+                    raise ParameterError(f"parameter {name} must be a list of numbers")
+                value = tuple(float(v) for v in value)
             values[name] = value
         return cls(**values)
 

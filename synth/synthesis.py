@@ -185,9 +185,11 @@ class _Synthesiser:
     """Everything computed once per call (full-picture inputs), and the per-band computation."""
 
     def __init__(
-        self, past: Picture, future: Picture, landed: LandedVectors, params: SynthParams, k: int, group_rows, pool
+        self, past: Picture, future: Picture, landed: LandedVectors, params: SynthParams, k: int, group_rows, pool,
+        learned=None,
     ):
         self.p = params
+        self.learned = learned  # synth.reliability.LearnedReliability or None
         self.k = k
         self.g = params.group_size
         self.c = params.weight_cell
@@ -293,6 +295,11 @@ class _Synthesiser:
             w = np.where(vmask, np.float32(1) / np.power(dc + np.float32(1), np.float32(p.idw_power)), zero)
             sw = w.sum(axis=0)
             coef = (w / np.where(sw > 0, sw, np.float32(1))[None]).astype(np.float32)
+        elif self.learned is not None:  # learned reliability: side weights once the border rule is known
+            ex = np.maximum(np.abs(ddx) - col["hw"][:, None, :], zero)
+            ey = np.maximum(np.abs(ddy) - col["hh"][:, None, :], zero)
+            dist = np.sqrt(ex * ex + ey * ey)
+            coef = np.zeros((K,) + Xc.shape, np.float32)
         else:
             ex = np.maximum(np.abs(ddx) - col["hw"][:, None, :], zero)
             ey = np.maximum(np.abs(ddy) - col["hh"][:, None, :], zero)
@@ -333,9 +340,20 @@ class _Synthesiser:
         if hole.any():  # co-located average through slot 0 (zero displacement)
             coef[0][:, hole] = 1.0
             share[0][:, hole] = 0.5
-            conf[:, hole] = 0
-        alpha = coef * share
-        beta = coef - alpha
+            if conf is not None:
+                conf[:, hole] = 0
+        if self.learned is not None and p.method == "lmmse":
+            agreement = np.where(valid, col["srho"] * col["srho"], zero)
+            alpha, beta, conf = self.learned.weights(
+                self.samplers[0], {**col, "agreement": agreement}, safe, valid, share, Xc, Yc, dist
+            )
+            if hole.any():
+                alpha[0][:, hole] = 0.5
+                beta[0][:, hole] = 0.5
+                conf[:, hole] = 0
+        else:
+            alpha = coef * share
+            beta = coef - alpha
         act_a = np.any(alpha != 0, axis=1)  # (K, G): slot used on the past side by the group
         act_b = np.any(beta != 0, axis=1)
 
@@ -396,6 +414,20 @@ class _Synthesiser:
                 obs = sf.sample_xy((base_x + fx_k).reshape(Pr, Pc), (base_y + fy_k).reshape(Pr, Pc))
                 cv2.accumulateProduct(obs, B[k], est)
         return est
+
+
+def _learned_reliability(params: SynthParams, fields, landed: LandedVectors, past: Picture):
+    """The learned reliability of `synth.reliability` when the parameters ask for it and apply."""
+    if params.method != "lmmse" or params.reliability != "learned" or len(landed) == 0:
+        return None
+    from .reliability import LearnedReliability
+
+    coefficients = params.effective_coefficients()
+    if not coefficients or not LearnedReliability.applicable(fields, landed):
+        return None
+    return LearnedReliability(
+        coefficients, fields, landed, height=past.height, width=past.width, bit_depth=past.bit_depth
+    )
 
 
 def synthesise_with_maps(
@@ -485,7 +517,8 @@ def synthesise_with_maps(
     if isinstance(workers, bool) or not isinstance(workers, int) or workers < 1:
         raise ParameterError(f"workers must be a positive integer, got {workers!r}")
     with (ThreadPoolExecutor(max_workers=workers) if workers > 1 else _InlineExecutor()) as pool:
-        eng = _Synthesiser(past, future, landed, params, k, (b_first // g, -(-b_last // g)), pool)
+        learned = _learned_reliability(params, fields, landed, past)
+        eng = _Synthesiser(past, future, landed, params, k, (b_first // g, -(-b_last // g)), pool, learned)
         starts = list(range((y0 // BAND_ROWS) * BAND_ROWS, y1, BAND_ROWS))
         results = pool.map(lambda b0: (b0, eng.band_samples(b0, min(H, b0 + BAND_ROWS))), starts)
         results = list(results)
