@@ -234,6 +234,72 @@ def frame(
         typer.echo(f"written        {o['output']}")
 
 
+@app.command()
+def calibrate(
+    clips: list[Path] = typer.Argument(..., help="Training clips (.y4m, or any video OpenCV decodes)."),
+    output: Path = typer.Option(..., "--output", "-o", help="Parameter file to write (JSON)."),
+    gaps: str = typer.Option("2,4,8", "--gaps", help="Reference distances, even, comma-separated."),
+    frames: int = typer.Option(33, "--frames", help="Pictures of each clip used (from --start)."),
+    start: int = typer.Option(0, "--start", help="First picture of each clip used."),
+    per_gap: int = typer.Option(3, "--per-gap", help="Target pictures per clip and reference distance."),
+    qp: int = typer.Option(27, "--qp", help="QP of the motion estimator that supplies the vectors."),
+    params: Optional[Path] = typer.Option(None, "--params", help="Starting parameter file (default: built-in values)."),
+    refine: bool = typer.Option(True, "--refine/--no-refine", help="Refine by maximising prediction PSNR."),
+    evaluations: int = typer.Option(24, "--evaluations", help="Most parameter sets the refinement tries."),
+    as_json: bool = typer.Option(False, "--json", help="Print the fit record as JSON."),
+) -> None:
+    """Fit the synthesis parameters and the learned reliability on training clips."""
+    from .calibrate import calibrate as run_calibration, training_cases
+    from .io import atomic_write_text
+    from .params import SynthParams
+
+    try:
+        gap_list = [int(v) for v in gaps.split(",") if v.strip()]
+    except ValueError:
+        raise SynthError(f"--gaps must be comma-separated even integers, got {gaps!r}") from None
+    if not gap_list:
+        raise SynthError(f"--gaps must name at least one reference distance, got {gaps!r}")
+    if frames < 3:
+        raise SynthError(f"--frames must be at least 3, got {frames}")
+    if evaluations < 1:
+        raise SynthError(f"--evaluations must be at least 1, got {evaluations}")
+    for clip in clips:
+        if not clip.is_file():
+            raise SynthError(f"{clip}: no such clip")
+    start_params = SynthParams.load(params) if params is not None else SynthParams()
+    cases = []
+    for clip in clips:
+        typer.echo(f"reading {clip} (pictures {start}..{start + frames - 1}, distances {gap_list})", err=True)
+        cases += training_cases(clip, gaps=gap_list, start=start, frames=frames, per_gap=per_gap, qp=qp)
+    result = run_calibration(
+        cases, params=start_params, refine=refine, evaluations=evaluations,
+        progress=lambda msg: typer.echo(msg, err=True),
+    )  # fmt: skip
+    atomic_write_text(output, result.to_json())
+    rec = result.record
+    if as_json:
+        _print_json(rec)
+        return
+    p = result.params
+    m = rec["measured"]
+    typer.echo(f"cases          {len(cases)} from {len(clips)} clip(s)")
+    typer.echo(
+        f"measured       spatial_correlation {m['spatial_correlation']:.3f}, innovation_nugget "
+        f"{m['innovation_nugget']:.3f}, reliability_scale {m['reliability_scale']:.1f}"
+    )
+    if "refinement" in rec:
+        r = rec["refinement"]
+        typer.echo(
+            f"refined        spatial_correlation {p.spatial_correlation:.3f}, reliability_scale "
+            f"{p.reliability_scale:.1f} (mean PSNR-Y {r['before']:.2f} -> {r['after']:.2f} dB, {r['evaluations']} evaluations)"
+        )
+    lr = rec["learned"]
+    typer.echo(f"learned        {len(p.reliability_coefficients)} coefficients, {lr['samples']} samples, R^2 {lr['r2']:.3f}")
+    for name, v in rec["psnr"].items():
+        typer.echo(f"PSNR-Y         {name}: {v['before']:.2f} -> {v['after']:.2f} dB ({v['cases']} pictures)")
+    typer.echo(f"written        {output}")
+
+
 # =============================================================================================
 # Encoder side: export, rd  (issue 5)
 # =============================================================================================
