@@ -96,6 +96,9 @@ class SynthParams:
         'learned': every side observation's error variance is predicted from cues by a model fitted
         with ``synth calibrate`` (:mod:`synth.reliability`); used when the fields cover both coding
         directions, else 'distance' applies.
+    learned_share : float
+        With ``reliability='learned'``: the weights are this share of the learned model's plus the
+        rest of the correlation model's (1: learned only).
     reliability_coefficients : tuple of float
         Coefficients of the learned error model (cue set ``synth.reliability.CUE_SET``); empty:
         the built-in calibrated ones (``synth.reliability.DEFAULT_COEFFICIENTS``).
@@ -106,9 +109,9 @@ class SynthParams:
     candidates_both_directions: int = 12
     group_size: int = 8
     reach: float = 48.0
-    spatial_correlation: float = 0.7
-    innovation_nugget: float = 0.1
-    reliability_scale: float = 48.0
+    spatial_correlation: float = 0.69
+    innovation_nugget: float = 0.05
+    reliability_scale: float = 28.0
     max_correlation: float = 0.99
     agreement_floor: float = 20.0
     agreement_margin: int = 4
@@ -119,6 +122,7 @@ class SynthParams:
     disagreement_threshold: float = 0.0
     border_margin: float = 1.0
     reliability: str = "distance"
+    learned_share: float = 0.5
     reliability_coefficients: tuple = ()
 
     def __post_init__(self) -> None:
@@ -177,6 +181,7 @@ class SynthParams:
             "idw_power": (lambda v: 0 <= v <= 8, "in [0, 8]"),
             "disagreement_threshold": (lambda v: 0 <= v <= 1, "in [0, 1]"),
             "border_margin": (lambda v: 0 <= v <= 64, "in [0, 64]"),
+            "learned_share": (lambda v: 0 <= v <= 1, "in [0, 1]"),
         }
         for name, (ok, rule) in rules.items():
             v = number(name)

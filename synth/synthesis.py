@@ -295,7 +295,7 @@ class _Synthesiser:
             w = np.where(vmask, np.float32(1) / np.power(dc + np.float32(1), np.float32(p.idw_power)), zero)
             sw = w.sum(axis=0)
             coef = (w / np.where(sw > 0, sw, np.float32(1))[None]).astype(np.float32)
-        elif self.learned is not None:  # learned reliability: side weights once the border rule is known
+        elif self.learned is not None and p.learned_share >= 1:  # learned only: weights after the border rule
             ex = np.maximum(np.abs(ddx) - col["hw"][:, None, :], zero)
             ey = np.maximum(np.abs(ddy) - col["hh"][:, None, :], zero)
             dist = np.sqrt(ex * ex + ey * ey)
@@ -342,18 +342,25 @@ class _Synthesiser:
             share[0][:, hole] = 0.5
             if conf is not None:
                 conf[:, hole] = 0
+        alpha = coef * share
+        beta = coef - alpha
         if self.learned is not None and p.method == "lmmse":
+            # learned side weights, mixed with the correlation model's by learned_share
             agreement = np.where(valid, col["srho"] * col["srho"], zero)
-            alpha, beta, conf = self.learned.weights(
+            la, lb, lconf = self.learned.weights(
                 self.samplers[0], {**col, "agreement": agreement}, safe, valid, share, Xc, Yc, dist
             )
             if hole.any():
-                alpha[0][:, hole] = 0.5
-                beta[0][:, hole] = 0.5
-                conf[:, hole] = 0
-        else:
-            alpha = coef * share
-            beta = coef - alpha
+                la[0][:, hole] = 0.5
+                lb[0][:, hole] = 0.5
+                lconf[:, hole] = 0
+            lam = np.float32(p.learned_share)
+            if lam >= 1:
+                alpha, beta, conf = la, lb, lconf
+            else:
+                alpha = lam * la + (np.float32(1) - lam) * alpha
+                beta = lam * lb + (np.float32(1) - lam) * beta
+                conf = lam * lconf + (np.float32(1) - lam) * conf
         act_a = np.any(alpha != 0, axis=1)  # (K, G): slot used on the past side by the group
         act_b = np.any(beta != 0, axis=1)
 

@@ -171,7 +171,7 @@ def test_learned_reliability_in_the_synthesiser(pan_pictures):
     past, future, truth = pan_pictures[0], pan_pictures[4], pan_pictures[2]
     theta = np.zeros(n_coefficients())
     theta[1 + CUE_NAMES.index("bilateral")] = 1.0  # trust observations whose endpoints agree
-    learned = SynthParams(reliability="learned", reliability_coefficients=tuple(theta.tolist()))
+    learned = SynthParams(reliability="learned", learned_share=1.0, reliability_coefficients=tuple(theta.tolist()))
     out = synthesise(past, future, fl, t=0.5, params=learned)
     assert np.isfinite(out.y.astype(float)).all()
     # it follows the stack implementation of the same estimator (weights per 2x2 cell there: loose)
@@ -184,6 +184,9 @@ def test_learned_reliability_in_the_synthesiser(pan_pictures):
     assert np.array_equal(one_l.y, one_d.y)
     cues, _ = stack_side_cues(st, fl)
     assert cues.shape[-1] == len(CUE_NAMES) and np.isfinite(cues).all()
+    # the built-in calibrated coefficients are used when the file gives none
+    builtin = synthesise(past, future, fl, t=0.5, params=SynthParams(reliability="learned"))
+    assert np.isfinite(builtin.y.astype(float)).all()
 
 
 @pytest.fixture(scope="module")
