@@ -7,8 +7,8 @@ side by side, so this module builds, for the luma plane, the same candidates the
 stack of shape (K, H, W):
 
 - ``past[k]``, ``future[k]``: the samples candidate ``k``, moved to the pixel, points at;
-- ``share[k]``: weight of the past sample in the candidate's observation (0.5 normally, 0 or 1 when
-  one endpoint leaves its picture), so ``obs[k] = share * past + (1 - share) * future``;
+- ``share[k]``: weight of the past sample in the candidate's observation (1 - t normally, 0 or 1
+  when one endpoint leaves its picture), so ``obs[k] = share * past + (1 - share) * future``;
 - ``valid[k]``; per-candidate columns gathered per group (landing centre, half sizes, displacements,
   block endpoint agreement).
 
@@ -232,7 +232,8 @@ def candidate_stack(
     zero = np.float32(0)
     P = np.zeros((k, H, W), np.float32)
     F = np.zeros((k, H, W), np.float32)
-    share = np.full((k, H, W), 0.5, np.float32)
+    near = np.float32(1.0 - landed.t)
+    share = np.full((k, H, W), near, np.float32)
     for s in range(k):
         v = valid[s]
         outside = []
@@ -243,9 +244,9 @@ def candidate_stack(
             out[s] = sampler.sample_xy(np.ascontiguousarray(x * scale), np.ascontiguousarray(y * scale))
             outside.append((x < -m) | (x > W - 1 + m) | (y < -m) | (y > H - 1 + m))
         op, of = outside
-        share[s] = np.where(op & ~of, zero, np.where(of & ~op, np.float32(1), np.float32(0.5)))
+        share[s] = np.where(op & ~of, zero, np.where(of & ~op, np.float32(1), near))
     P[~valid] = 0
     F[~valid] = 0
     rho = block_agreement(sp, sf, landed, params, past.bit_depth)
-    colocated = 0.5 * (past.y.astype(np.float32) + future.y.astype(np.float32))
+    colocated = (1.0 - landed.t) * past.y.astype(np.float32) + landed.t * future.y.astype(np.float32)
     return CandidateStack(P, F, share, valid, idx.astype(np.int32), landed, rho, colocated, g, past.bit_depth)
