@@ -7,7 +7,9 @@ J = SAD + lambda * bits with lambda from the QP, and intra blocks where no vecto
 Pipeline (luma only):
 
 1. Coarse-to-fine integer search of a 16 x 16 anchor grid over a 4-level Gaussian pyramid
-   (:func:`synth.motion_search.anchor_vectors`): exhaustive at the coarsest level, +-1 refinement
+   (:func:`synth.motion_search.anchor_vectors`): exhaustive at the coarsest level (regularised:
+   samples moved outside the reference cost extra, and a smoothness prior over the anchor grid keeps
+   flat areas on their neighbours' motion), +-1 refinement
    around twice the coarser vectors of the anchor and its neighbours at each finer level.
 2. For every block size of the quadtree, every block tries the vectors of the anchors it overlaps
    and its neighbours, then a +-1 integer search, then half- and quarter-sample refinement on the
@@ -125,6 +127,7 @@ def estimate_field(
     block_sizes: tuple[int, ...] = DEFAULT_BLOCK_SIZES,
     pyramid_levels: int = 4,
     intra: bool = True,
+    coarse_range: int | None = None,
 ) -> VectorField:
     """Estimate a codec-like block vector field of `coded` against `reference`.
 
@@ -149,6 +152,11 @@ def estimate_field(
         resolution, slow for large ranges).
     intra : bool
         Allow intra blocks.
+    coarse_range : int or None
+        Reach in luma samples of the exhaustive search at the coarsest pyramid level, 1..1024
+        (None: `search_range`). Vectors can grow beyond it, up to `search_range`, through the
+        refinement of the finer levels; a smaller value keeps the exhaustive search from matching
+        flat areas far away.
 
     Returns
     -------
@@ -192,6 +200,8 @@ def estimate_field(
     qp = _check_int("qp", qp, 0, 51)
     search_range = _check_int("search_range", search_range, 1, 1024)
     pyramid_levels = _check_int("pyramid_levels", pyramid_levels, 1, 6)
+    if coarse_range is not None:
+        coarse_range = _check_int("coarse_range", coarse_range, 1, 1024)
 
     height, width = coded.y.shape
     bit_depth = coded.bit_depth
@@ -201,7 +211,10 @@ def estimate_field(
     dtype = np.int16 if bit_depth == 8 else np.int32
     cur = coded.y.astype(dtype)
 
-    avx, avy = anchor_vectors(coded.y, reference.y, search_range=search_range, levels=pyramid_levels)
+    avx, avy = anchor_vectors(
+        coded.y, reference.y, search_range=search_range, levels=pyramid_levels,
+        coarse_range=coarse_range, bit_depth=bit_depth,
+    )  # fmt: skip
     arows, acols = avx.shape
     ref = QuarterPelReference(reference.y, pad=top + 8, bit_depth=bit_depth, dtype=dtype)
 

@@ -27,6 +27,16 @@ __all__ = ["ANCHOR", "anchor_vectors", "integer_search", "subpel_search", "block
 #: Size in luma samples of the anchor blocks of the coarse-to-fine search.
 ANCHOR = 16
 
+#: Cost per reference sample that a window's vector moves outside the picture (8-bit units).
+OUTSIDE_COST = 4.0
+
+#: Weight of the coarsest level's smoothness prior, per window sample and per unit of vector
+#: difference to each of the four grid neighbours (8-bit units).
+SMOOTH_WEIGHT = 1.0
+
+#: Vector difference (coarsest-level samples, L1) beyond which the smoothness cost stops growing.
+SMOOTH_CAP = 2
+
 _RING = [(dx, dy) for dy in (-1, 0, 1) for dx in (-1, 0, 1) if dx or dy]
 
 
@@ -45,8 +55,8 @@ def _windows(plane: np.ndarray, pad: int, x0: np.ndarray, y0: np.ndarray, size: 
     return p.ravel().take(idx)
 
 
-def _coarse_full_search(cur: np.ndarray, ref: np.ndarray, x0, y0, win: int, radius: int):
-    """Exhaustive search of windows (x0, y0, win) over offsets +-radius; ties favour short vectors."""
+def _coarse_cost_volume(cur: np.ndarray, ref: np.ndarray, x0, y0, win: int, radius: int):
+    """SAD of windows (x0, y0, win) at every offset of +-radius: (offsets ox, oy), volume (n, offsets)."""
     pc = win + 1
     cur_p = np.pad(cur, pc, mode="edge")
     ref_p = np.pad(ref, pc + radius, mode="edge")
@@ -57,18 +67,54 @@ def _coarse_full_search(cur: np.ndarray, ref: np.ndarray, x0, y0, win: int, radi
         ((ox, oy) for oy in range(-radius, radius + 1) for ox in range(-radius, radius + 1)),
         key=lambda o: (abs(o[0]) + abs(o[1]), abs(o[1]), o[1], o[0]),
     )
-    best = np.full(len(x0), np.iinfo(np.int64).max, dtype=np.int64)
-    bx = np.zeros(len(x0), dtype=np.int64)
-    by = np.zeros(len(x0), dtype=np.int64)
-    for ox, oy in offsets:
+    vol = np.empty((len(x0), len(offsets)), dtype=np.float64)
+    for k, (ox, oy) in enumerate(offsets):
         shifted = ref_p[radius + oy : radius + oy + hp, radius + ox : radius + ox + wp]
-        ii = cv2.integral(cv2.absdiff(cur_p, shifted), sdepth=cv2.CV_64F).astype(np.int64)
-        sad = ii[r0 + win, c0 + win] - ii[r0, c0 + win] - ii[r0 + win, c0] + ii[r0, c0]
-        better = sad < best
-        best = np.where(better, sad, best)
-        bx = np.where(better, ox, bx)
-        by = np.where(better, oy, by)
-    return bx, by
+        ii = cv2.integral(cv2.absdiff(cur_p, shifted), sdepth=cv2.CV_64F)
+        vol[:, k] = ii[r0 + win, c0 + win] - ii[r0, c0 + win] - ii[r0 + win, c0] + ii[r0, c0]
+    off = np.array(offsets, dtype=np.int64)
+    return off[:, 0], off[:, 1], vol
+
+
+def _outside_count(x0, y0, win: int, ox, oy, width: int, height: int) -> np.ndarray:
+    """Samples of the window (x0 + ox, y0 + oy, win) that fall outside a width x height picture."""
+    ix = np.clip(np.minimum(x0 + ox + win, width) - np.maximum(x0 + ox, 0), 0, win)
+    iy = np.clip(np.minimum(y0 + oy + win, height) - np.maximum(y0 + oy, 0), 0, win)
+    return win * win - ix * iy
+
+
+def _smooth_penalty(vx, vy, ox, oy, rows: int, cols: int, *, weight: float, cap: int) -> np.ndarray:
+    """Truncated-L1 smoothness cost of every offset against the 4 grid neighbours' vectors, (n, offsets)."""
+    pen = np.zeros((rows * cols, len(ox)), dtype=np.float64)
+    for nx, ny in zip(_grid_neighbours(vx.reshape(rows, cols))[1:], _grid_neighbours(vy.reshape(rows, cols))[1:]):
+        d = np.abs(ox[None, :] - nx.reshape(-1, 1)) + np.abs(oy[None, :] - ny.reshape(-1, 1))
+        pen += np.minimum(d, cap)
+    return weight * pen
+
+
+def _coarse_full_search(cur: np.ndarray, ref: np.ndarray, x0, y0, win: int, radius: int, *, rows: int, cols: int,
+                        smooth: float = 0.0, cap: int = 2, passes: int = 3, outside: float = 0.0):
+    """Exhaustive search of windows over offsets +-radius, regularised by neighbour agreement.
+
+    Cost of an offset: SAD + smooth * sum over the 4 grid neighbours of min(|v - v_n|_1, cap) (a
+    truncated-L1 smoothness prior on a Markov random field, minimised by iterated conditional modes,
+    Besag 1986, doi:10.1111/j.2517-6161.1986.tb01412.x). Ties favour short vectors.
+    """
+    ox, oy, vol = _coarse_cost_volume(cur, ref, x0, y0, win, radius)
+    if outside > 0:
+        h, w = ref.shape
+        vol += outside * _outside_count(x0[:, None], y0[:, None], win, ox[None, :], oy[None, :], w, h)
+    k = np.argmin(vol, axis=1)
+    vx, vy = ox[k], oy[k]
+    if smooth > 0:
+        for _ in range(passes):
+            cost = vol + _smooth_penalty(vx, vy, ox, oy, rows, cols, weight=smooth, cap=cap)
+            k = np.argmin(cost, axis=1)
+            nvx, nvy = ox[k], oy[k]
+            if np.array_equal(nvx, vx) and np.array_equal(nvy, vy):
+                break
+            vx, vy = nvx, nvy
+    return vx, vy
 
 
 def _grid_neighbours(v: np.ndarray) -> list[np.ndarray]:
@@ -78,7 +124,13 @@ def _grid_neighbours(v: np.ndarray) -> list[np.ndarray]:
 
 
 def anchor_vectors(
-    cur: np.ndarray, ref: np.ndarray, *, search_range: int, levels: int = 4
+    cur: np.ndarray,
+    ref: np.ndarray,
+    *,
+    search_range: int,
+    levels: int = 4,
+    coarse_range: int | None = None,
+    bit_depth: int = 8,
 ) -> tuple[np.ndarray, np.ndarray]:
     """Integer vectors of the 16 x 16 anchor grid by coarse-to-fine search.
 
@@ -90,12 +142,28 @@ def anchor_vectors(
         Largest vector component searched, in luma samples.
     levels : int
         Pyramid levels (1 = full resolution only).
+    coarse_range : int or None
+        Reach of the exhaustive search at the coarsest level, in full-resolution luma samples
+        (None: `search_range`). Vectors may still grow beyond it, up to `search_range`, by the
+        +-1 refinement of the finer levels and the per-block search.
+    bit_depth : int
+        Sample bit depth (scales the regularisation costs, which are set for 8 bits).
 
     Returns
     -------
     vx, vy : ndarray of int64, shape (ceil(height/16), ceil(width/16))
         Vectors in full-resolution luma samples, accurate to about +-1 sample (the last level is
         refined by the per-block search).
+
+    Notes
+    -----
+    Two regularisers keep flat and featureless areas from taking arbitrary vectors: every sample of
+    a window that a vector moves outside the reference costs `OUTSIDE_COST` (edge replication
+    would otherwise make flat out-of-picture content match any flat block), and the coarsest
+    level's choice is regularised by a truncated-L1 smoothness prior over the anchor grid
+    (`SMOOTH_WEIGHT` per sample and per unit of vector difference, capped at `SMOOTH_CAP` coarse
+    samples so that motion boundaries stay sharp), minimised by iterated conditional modes
+    (Besag 1986, doi:10.1111/j.2517-6161.1986.tb01412.x).
     """
     h, w = cur.shape
     rows, cols = -(-h // ANCHOR), -(-w // ANCHOR)
@@ -116,8 +184,15 @@ def anchor_vectors(
         return size, (ax >> level) - off, (ay >> level) - off
 
     win, x0, y0 = geometry(top)
-    radius = max(1, math.ceil(search_range / (1 << top)))
-    vx, vy = _coarse_full_search(cur_pyr[top], ref_pyr[top], x0, y0, win, radius)
+    reach = search_range if coarse_range is None or levels == 1 else min(search_range, coarse_range)
+    radius = max(1, math.ceil(reach / (1 << top)))
+    # costs are per sample of an 8-bit picture; scale them with the sample range
+    unit = float(1 << (bit_depth - 8)) if bit_depth > 8 else 1.0
+    _out = OUTSIDE_COST * unit
+    vx, vy = _coarse_full_search(
+        cur_pyr[top], ref_pyr[top], x0, y0, win, radius, rows=rows, cols=cols,
+        smooth=SMOOTH_WEIGHT * unit * win * win, cap=SMOOTH_CAP, outside=_out,
+    )  # fmt: skip
     for level in range(top - 1, finest - 1, -1):
         win, x0, y0 = geometry(level)
         lim = (search_range >> level) + 1
@@ -131,9 +206,14 @@ def anchor_vectors(
         base = (oy * stride + ox).ravel()
         start = (y0 + pad) * stride + (x0 + pad)
 
+        hl, wl = r.shape
+
         def sad(cx, cy):
             idx = (start + cy * stride + cx)[:, None] + base[None, :]
-            return np.abs(rp.take(idx) - cur_w).sum(axis=1, dtype=np.int64)
+            out = np.abs(rp.take(idx) - cur_w).sum(axis=1, dtype=np.int64)
+            if _out > 0:
+                out = out + _out * _outside_count(x0, y0, win, cx, cy, wl, hl)
+            return out
 
         gx = 2 * vx.reshape(rows, cols)
         gy = 2 * vy.reshape(rows, cols)
