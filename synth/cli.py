@@ -220,7 +220,8 @@ def frame(
     if summary["psnr"] is not None:
         ps = summary["psnr"]
         typer.echo("PSNR           " + "  ".join(f"{k} {v:.2f} dB" for k, v in ps.items()))
-        typer.echo(f"SSIM (Y)       {summary['ssim_y']:.4f}")
+        if summary["ssim_y"] is not None:
+            typer.echo(f"SSIM (Y)       {summary['ssim_y']:.4f}")
     typer.echo(f"time           vectors {summary['vector_seconds']:.2f} s, synthesis {summary['synthesis_seconds']:.2f} s")
     typer.echo(f"written        {summary['output']}")
     for m in summary["maps"]:

@@ -57,6 +57,11 @@ K x K entries only, every operation is a numpy operation over a tile of pixels (
 layout, entries ``(i, j)`` contiguous over pixels). Systems whose pivots fall below a tolerance are
 solved again with ten times the loading (up to four times); a system that still fails gets zero
 weights. No NaN leaves the solver.
+
+The synthesiser uses the structure of ``R`` (:func:`lmmse_weights_structured`): ``R = r r^T + S C S``
+with ``C`` shared by all pixels of a candidate group, so by the Sherman-Morrison formula one Cholesky
+factorisation of ``C`` per group and two triangular solves per pixel give the same weights as a
+per-pixel solve (checked in the tests). There ``loading`` is added to ``C``'s diagonal.
 """
 
 from __future__ import annotations

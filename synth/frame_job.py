@@ -14,37 +14,15 @@ import numpy as np
 from synth.io import atomic_write_bytes, open_clip, read_fields, write_y4m
 
 from .errors import ParameterError
-from .metrics import picture_psnr
+from .metrics import picture_psnr, ssim
 from .params import SynthParams
 from .picture import Picture
 from .synthesis import SynthesisResult, synthesise_with_maps
 
-__all__ = ["run_frame", "ssim_luma", "write_maps", "ERROR_MAP_GAIN"]
+__all__ = ["run_frame", "write_maps", "ERROR_MAP_GAIN"]
 
 #: The absolute-error map shows |error| (8-bit units) times this gain, saturating at 255.
 ERROR_MAP_GAIN = 4
-
-
-def ssim_luma(a: np.ndarray, b: np.ndarray, *, bit_depth: int = 8) -> float:
-    """Mean SSIM of two planes (Z. Wang et al., "Image quality assessment: from error visibility to
-    structural similarity", IEEE TIP 13(4), 2004, doi:10.1109/TIP.2003.819861): Gaussian window
-    11x11 with sigma 1.5, K1 = 0.01, K2 = 0.03, population covariances, mean over the samples
-    whose window lies inside the picture."""
-    L = float((1 << bit_depth) - 1)
-    c1, c2 = (0.01 * L) ** 2, (0.03 * L) ** 2
-    x, y = a.astype(np.float64), b.astype(np.float64)
-
-    def blur(z):
-        return cv2.GaussianBlur(z, (11, 11), 1.5, borderType=cv2.BORDER_REFLECT)
-
-    mx, my = blur(x), blur(y)
-    sxx = blur(x * x) - mx * mx
-    syy = blur(y * y) - my * my
-    sxy = blur(x * y) - mx * my
-    s = ((2 * mx * my + c1) * (2 * sxy + c2)) / ((mx * mx + my * my + c1) * (sxx + syy + c2))
-    if s.shape[0] > 10 and s.shape[1] > 10:
-        s = s[5:-5, 5:-5]
-    return float(s.mean())
 
 
 def _png(path: Path, image: np.ndarray) -> None:
@@ -194,7 +172,8 @@ def run_frame(
     }
     if truth is not None:
         summary["psnr"] = picture_psnr(result.picture, truth)
-        summary["ssim_y"] = ssim_luma(result.picture.y, truth.y, bit_depth=truth.bit_depth)
+        if min(truth.y.shape) >= 11:
+            summary["ssim_y"] = ssim(result.picture.y, truth.y, bit_depth=truth.bit_depth)
     if maps_dir is not None:
         summary["maps"] = write_maps(maps_dir, result, truth)
     return summary
