@@ -11,7 +11,7 @@ from .picture import ClipInfo, Picture
 # -- coded motion (issue 3) --
 from .compensate import motion_compensate
 from .field_summary import summarize_field
-from .motion import estimate_field
+from .motion import estimate_field, estimate_reference_fields
 # -- synthesis (issue 4) --
 from .params import SynthParams
 from .synthesis import SynthesisResult, synthesise, synthesise_with_maps
@@ -37,6 +37,7 @@ __all__ = [
     "VectorField",
     # coded motion (issue 3)
     "estimate_field",
+    "estimate_reference_fields",
     "motion_compensate",
     "summarize_field",
     # synthesis (issue 4)

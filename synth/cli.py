@@ -525,12 +525,24 @@ def _open_for_run(clip: Path):
     return open_clip(clip)
 
 
+def _field_estimator(two_way: bool):
+    """The workbench's vector estimator for ``--two-way`` (None: its default, one way)."""
+    if not two_way:
+        return None
+    from functools import partial
+
+    from .workbench import estimate_pair_fields
+
+    return partial(estimate_pair_fields, two_way=True)
+
+
 @app.command()
 def compare(
     clip: Path = typer.Argument(..., help="Clip file (.y4m, or any video OpenCV decodes)."),
     gap: list[int] = typer.Option([8], "--gap", "-g", help="Distance between the references; repeat for several gaps."),
     predictors: Optional[str] = typer.Option(None, "--predictors", "-p", help="Comma-separated predictor names (default: all available)."),
     vector_qp: Optional[str] = typer.Option(None, "--vector-qp", help="Comma-separated QPs to estimate vectors at, e.g. 22,32,42."),
+    two_way: bool = typer.Option(False, "--two-way", help="Estimate vectors in both coding directions (default: future coded against past)."),
     report: Optional[Path] = typer.Option(None, "--report", "-r", help="Directory for report.html, results.json and results.csv."),
     frames: Optional[int] = typer.Option(None, "--frames", "-n", help="Use only the first N pictures of the clip."),
 ) -> None:
@@ -541,7 +553,8 @@ def compare(
     reader = _open_for_run(clip)
     with _ProgressBar(f"compare {clip.name}") as bar:
         result = compare_clip(
-            reader, gaps=gap, predictors=predictors, vector_qps=vector_qp, limit=frames, clip_name=clip.name, progress=bar
+            reader, gaps=gap, predictors=predictors, vector_qps=vector_qp, limit=frames, clip_name=clip.name, progress=bar,
+            estimate_fields=_field_estimator(two_way),
         )
     typer.echo(run_tables(result))
     if report is not None:
@@ -559,6 +572,7 @@ def gop(
     decoded_refs: Optional[int] = typer.Option(None, "--decoded-refs", help="Take references from an H.264 encode/decode at this QP."),
     predictors: Optional[str] = typer.Option(None, "--predictors", "-p", help="Comma-separated predictor names (default: all available)."),
     vector_qp: Optional[str] = typer.Option(None, "--vector-qp", help="Comma-separated QPs to estimate vectors at, e.g. 22,32,42."),
+    two_way: bool = typer.Option(False, "--two-way", help="Estimate vectors in both coding directions (default: future coded against past)."),
     report: Optional[Path] = typer.Option(None, "--report", "-r", help="Directory for report.html, results.json and results.csv."),
     export: Optional[Path] = typer.Option(None, "--export", help="Write the synthetic pictures (display order, no anchors) to this .y4m file, with a JSON sidecar."),
     export_method: Optional[str] = typer.Option(None, "--export-method", help="Method whose pictures --export writes (default: lmmse, else the first predictor)."),
@@ -590,6 +604,7 @@ def gop(
             decoded_refs_qp=decoded_refs,
             predictors=predictors,
             vector_qps=vector_qp,
+            estimate_fields=_field_estimator(two_way),
             limit=frames,
             clip_name=clip.name,
             export_method=method,

@@ -138,11 +138,9 @@ def run_frame(
         fields = read_fields(field_path, width=p_pic.width, height=p_pic.height)
         source = str(field_path)
     else:
-        from .motion import estimate_field
+        from .motion import estimate_reference_fields
 
-        fields = [estimate_field(f_pic, p_pic, coded_time=future, reference_time=past, qp=qp)]
-        if two_way:
-            fields.append(estimate_field(p_pic, f_pic, coded_time=past, reference_time=future, qp=qp))
+        fields = estimate_reference_fields(p_pic, f_pic, past_time=past, future_time=future, qp=qp, two_way=two_way)
         source = f"estimated (QP {qp}{', both directions' if two_way else ''})"
     t1 = time.perf_counter()
     result = synthesise_with_maps(

@@ -40,7 +40,7 @@ from .picture import Picture
 from .quadtree import collect_leaves, decide_splits, plan_levels
 from .subpel import QuarterPelReference
 
-__all__ = ["estimate_field", "INTRA_BITS", "DEFAULT_BLOCK_SIZES"]
+__all__ = ["estimate_field", "estimate_reference_fields", "INTRA_BITS", "DEFAULT_BLOCK_SIZES"]
 
 #: Bits charged for signalling an intra block beyond its mode flag (our own approximation of an
 #: intra mode plus a DC level).
@@ -338,3 +338,45 @@ def estimate_field(
         dx[idx] = qx[take]
         dy[idx] = qy[take]
     return make(dx, dy)
+
+
+def estimate_reference_fields(
+    past: Picture,
+    future: Picture,
+    *,
+    past_time: float,
+    future_time: float,
+    qp: int = 27,
+    two_way: bool = False,
+    **options,
+) -> list[VectorField]:
+    """The vector fields between two references that synth assumes a decoder has.
+
+    Every command that estimates vectors itself (``frame``, ``compare``, ``gop``, ``demo``,
+    ``export``, ``rd``, study kinds) calls this one function, so they all synthesise from the same
+    vectors.
+
+    Parameters
+    ----------
+    past, future : Picture
+        The two references.
+    past_time, future_time : float
+        Their display times.
+    qp : int
+        Rate constraint of the estimated vectors (see `estimate_field`).
+    two_way : bool
+        False (default): one field, the future reference coded against the past one, as when the
+        future anchor of a hierarchical GOP is a P picture. True: also the past reference coded
+        against the future one (more candidates; about 1.2x the synthesis time).
+    **options
+        Passed to `estimate_field` (``search_range``, ``block_sizes``, ...).
+
+    Returns
+    -------
+    list of VectorField
+        ``[future -> past]`` or ``[future -> past, past -> future]``.
+    """
+    fields = [estimate_field(future, past, coded_time=future_time, reference_time=past_time, qp=qp, **options)]
+    if two_way:
+        fields.append(estimate_field(past, future, coded_time=past_time, reference_time=future_time, qp=qp, **options))
+    return fields

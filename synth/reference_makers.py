@@ -98,7 +98,7 @@ class EstimatorMaker:
 
     name = "estimator"
 
-    def __init__(self, *, params=None, estimate_options: dict | None = None, fields: list | None = None):
+    def __init__(self, *, params=None, estimate_options: dict | None = None, fields: list | None = None, two_way: bool = False):
         try:
             from .motion import estimate_field  # noqa: F401
             from .synthesis import synthesise  # noqa: F401
@@ -110,17 +110,19 @@ class EstimatorMaker:
         self.params = params
         self.estimate_options = dict(estimate_options or {})
         self.fields = None if fields is None else list(fields)
+        self.two_way = bool(two_way)
 
     def prepare(self, past, future, *, past_time, future_time, qp):
-        from .motion import estimate_field
+        from .motion import estimate_reference_fields
 
         _check_pair(past, future)
         if self.fields is not None:  # fields given by the caller (e.g. read from a file)
             return _Pair(past, future, float(past_time), float(future_time), int(qp), self.fields, "given")
-        field = estimate_field(
-            future, past, coded_time=float(future_time), reference_time=float(past_time), qp=int(qp), **self.estimate_options
+        fields = estimate_reference_fields(
+            past, future, past_time=float(past_time), future_time=float(future_time), qp=int(qp),
+            two_way=self.two_way, **self.estimate_options,
         )
-        return _Pair(past, future, float(past_time), float(future_time), int(qp), [field], "estimated")
+        return _Pair(past, future, float(past_time), float(future_time), int(qp), fields, "estimated")
 
     def make(self, state: _Pair, *, time: float) -> Picture:
         from .synthesis import synthesise
@@ -162,14 +164,12 @@ class PredictorMaker:
         _check_pair(past, future)
         fields, origin = [], "none"
         if self.predictor.needs_fields:
-            from .motion import estimate_field
+            from .motion import estimate_reference_fields
 
-            fields = [
-                estimate_field(
-                    future, past, coded_time=float(future_time), reference_time=float(past_time), qp=int(qp),
-                    **self.estimate_options,
-                )
-            ]
+            fields = estimate_reference_fields(
+                past, future, past_time=float(past_time), future_time=float(future_time), qp=int(qp),
+                **self.estimate_options,
+            )
             origin = "estimated"
         return _Pair(past, future, float(past_time), float(future_time), int(qp), fields, origin)
 

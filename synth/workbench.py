@@ -1,7 +1,8 @@
 """The evaluation engine shared by `synth.compare` and `synth.gop`.
 
 A run is a list of `Job`s (a target picture, its two references and the target time). For every
-reference pair the vector fields are estimated once per vector QP, in both directions, and shared
+reference pair the vector fields are estimated once per vector QP (`synth.motion.estimate_reference_fields`:
+the future reference coded against the past one, both directions on request) and shared
 by all vector-based predictors; every predictor then predicts every target and the prediction is
 measured against the true picture (`synth.metrics.picture_metrics`). The result is a `RunResult`:
 one record per picture and method, per-pair vector timing, and the best and worst pictures
@@ -210,21 +211,19 @@ def parse_vector_qps(value) -> list[int] | None:
     return out
 
 
-def estimate_pair_fields(past: Picture, future: Picture, *, past_time: float, future_time: float, qp: int) -> list[VectorField]:
-    """Vector fields between two references in both directions with `synth.motion.estimate_field`.
+def estimate_pair_fields(
+    past: Picture, future: Picture, *, past_time: float, future_time: float, qp: int, two_way: bool = False
+) -> list[VectorField]:
+    """Vector fields between two references, as every synth command estimates them.
 
-    Returns
-    -------
-    list of VectorField
-        ``[future -> past, past -> future]`` (coded picture -> reference picture).
+    See `synth.motion.estimate_reference_fields`: ``[future -> past]``, and with `two_way` also
+    ``past -> future``.
     """
     try:
-        from .motion import estimate_field
+        from .motion import estimate_reference_fields
     except ImportError:
         raise ParameterError("vector-based predictors need synth.motion (vector estimation), which is not installed") from None
-    backward = estimate_field(future, past, coded_time=future_time, reference_time=past_time, qp=qp)
-    forward = estimate_field(past, future, coded_time=past_time, reference_time=future_time, qp=qp)
-    return [backward, forward]
+    return estimate_reference_fields(past, future, past_time=past_time, future_time=future_time, qp=qp, two_way=two_way)
 
 
 def method_label(predictor: Predictor, qp: int | None, several_qps: bool) -> str:

@@ -43,7 +43,14 @@ def test_gop_export_writes_a_clip(small_y4m, tmp_path):
     assert doc["format"] == "synth-reference-sidecar" and doc["gop"] == 4 and doc["synthesiser"] == "obmc"
     assert [p["time"] for p in doc["pictures"]] == [1, 2, 3, 5, 6, 7]
     assert [p["layer"] for p in doc["pictures"]] == [2, 1, 2, 2, 1, 2]
-    assert doc["qp"] == 27 and [f["coded_time"] for f in doc["pictures"][0]["fields"]] == [2.0, 0.0]
+    # Estimated vectors: the future reference coded against the past one (one way) by default ...
+    assert doc["qp"] == 27 and [f["coded_time"] for f in doc["pictures"][0]["fields"]] == [2.0]
+    # ... and in both coding directions with --two-way.
+    out2 = tmp_path / "synthetic2.y4m"
+    proc = _synth("gop", small_y4m, "--size", 4, "-p", "obmc", "--export", out2, "--two-way")
+    assert proc.returncode == 0, proc.stderr
+    doc2 = json.loads(out2.with_name(out2.name + ".json").read_text())
+    assert [f["coded_time"] for f in doc2["pictures"][0]["fields"]] == [2.0, 0.0]
 
 
 @pytest.mark.parametrize(
