@@ -25,6 +25,9 @@ from .gop import run_gop
 from .metrics import picture_metrics, ssim, weighted_psnr
 from .predictors import PREDICTORS, Prediction, Predictor, get_predictor
 from .report import write_report
+# -- estimator quality and calibration (issue 4, quality) --
+from .calibrate import calibrate, training_cases
+from .oracles import best_of_k, block_least_squares
 
 __version__ = "0.1.0"
 
@@ -61,4 +64,9 @@ __all__ = [
     "picture_metrics",
     "ssim",
     "weighted_psnr",
+    # estimator quality and calibration (issue 4, quality)
+    "calibrate",
+    "training_cases",
+    "best_of_k",
+    "block_least_squares",
 ]

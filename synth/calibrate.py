@@ -95,6 +95,16 @@ def _crop(p: Picture, box) -> Picture:
     return Picture(np.ascontiguousarray(p.y[y0 : y0 + h, x0 : x0 + w]), c(p.cb), c(p.cr), p.chroma_format, p.bit_depth)
 
 
+def _estimator_version() -> bytes:
+    """Digest of the motion estimator's source files: cached fields are reused only by the same code."""
+    here = Path(__file__).resolve().parent
+    h = hashlib.sha1()
+    for name in sorted(p.name for p in here.glob("*.py")):
+        if name.startswith(("motion", "subpel", "quadtree", "field")):
+            h.update(name.encode() + (here / name).read_bytes())
+    return h.digest()
+
+
 def case_fields(
     past: Picture, future: Picture, *, past_time: int, future_time: int, qp: int = 27, cache: Path | None = None, key: str = ""
 ) -> list[VectorField]:
@@ -107,7 +117,7 @@ def case_fields(
     path = None
     if cache is not None:
         digest = hashlib.sha1(
-            past.y.tobytes() + future.y.tobytes() + f"{past_time},{future_time},{qp}".encode()
+            past.y.tobytes() + future.y.tobytes() + f"{past_time},{future_time},{qp}".encode() + _estimator_version()
         ).hexdigest()[:16]
         path = Path(cache) / f"fields-{key}-{digest}.npz"
         if path.is_file():
