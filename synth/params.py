@@ -22,6 +22,8 @@ import os
 from dataclasses import asdict, dataclass, fields, replace
 from pathlib import Path
 
+import numpy as np
+
 from .errors import FormatError, ParameterError
 
 __all__ = ["SynthParams", "METHODS", "INTERPOLATIONS", "PARAMS_FORMAT", "PARAMS_VERSION"]
@@ -126,6 +128,8 @@ class SynthParams:
     reliability_coefficients: tuple = ()
 
     def __post_init__(self) -> None:
+        if isinstance(self.reliability_coefficients, (list, np.ndarray)):
+            object.__setattr__(self, "reliability_coefficients", tuple(float(v) for v in self.reliability_coefficients))
         self.validate()
 
     # -- validation -------------------------------------------------------------------------------
@@ -151,7 +155,7 @@ class SynthParams:
             )
         if not isinstance(self.reliability_coefficients, tuple):
             raise ParameterError(
-                f"parameter reliability_coefficients must be a list of numbers, got {type(self.reliability_coefficients).__name__}"
+                f"parameter reliability_coefficients must be a sequence of numbers, got {type(self.reliability_coefficients).__name__}"
             )
         if self.reliability_coefficients:
             from .reliability import check_coefficients

@@ -354,8 +354,8 @@ class _Synthesiser:
                 self.samplers[0], {**col, "agreement": agreement}, safe, valid, share, Xc, Yc, dist
             )
             if hole.any():
-                la[0][:, hole] = 0.5
-                lb[0][:, hole] = 0.5
+                la[0][:, hole] = near
+                lb[0][:, hole] = np.float32(1) - near
                 lconf[:, hole] = 0
             lam = np.float32(p.learned_share)
             if lam >= 1:
