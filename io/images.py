@@ -18,7 +18,7 @@ import os
 import re
 from fractions import Fraction
 from pathlib import Path
-from typing import Iterable, Iterator
+from typing import Iterable
 
 import cv2
 import numpy as np
@@ -28,7 +28,7 @@ from synth.picture import ClipInfo, Picture, chroma_factors
 
 from .atomic import atomic_write_bytes
 from .colour import check_matrix, picture_to_rgb, rgb_to_picture
-from .planar import frame_index
+from .planar import ReaderMixin, frame_index
 
 __all__ = ["ImageSequenceReader", "write_images", "is_image_pattern", "IMAGE_SUFFIXES"]
 
@@ -68,7 +68,7 @@ def _name_for(pattern: str, number: int) -> Path:
     return p.parent / f"{prefix}{number:0{digits}d}{suffix}"
 
 
-class ImageSequenceReader:
+class ImageSequenceReader(ReaderMixin):
     """Pictures from numbered image files, converted to Y'CbCr.
 
     Parameters
@@ -191,18 +191,8 @@ class ImageSequenceReader:
         rgb = rgb[: self.info.height, : self.info.width]
         return rgb_to_picture(rgb, matrix=self.matrix, chroma_format=self.chroma_format, bit_depth=self.bit_depth)
 
-    def __iter__(self) -> Iterator[Picture]:
-        for i in range(len(self)):
-            yield self.read(i)
-
     def close(self) -> None:
         pass
-
-    def __enter__(self) -> "ImageSequenceReader":
-        return self
-
-    def __exit__(self, *exc) -> None:
-        self.close()
 
 
 def write_images(

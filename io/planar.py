@@ -18,6 +18,7 @@ from synth.errors import FormatError, ParameterError
 from synth.picture import CHROMA_FORMATS, ClipInfo, Picture, chroma_shape
 
 __all__ = [
+    "ReaderMixin",
     "check_geometry",
     "frame_size",
     "unpack_frame",
@@ -150,3 +151,21 @@ class PositionalFile:
     @property
     def closed(self) -> bool:
         return self._fh.closed
+
+
+class ReaderMixin:
+    """Iteration and context management shared by the clip readers.
+
+    A reader defines ``__len__``, ``read(index) -> Picture`` and ``close()``; this mixin adds
+    ``for picture in reader`` (in display order) and ``with reader: ...`` (closing it).
+    """
+
+    def __iter__(self):
+        for i in range(len(self)):
+            yield self.read(i)
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.close()

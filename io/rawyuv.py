@@ -15,13 +15,13 @@ import os
 import re
 from fractions import Fraction
 from pathlib import Path
-from typing import Iterable, Iterator
+from typing import Iterable
 
 from synth.errors import FormatError, ParameterError
 from synth.picture import ClipInfo, Picture
 
 from .atomic import atomic_output
-from .planar import PositionalFile, check_geometry, check_sample_range, frame_index, pack_picture, unpack_frame
+from .planar import PositionalFile, ReaderMixin, check_geometry, check_sample_range, frame_index, pack_picture, unpack_frame
 
 __all__ = ["RawYUVReader", "write_yuv", "parse_size", "geometry_from_name"]
 
@@ -88,7 +88,7 @@ def geometry_from_name(name: str) -> dict:
     return out
 
 
-class RawYUVReader:
+class RawYUVReader(ReaderMixin):
     """Random-access reader of a raw planar ``.yuv`` file; one frame in memory at a time.
 
     Parameters
@@ -191,18 +191,8 @@ class RawYUVReader:
             check_sample_range(pic, source=src, index=i)
         return pic
 
-    def __iter__(self) -> Iterator[Picture]:
-        for i in range(len(self)):
-            yield self.read(i)
-
     def close(self) -> None:
         self._file.close()
-
-    def __enter__(self) -> "RawYUVReader":
-        return self
-
-    def __exit__(self, *exc) -> None:
-        self.close()
 
 
 def write_yuv(path: str | os.PathLike, pictures: Iterable[Picture], info: ClipInfo | None = None) -> int:

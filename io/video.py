@@ -24,12 +24,12 @@ from synth.errors import FormatError, ParameterError
 from synth.picture import ClipInfo, Picture
 
 from .colour import MATRICES, check_matrix, rgb_to_ycbcr420
-from .planar import frame_index
+from .planar import ReaderMixin, frame_index
 
 __all__ = ["VideoReader", "rgb_to_ycbcr420", "MATRICES"]
 
 
-class VideoReader:
+class VideoReader(ReaderMixin):
     """Frames of a compressed video file decoded by OpenCV, converted to 4:2:0 8-bit.
 
     Parameters
@@ -170,9 +170,3 @@ class VideoReader:
             self._cap.release()
             self._cap = None
         self._cache.clear()
-
-    def __enter__(self) -> "VideoReader":
-        return self
-
-    def __exit__(self, *exc) -> None:
-        self.close()

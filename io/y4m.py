@@ -26,13 +26,13 @@ import os
 import re
 from fractions import Fraction
 from pathlib import Path
-from typing import Iterable, Iterator
+from typing import Iterable
 
 from synth.errors import FormatError
 from synth.picture import ClipInfo, Picture
 
 from .atomic import atomic_output
-from .planar import PositionalFile, check_geometry, check_sample_range, frame_index, pack_picture, unpack_frame
+from .planar import PositionalFile, ReaderMixin, check_geometry, check_sample_range, frame_index, pack_picture, unpack_frame
 
 __all__ = ["Y4MReader", "write_y4m", "parse_y4m_header", "format_y4m_header", "pack_picture", "C_TAGS"]
 
@@ -212,7 +212,7 @@ def format_y4m_header(info: ClipInfo) -> bytes:
     return ("YUV4MPEG2 " + " ".join(tags) + "\n").encode("ascii")
 
 
-class Y4MReader:
+class Y4MReader(ReaderMixin):
     """Random-access reader of a YUV4MPEG2 file; one frame in memory at a time.
 
     Parameters
@@ -346,18 +346,8 @@ class Y4MReader:
             check_sample_range(pic, source=src, index=i)
         return pic
 
-    def __iter__(self) -> Iterator[Picture]:
-        for i in range(len(self)):
-            yield self.read(i)
-
     def close(self) -> None:
         self._file.close()
-
-    def __enter__(self) -> "Y4MReader":
-        return self
-
-    def __exit__(self, *exc) -> None:
-        self.close()
 
 
 def write_y4m(path: str | os.PathLike, pictures: Iterable[Picture], info: ClipInfo | None = None) -> int:
