@@ -22,7 +22,7 @@ test: $(STAMP)
 	$(PY) -m pytest -q -n 2
 
 bench: $(STAMP)
-	$(PY) benchmarks/run_all.py
+	$(PY) tests/benchmarks/run_all.py
 
 clean:
 	rm -rf $(VENV) synth-demo .pytest_cache

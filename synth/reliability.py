@@ -411,7 +411,7 @@ class LearnedReliability:
         return side_weights(g, valid, share)
 
 
-#: Coefficients fitted on the training clips of benchmarks/estimator_quality.py (the three demo
+#: Coefficients fitted on the training clips of tests/benchmarks/estimator_quality.py (the three demo
 #: clips and bikes.mp4 pictures 40-72; `--calibrate`, see DEVELOPERS.md, "Estimator findings").
 DEFAULT_COEFFICIENTS: tuple[float, ...] = (
     0.143108, 0.212886, 0.176931, -0.0659926, -0.000285434, 0.0798557, -0.0453718, 0.221579,

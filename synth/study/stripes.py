@@ -161,7 +161,7 @@ def synthesise_striped(
     Each stripe calls ``synth.synthesise(past, future, fields, t=t, params=params, rows=(y0, y1))``,
     whose per-pixel results do not depend on the striping, and copies the stripe's luma rows and the
     corresponding chroma rows into the output. Peak memory is the inputs, the output and one stripe's
-    working state (see ``benchmarks/stripes_memory.py``).
+    working state (see ``tests/benchmarks/stripes_memory.py``).
     """
     core = _core_synthesise()
     if core is None:

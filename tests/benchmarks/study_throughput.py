@@ -1,6 +1,6 @@
 """Jobs per second of one study run in-process, on local worker processes and on a Dask cluster.
 
-    .venv/bin/python benchmarks/study_throughput.py [--clips 'demo_clips/*.y4m'] [--kind blend|synthesise]
+    .venv/bin/python tests/benchmarks/study_throughput.py [--clips 'demo_clips/*.y4m'] [--kind blend|synthesise]
 
 ``--kind blend`` (default): the cheap kind on every clip (all pictures, full size) over gaps 2, 4,
 8, 16 and the three blend methods (36 jobs on the demo clips): measures the machinery's overhead.
@@ -24,7 +24,7 @@ import tempfile
 import time
 from pathlib import Path
 
-REPO = Path(__file__).resolve().parents[1]
+REPO = Path(__file__).resolve().parents[2]
 
 
 def main() -> int:

@@ -24,8 +24,8 @@ under --cache. Methods (PSNR-Y against the true picture):
 Means: per clip the mean over distances of the per-distance means (t = 0.5 cases), then the mean
 over clips, for TRAIN, TEST and all clips; t = 0.25 cases are reported separately.
 
-    .venv/bin/python benchmarks/estimator_quality.py [--per-gap 3] [--json out.json]
-    .venv/bin/python benchmarks/estimator_quality.py --calibrate params.json   # fit on TRAIN
+    .venv/bin/python tests/benchmarks/estimator_quality.py [--per-gap 3] [--json out.json]
+    .venv/bin/python tests/benchmarks/estimator_quality.py --calibrate params.json   # fit on TRAIN
 """
 
 from __future__ import annotations
@@ -40,7 +40,7 @@ from pathlib import Path
 
 import numpy as np
 
-REPO = Path(__file__).resolve().parents[1]
+REPO = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(REPO))
 
 from synth import SynthParams, synthesise  # noqa: E402

