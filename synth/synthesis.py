@@ -55,6 +55,8 @@ __all__ = ["synthesise", "synthesise_with_maps", "SynthesisResult", "BAND_ROWS",
 BAND_ROWS = 64
 #: Names of the per-pixel maps returned by `synthesise_with_maps`.
 MAP_NAMES = ("candidates", "confidence", "past_weight")
+#: Chunks of vectors the endpoint agreement is computed in (in parallel; results do not depend on it).
+_AGREEMENT_CHUNKS = 4
 
 
 @dataclass
@@ -208,9 +210,11 @@ class _Synthesiser:
             return PlaneSampler(plane, interpolation=params.interpolation, chroma=index > 0)
 
         pairs = [(i, pl) for i, pair in enumerate(zip(past.planes, future.planes)) for pl in pair]
-        flat = list(pool.map(sampler, pairs))
+        made = [pool.submit(sampler, item) for item in pairs]
+        # the endpoint agreement needs the luma samplers only: it starts while chroma is prepared
+        rho = self._agreement(made[0].result(), made[1].result(), pool)
+        flat = [m.result() for m in made]
         self.samplers = [(flat[2 * i], flat[2 * i + 1]) for i in range(len(flat) // 2)]
-        rho = self._agreement()
         self.idx = query.result()  # (rows, cols, K)
         self._cols = {
             "cx": landed.cx,
@@ -227,13 +231,23 @@ class _Synthesiser:
             self._cols = {name: np.zeros(1, np.float32) for name in self._cols}
 
     # -- per-vector endpoint agreement ----------------------------------------------------------
-    def _agreement(self) -> np.ndarray:
-        rho = np.zeros(len(self.landed), np.float32)
+    def _agreement(self, sp: PlaneSampler, sf: PlaneSampler, pool) -> np.ndarray:
+        """Endpoint agreement of every landed vector, in chunks of vectors run on the pool (each
+        vector's value depends on its own patches only)."""
+        n = len(self.landed)
+        rho = np.zeros(n, np.float32)
         scale = float(1 << (self.bit_depth - 8)) ** 2
         floor = self.p.agreement_floor * scale
-        sp, sf = self.samplers[0]
-        for index, a, b in endpoint_patches(sp, sf, self.landed, margin=self.p.agreement_margin):
-            rho[index] = endpoint_agreement_stats(a, b, floor=floor)
+
+        def chunk(sel):
+            part = self.landed.take(sel)
+            for index, a, b in endpoint_patches(sp, sf, part, margin=self.p.agreement_margin):
+                rho[sel[index]] = endpoint_agreement_stats(a, b, floor=floor)
+
+        step = max(1, -(-n // _AGREEMENT_CHUNKS))
+        done = [pool.submit(chunk, np.arange(i, min(n, i + step))) for i in range(0, n, step)]
+        for d in done:
+            d.result()
         return rho
 
     # -- one band -------------------------------------------------------------------------------
