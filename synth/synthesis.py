@@ -191,6 +191,7 @@ class _Synthesiser:
         learned=None,
     ):
         self.p = params
+        self.want_maps = True  # per-pixel maps computed with the planes (off for the picture only)
         self.learned = learned  # synth.reliability.LearnedReliability or None
         self.k = k
         self.g = params.group_size
@@ -396,6 +397,8 @@ class _Synthesiser:
             A = _resample_axis(_resample_axis(alpha_cells, 1, c, fy), 2, c, fx)
             B = _resample_axis(_resample_axis(beta_cells, 1, c, fy), 2, c, fx)
             planes.append(self._combine(pi, A, B, act_a, act_b, col, Gr, Gx, gy0 * g // fy, fy, fx))
+        if not self.want_maps:  # synthesise(): the picture only
+            return planes, {}
         total = alpha_cells.sum(axis=0) + beta_cells.sum(axis=0)
         pw = np.where(total > 1e-6, alpha_cells.sum(axis=0) / np.where(total > 1e-6, total, 1), np.float32(0.5))
         up = lambda a: _resample_axis(_resample_axis(a, 0, c, 1), 1, c, 1)  # noqa: E731
@@ -504,6 +507,14 @@ def synthesise_with_maps(
     Model and equations: :mod:`synth.estimate` (LMMSE / Wiener estimation, S. M. Kay, Fundamentals
     of Statistical Signal Processing: Estimation Theory, 1993, ch. 12); projection: :mod:`synth.project`.
     """
+    return _synthesise(
+        past, future, fields, t=t, params=params, rows=rows, past_time=past_time, future_time=future_time,
+        method=method, workers=workers, want_maps=True,
+    )
+
+
+def _synthesise(past, future, fields, *, t, params, rows, past_time, future_time, method, workers, want_maps):
+    """The body of `synthesise_with_maps`; without ``want_maps`` the maps are not computed (empty)."""
     fields = _as_fields(fields)
     _check_inputs(past, future, fields, t)
     if params is None:
@@ -550,6 +561,7 @@ def synthesise_with_maps(
         with (ThreadPoolExecutor(max_workers=workers) if workers > 1 else _InlineExecutor()) as pool:
             learned = _learned_reliability(params, fields, landed, past)
             eng = _Synthesiser(past, future, landed, params, k, (b_first // g, -(-b_last // g)), pool, learned)
+            eng.want_maps = want_maps
             starts = list(range((y0 // BAND_ROWS) * BAND_ROWS, y1, BAND_ROWS))
             results = pool.map(lambda b0: (b0, eng.band_samples(b0, min(H, b0 + BAND_ROWS))), starts)
             results = list(results)
@@ -565,13 +577,13 @@ def synthesise_with_maps(
         else:
             ch, cw = past.planes[pi].shape
             out.append(np.zeros((-(-y1 // fy) - y0 // fy, cw), dtype))
-    maps = {name: np.zeros((y1 - y0, W), np.float32) for name in MAP_NAMES}
+    maps = {name: np.zeros((y1 - y0, W), np.float32) for name in MAP_NAMES} if want_maps else {}
     for b0, (planes, bmaps) in results:
         b1 = min(H, b0 + BAND_ROWS)
         # luma rows of this band inside the requested range
         s0, s1 = max(b0, y0), min(b1, y1)
         out[0][s0 - y0 : s1 - y0] = planes[0][s0 - b0 : s1 - b0, :W]
-        for name in MAP_NAMES:
+        for name in maps:
             maps[name][s0 - y0 : s1 - y0] = bmaps[name][s0 - b0 : s1 - b0, :W]
         for pi in range(1, n_planes):
             ch, cw = past.planes[pi].shape
@@ -599,15 +611,7 @@ def synthesise(
     workers: int | None = None,
 ) -> Picture:
     """Synthesise the picture at time ``t``; see `synthesise_with_maps` (same parameters)."""
-    return synthesise_with_maps(
-        past,
-        future,
-        fields,
-        t=t,
-        params=params,
-        rows=rows,
-        past_time=past_time,
-        future_time=future_time,
-        method=method,
-        workers=workers,
+    return _synthesise(
+        past, future, fields, t=t, params=params, rows=rows, past_time=past_time, future_time=future_time,
+        method=method, workers=workers, want_maps=False,
     ).picture
