@@ -262,10 +262,10 @@ class _Synthesiser:
         for p in planes:
             if not np.all(np.isfinite(p)):
                 raise ParameterError("the synthesis produced non-finite samples (please report this)")
+            # floor(p + 1/2) clipped to [0, top]: clipping before the floor gives the same integers
+            # (the bounds are integers), and the cast truncates, which is the floor on [0, top]
             p += np.float32(0.5)
-            np.floor(p, out=p)
-            np.maximum(p, np.float32(0), out=p)
-            np.minimum(p, top, out=p)
+            np.clip(p, np.float32(0), top, out=p)
             out.append(p.astype(dtype))
         return out, maps
 
@@ -305,7 +305,7 @@ class _Synthesiser:
             dc = np.where(vmask, dc, np.float32(np.inf))
         if p.method == "nearest":
             coef = (np.arange(K)[:, None, None] == np.argmin(dc, axis=0)[None]) & vmask
-            coef = coef.astype(np.float32)
+            coef = coef.astype(np.float32, copy=False)
         elif p.method == "distance_weighted":
             w = np.where(vmask, np.float32(1) / np.power(dc + np.float32(1), np.float32(p.idw_power)), zero)
             sw = w.sum(axis=0)
@@ -321,7 +321,7 @@ class _Synthesiser:
             dist = np.sqrt(ex * ex + ey * ey)
             rel = distance_reliability(dist, scale=p.reliability_scale)
             r = np.minimum(col["srho"][:, None, :] * rel, np.float32(p.max_correlation))
-            r = np.where(vmask, r, zero).astype(np.float32)
+            r = np.where(vmask, r, zero).astype(np.float32, copy=False)
             C = innovation_correlation(
                 col["dpx"], col["dpy"], col["dfx"], col["dfy"], valid,
                 spatial_correlation=p.spatial_correlation, nugget=p.innovation_nugget,
@@ -336,7 +336,7 @@ class _Synthesiser:
                     onehot = ((np.arange(K)[:, None, None] == np.argmin(dc, axis=0)[None]) & vmask).astype(np.float32)
                     coef = np.where(fall[None, None, :], onehot, coef)
                     conf = np.where(fall[None, :], zero, conf)
-            coef = coef.astype(np.float32)
+            coef = coef.astype(np.float32, copy=False)
         if conf is None:
             conf = np.zeros(coef.shape[1:], np.float32)
         # which endpoints are usable: the weight cell's centre moved by the displacement must stay
