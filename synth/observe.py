@@ -103,11 +103,12 @@ def endpoint_patches(past: PlaneSampler, future: PlaneSampler, landed: LandedVec
     luma samples on each side), moved to the past and to the future endpoint, sampled with the
     samplers' filter.
     """
-    sizes = np.stack([landed.bw, landed.bh], axis=1)
-    if len(sizes) == 0:
+    if len(landed.bw) == 0:
         return
-    uniq = np.unique(sizes, axis=0)
-    for bw, bh in uniq:
+    # distinct (width, height) pairs in lexicographic order, through one integer key per block
+    # (np.unique with axis=0 is several times slower)
+    key = np.unique((landed.bw.astype(np.int64) << 32) | landed.bh.astype(np.int64))
+    for bw, bh in zip((key >> 32).tolist(), (key & 0xFFFFFFFF).tolist()):
         index = np.flatnonzero((landed.bw == bw) & (landed.bh == bh))
         pw, ph = int(bw) + 2 * margin, int(bh) + 2 * margin
         ox = np.arange(pw, dtype=np.float32) - np.float32((pw - 1) / 2.0)
