@@ -55,6 +55,8 @@ __all__ = ["synthesise", "synthesise_with_maps", "SynthesisResult", "BAND_ROWS",
 BAND_ROWS = 64
 #: Names of the per-pixel maps returned by `synthesise_with_maps`.
 MAP_NAMES = ("candidates", "confidence", "past_weight")
+#: Chunks of vectors the endpoint agreement is computed in (in parallel; results do not depend on it).
+_AGREEMENT_CHUNKS = 4
 
 
 @dataclass
@@ -189,6 +191,7 @@ class _Synthesiser:
         learned=None,
     ):
         self.p = params
+        self.want_maps = True  # per-pixel maps computed with the planes (off for the picture only)
         self.learned = learned  # synth.reliability.LearnedReliability or None
         self.k = k
         self.g = params.group_size
@@ -208,9 +211,11 @@ class _Synthesiser:
             return PlaneSampler(plane, interpolation=params.interpolation, chroma=index > 0)
 
         pairs = [(i, pl) for i, pair in enumerate(zip(past.planes, future.planes)) for pl in pair]
-        flat = list(pool.map(sampler, pairs))
+        made = [pool.submit(sampler, item) for item in pairs]
+        # the endpoint agreement needs the luma samplers only: it starts while chroma is prepared
+        rho = self._agreement(made[0].result(), made[1].result(), pool)
+        flat = [m.result() for m in made]
         self.samplers = [(flat[2 * i], flat[2 * i + 1]) for i in range(len(flat) // 2)]
-        rho = self._agreement()
         self.idx = query.result()  # (rows, cols, K)
         self._cols = {
             "cx": landed.cx,
@@ -227,13 +232,23 @@ class _Synthesiser:
             self._cols = {name: np.zeros(1, np.float32) for name in self._cols}
 
     # -- per-vector endpoint agreement ----------------------------------------------------------
-    def _agreement(self) -> np.ndarray:
-        rho = np.zeros(len(self.landed), np.float32)
+    def _agreement(self, sp: PlaneSampler, sf: PlaneSampler, pool) -> np.ndarray:
+        """Endpoint agreement of every landed vector, in chunks of vectors run on the pool (each
+        vector's value depends on its own patches only)."""
+        n = len(self.landed)
+        rho = np.zeros(n, np.float32)
         scale = float(1 << (self.bit_depth - 8)) ** 2
         floor = self.p.agreement_floor * scale
-        sp, sf = self.samplers[0]
-        for index, a, b in endpoint_patches(sp, sf, self.landed, margin=self.p.agreement_margin):
-            rho[index] = endpoint_agreement_stats(a, b, floor=floor)
+
+        def chunk(sel):
+            part = self.landed.take(sel)
+            for index, a, b in endpoint_patches(sp, sf, part, margin=self.p.agreement_margin):
+                rho[sel[index]] = endpoint_agreement_stats(a, b, floor=floor)
+
+        step = max(1, -(-n // _AGREEMENT_CHUNKS))
+        done = [pool.submit(chunk, np.arange(i, min(n, i + step))) for i in range(0, n, step)]
+        for d in done:
+            d.result()
         return rho
 
     # -- one band -------------------------------------------------------------------------------
@@ -247,10 +262,10 @@ class _Synthesiser:
         for p in planes:
             if not np.all(np.isfinite(p)):
                 raise ParameterError("the synthesis produced non-finite samples (please report this)")
+            # floor(p + 1/2) clipped to [0, top]: clipping before the floor gives the same integers
+            # (the bounds are integers), and the cast truncates, which is the floor on [0, top]
             p += np.float32(0.5)
-            np.floor(p, out=p)
-            np.maximum(p, np.float32(0), out=p)
-            np.minimum(p, top, out=p)
+            np.clip(p, np.float32(0), top, out=p)
             out.append(p.astype(dtype))
         return out, maps
 
@@ -290,7 +305,7 @@ class _Synthesiser:
             dc = np.where(vmask, dc, np.float32(np.inf))
         if p.method == "nearest":
             coef = (np.arange(K)[:, None, None] == np.argmin(dc, axis=0)[None]) & vmask
-            coef = coef.astype(np.float32)
+            coef = coef.astype(np.float32, copy=False)
         elif p.method == "distance_weighted":
             w = np.where(vmask, np.float32(1) / np.power(dc + np.float32(1), np.float32(p.idw_power)), zero)
             sw = w.sum(axis=0)
@@ -306,7 +321,7 @@ class _Synthesiser:
             dist = np.sqrt(ex * ex + ey * ey)
             rel = distance_reliability(dist, scale=p.reliability_scale)
             r = np.minimum(col["srho"][:, None, :] * rel, np.float32(p.max_correlation))
-            r = np.where(vmask, r, zero).astype(np.float32)
+            r = np.where(vmask, r, zero).astype(np.float32, copy=False)
             C = innovation_correlation(
                 col["dpx"], col["dpy"], col["dfx"], col["dfy"], valid,
                 spatial_correlation=p.spatial_correlation, nugget=p.innovation_nugget,
@@ -321,7 +336,7 @@ class _Synthesiser:
                     onehot = ((np.arange(K)[:, None, None] == np.argmin(dc, axis=0)[None]) & vmask).astype(np.float32)
                     coef = np.where(fall[None, None, :], onehot, coef)
                     conf = np.where(fall[None, :], zero, conf)
-            coef = coef.astype(np.float32)
+            coef = coef.astype(np.float32, copy=False)
         if conf is None:
             conf = np.zeros(coef.shape[1:], np.float32)
         # which endpoints are usable: the weight cell's centre moved by the displacement must stay
@@ -382,6 +397,8 @@ class _Synthesiser:
             A = _resample_axis(_resample_axis(alpha_cells, 1, c, fy), 2, c, fx)
             B = _resample_axis(_resample_axis(beta_cells, 1, c, fy), 2, c, fx)
             planes.append(self._combine(pi, A, B, act_a, act_b, col, Gr, Gx, gy0 * g // fy, fy, fx))
+        if not self.want_maps:  # synthesise(): the picture only
+            return planes, {}
         total = alpha_cells.sum(axis=0) + beta_cells.sum(axis=0)
         pw = np.where(total > 1e-6, alpha_cells.sum(axis=0) / np.where(total > 1e-6, total, 1), np.float32(0.5))
         up = lambda a: _resample_axis(_resample_axis(a, 0, c, 1), 1, c, 1)  # noqa: E731
@@ -490,6 +507,14 @@ def synthesise_with_maps(
     Model and equations: :mod:`synth.estimate` (LMMSE / Wiener estimation, S. M. Kay, Fundamentals
     of Statistical Signal Processing: Estimation Theory, 1993, ch. 12); projection: :mod:`synth.project`.
     """
+    return _synthesise(
+        past, future, fields, t=t, params=params, rows=rows, past_time=past_time, future_time=future_time,
+        method=method, workers=workers, want_maps=True,
+    )
+
+
+def _synthesise(past, future, fields, *, t, params, rows, past_time, future_time, method, workers, want_maps):
+    """The body of `synthesise_with_maps`; without ``want_maps`` the maps are not computed (empty)."""
     fields = _as_fields(fields)
     _check_inputs(past, future, fields, t)
     if params is None:
@@ -526,12 +551,23 @@ def synthesise_with_maps(
         workers = min(4, os.cpu_count() or 1)
     if isinstance(workers, bool) or not isinstance(workers, int) or workers < 1:
         raise ParameterError(f"workers must be a positive integer, got {workers!r}")
-    with (ThreadPoolExecutor(max_workers=workers) if workers > 1 else _InlineExecutor()) as pool:
-        learned = _learned_reliability(params, fields, landed, past)
-        eng = _Synthesiser(past, future, landed, params, k, (b_first // g, -(-b_last // g)), pool, learned)
-        starts = list(range((y0 // BAND_ROWS) * BAND_ROWS, y1, BAND_ROWS))
-        results = pool.map(lambda b0: (b0, eng.band_samples(b0, min(H, b0 + BAND_ROWS))), starts)
-        results = list(results)
+    # With our own band threads, OpenCV's internal threads only add synchronisation on the small
+    # per-band calls (measured: about 20 % more CPU time at 1920x1080); OpenCV's results do not
+    # depend on its thread count, and its setting is restored afterwards.
+    cv_threads = cv2.getNumThreads() if workers > 1 else None
+    try:
+        if cv_threads is not None:
+            cv2.setNumThreads(1)
+        with (ThreadPoolExecutor(max_workers=workers) if workers > 1 else _InlineExecutor()) as pool:
+            learned = _learned_reliability(params, fields, landed, past)
+            eng = _Synthesiser(past, future, landed, params, k, (b_first // g, -(-b_last // g)), pool, learned)
+            eng.want_maps = want_maps
+            starts = list(range((y0 // BAND_ROWS) * BAND_ROWS, y1, BAND_ROWS))
+            results = pool.map(lambda b0: (b0, eng.band_samples(b0, min(H, b0 + BAND_ROWS))), starts)
+            results = list(results)
+    finally:
+        if cv_threads is not None:
+            cv2.setNumThreads(cv_threads)
     n_planes = len(past.planes)
     dtype = past.y.dtype
     out = []
@@ -541,13 +577,13 @@ def synthesise_with_maps(
         else:
             ch, cw = past.planes[pi].shape
             out.append(np.zeros((-(-y1 // fy) - y0 // fy, cw), dtype))
-    maps = {name: np.zeros((y1 - y0, W), np.float32) for name in MAP_NAMES}
+    maps = {name: np.zeros((y1 - y0, W), np.float32) for name in MAP_NAMES} if want_maps else {}
     for b0, (planes, bmaps) in results:
         b1 = min(H, b0 + BAND_ROWS)
         # luma rows of this band inside the requested range
         s0, s1 = max(b0, y0), min(b1, y1)
         out[0][s0 - y0 : s1 - y0] = planes[0][s0 - b0 : s1 - b0, :W]
-        for name in MAP_NAMES:
+        for name in maps:
             maps[name][s0 - y0 : s1 - y0] = bmaps[name][s0 - b0 : s1 - b0, :W]
         for pi in range(1, n_planes):
             ch, cw = past.planes[pi].shape
@@ -575,15 +611,7 @@ def synthesise(
     workers: int | None = None,
 ) -> Picture:
     """Synthesise the picture at time ``t``; see `synthesise_with_maps` (same parameters)."""
-    return synthesise_with_maps(
-        past,
-        future,
-        fields,
-        t=t,
-        params=params,
-        rows=rows,
-        past_time=past_time,
-        future_time=future_time,
-        method=method,
-        workers=workers,
+    return _synthesise(
+        past, future, fields, t=t, params=params, rows=rows, past_time=past_time, future_time=future_time,
+        method=method, workers=workers, want_maps=False,
     ).picture
