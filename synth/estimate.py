@@ -5,8 +5,8 @@ Model
 Let ``y`` be the unknown sample of the target picture at pixel ``p`` and ``o_1 .. o_K`` the
 observations the pixel's K candidate vectors give: candidate ``i`` moved to ``p`` points at
 ``p + d_past_i`` on the past and ``p + d_future_i`` on the future reference, and its observation is
-the pair mean ``o_i = (past(p + d_past_i) + future(p + d_future_i)) / 2`` (one side only when the
-other endpoint leaves its picture). All quantities are taken around a local mean and normalised to
+the temporally weighted pair ``o_i = (1 - t) past(p + d_past_i) + t future(p + d_future_i)`` (the
+pair mean at t = 0.5; one side only when the other endpoint leaves its picture). All quantities are taken around a local mean and normalised to
 unit variance, so correlations are all that is needed.
 
 1. Endpoint agreement of candidate ``i`` (per block, on the patches the block's footprint covers on

@@ -8,9 +8,10 @@ Pipeline (equations in :mod:`synth.estimate`, projection in :mod:`synth.project`
    group's centre are the candidates of its pixels (`synth.candidates`);
 3. per pixel: distance to each candidate's footprint, reliability, correlations, weights
    (``method``: 'lmmse', 'distance_weighted' or 'nearest');
-4. per plane: each candidate, moved to the pixel, samples the past and the future reference; the pair
-   mean is its observation (one side only where the other endpoint leaves the picture); the
-   estimate is ``m + sum_i w_i (o_i - m)`` with ``m`` the mean of the pixel's observations;
+4. per plane: each candidate, moved to the pixel, samples the past and the future reference;
+   ``(1 - t) past + t future`` is its observation (one side only where the other endpoint leaves
+   the picture); the estimate is ``m + sum_i w_i (o_i - m)`` with ``m`` the mean of the pixel's
+   observations;
 5. chroma uses the same candidates (displacements divided by the subsampling factors) and the luma
    weights averaged over the luma samples each chroma sample covers.
 
