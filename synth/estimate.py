@@ -93,7 +93,6 @@ def _cholesky_tile(A, b, loading, eps):
     """Factor and solve one tile in place. A: list of lists of (n,) arrays (lower triangle used),
     b: list of (n,) or (m, n) arrays. Returns (x list, ok mask)."""
     K = len(A)
-    n = A[0][0].shape[-1]
     dtype = A[0][0].dtype
     diag_scale = sum(A[i][i] for i in range(K)) / K
     load = loading * diag_scale

@@ -102,28 +102,42 @@ def blend_rows(clip_path, params: dict, *, progress=None) -> list[dict]:
     """
     params = _with_defaults("blend", params)
     gap, method = int(params["gap"]), params["method"]
+
+    def predictor(a, past, future):
+        return lambda t: _blend(past, future, t=t, method=method)
+
     with open_job_clip(clip_path, params) as clip:
-        n = len(clip)
-        if n <= gap:
-            raise ParameterError(f"gap: the clip has {n} pictures, fewer than gap + 1 = {gap + 1}")
-        anchors = list(range(0, n - gap, gap))
-        total = len(anchors) * (gap - 1)
-        rows: list[dict] = []
-        future = clip.read(0)
-        for a in anchors:
-            past, future = future, clip.read(a + gap)
-            for k in range(1, gap):
-                t = k / gap
-                truth = clip.read(a + k)
-                pred = _blend(past, future, t=t, method=method)
-                psnr = picture_psnr(pred, truth)
-                row = {"past": a, "future": a + gap, "target": a + k, "t": t}
-                for plane, value in psnr.items():
-                    row[f"psnr_{plane.lower()}"] = value
-                row["mse_y"] = mean_squared_error(pred.y, truth.y)
-                rows.append(row)
-                if progress is not None:
-                    progress(len(rows), total)
+        return _in_between_rows(clip, gap, predictor, progress)
+
+
+def _in_between_rows(clip, gap: int, predictor, progress=None) -> list[dict]:
+    """Measure every picture between references `gap` apart against its prediction.
+
+    ``predictor(a, past, future)`` is called once per reference pair (anchor `a`) and returns a
+    function ``t -> Picture``; each row holds ``past``, ``future``, ``target``, ``t``, PSNR per plane
+    and ``mse_y``.
+    """
+    n = len(clip)
+    if n <= gap:
+        raise ParameterError(f"gap: the clip has {n} pictures, fewer than gap + 1 = {gap + 1}")
+    anchors = list(range(0, n - gap, gap))
+    total = len(anchors) * (gap - 1)
+    rows: list[dict] = []
+    future = clip.read(0)
+    for a in anchors:
+        past, future = future, clip.read(a + gap)
+        predict = predictor(a, past, future)
+        for k in range(1, gap):
+            t = k / gap
+            pred = predict(t)
+            truth = clip.read(a + k)
+            row = {"past": a, "future": a + gap, "target": a + k, "t": t}
+            for plane, value in picture_psnr(pred, truth).items():
+                row[f"psnr_{plane.lower()}"] = value
+            row["mse_y"] = mean_squared_error(pred.y, truth.y)
+            rows.append(row)
+            if progress is not None:
+                progress(len(rows), total)
     return rows
 
 
@@ -177,32 +191,15 @@ def synthesise_rows(clip_path, params: dict, *, progress=None) -> list[dict]:
     params = _with_defaults("synthesise", params)
     gap, qp, stripe_rows = int(params["gap"]), int(params["qp"]), int(params["stripe_rows"])
     sp = SynthParams().with_changes(method=params["method"])
+
+    def predictor(a, past, future):
+        field = estimate_field(future, past, coded_time=a + gap, reference_time=a, qp=qp)
+        if stripe_rows:
+            return lambda t: synthesise_striped(past, future, [field], t=t, params=sp, stripe_rows=stripe_rows)
+        return lambda t: synthesise(past, future, [field], t=t, params=sp)
+
     with open_job_clip(clip_path, params) as clip:
-        n = len(clip)
-        if n <= gap:
-            raise ParameterError(f"gap: the clip has {n} pictures, fewer than gap + 1 = {gap + 1}")
-        anchors = list(range(0, n - gap, gap))
-        total = len(anchors) * (gap - 1)
-        rows: list[dict] = []
-        future = clip.read(0)
-        for a in anchors:
-            past, future = future, clip.read(a + gap)
-            field = estimate_field(future, past, coded_time=a + gap, reference_time=a, qp=qp)
-            for k in range(1, gap):
-                t = k / gap
-                if stripe_rows:
-                    pred = synthesise_striped(past, future, [field], t=t, params=sp, stripe_rows=stripe_rows)
-                else:
-                    pred = synthesise(past, future, [field], t=t, params=sp)
-                truth = clip.read(a + k)
-                row = {"past": a, "future": a + gap, "target": a + k, "t": t}
-                for plane, value in picture_psnr(pred, truth).items():
-                    row[f"psnr_{plane.lower()}"] = value
-                row["mse_y"] = mean_squared_error(pred.y, truth.y)
-                rows.append(row)
-                if progress is not None:
-                    progress(len(rows), total)
-    return rows
+        return _in_between_rows(clip, gap, predictor, progress)
 
 
 def _synthesis_available() -> str | None:
