@@ -1,4 +1,4 @@
-"""Regenerate the demo clips in this folder from synth.democlips (deterministic, byte for byte).
+"""Regenerate the demo clips in this folder from synth.demo.scenes (deterministic, byte for byte).
 
 Usage: python demo_clips/make_clips.py [--check]
 
@@ -13,7 +13,7 @@ import tempfile
 from fractions import Fraction
 from pathlib import Path
 
-from synth.democlips import SCENES, render_scene
+from synth.demo.scenes import SCENES, render_scene
 from synth.io import write_clip
 from synth.picture import ClipInfo
 

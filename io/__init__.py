@@ -25,13 +25,13 @@ from typing import Iterable, Protocol
 from synth.errors import FormatError, ParameterError
 from synth.picture import ClipInfo, Picture
 
-from .atomic import atomic_output, atomic_write_bytes, atomic_write_text
-from .colour import MATRICES, picture_to_rgb, rgb_to_picture, rgb_to_ycbcr420
-from .fields import fields_to_csv, read_fields, write_fields
-from .images import ImageSequenceReader, is_image_pattern, write_images
-from .rawyuv import RawYUVReader, geometry_from_name, parse_size, write_yuv
-from .video import VideoReader
-from .y4m import Y4MReader, format_y4m_header, parse_y4m_header, write_y4m
+from synth.io.atomic import atomic_output, atomic_write_bytes, atomic_write_text
+from synth.io.colour import MATRICES, picture_to_rgb, rgb_to_picture, rgb_to_ycbcr420
+from synth.io.fields import fields_to_csv, read_fields, write_fields
+from synth.io.images import ImageSequenceReader, is_image_pattern, write_images
+from synth.io.rawyuv import RawYUVReader, geometry_from_name, parse_size, write_yuv
+from synth.io.video import VideoReader
+from synth.io.y4m import Y4MReader, format_y4m_header, parse_y4m_header, write_y4m
 
 __all__ = [
     "ClipReader",

@@ -45,7 +45,7 @@ from synth.errors import FormatError, ParameterError
 from synth.field import VectorField
 from synth.field_checks import COLUMNS, check_picture_size, field_from_columns, validate_field
 
-from .atomic import atomic_output, atomic_write_text
+from synth.io.atomic import atomic_output, atomic_write_text
 
 __all__ = ["FORMAT_NAME", "SCHEMA_VERSION", "write_fields", "read_fields", "fields_to_csv"]
 

@@ -26,9 +26,9 @@ import numpy as np
 from synth.errors import FormatError, ParameterError
 from synth.picture import ClipInfo, Picture, chroma_factors
 
-from .atomic import atomic_write_bytes
-from .colour import check_matrix, picture_to_rgb, rgb_to_picture
-from .planar import ReaderMixin, frame_index
+from synth.io.atomic import atomic_write_bytes
+from synth.io.colour import check_matrix, picture_to_rgb, rgb_to_picture
+from synth.io.planar import ReaderMixin, frame_index
 
 __all__ = ["ImageSequenceReader", "write_images", "is_image_pattern", "IMAGE_SUFFIXES"]
 

@@ -5,7 +5,7 @@ row per block, quarter-sample vectors. The offsets point into the synthetic pict
 target's own time (``reference: synthetic``), so coded and reference time are the same ``time``;
 the vector-field format requires two different times, hence a format of its own. Every other block
 rule of :mod:`synth.field_checks` (sizes, inside the picture, no overlap, coverage unless gaps are
-allowed, vectors within reach) is checked on reading. Layout: :func:`synth.offsets.offsets_document`.
+allowed, vectors within reach) is checked on reading. Layout: :func:`synth.codec.offsets.offsets_document`.
 """
 
 from __future__ import annotations
@@ -16,7 +16,7 @@ from pathlib import Path
 
 from synth.errors import FormatError
 
-from .atomic import atomic_write_text
+from synth.io.atomic import atomic_write_text
 
 __all__ = ["OFFSETS_FORMAT", "write_offsets", "read_offsets"]
 
@@ -24,8 +24,8 @@ OFFSETS_FORMAT = "synth-offsets"
 
 
 def write_offsets(path: str | os.PathLike, search, *, extra: dict | None = None) -> dict:
-    """Write an offset search (`synth.offsets.OffsetSearch`) as JSON, atomically; return the document."""
-    from synth.offsets import offsets_document
+    """Write an offset search (`synth.codec.offsets.OffsetSearch`) as JSON, atomically; return the document."""
+    from synth.codec.offsets import offsets_document
 
     doc = offsets_document(search, extra=extra)
     atomic_write_text(path, json.dumps(doc, indent=1) + "\n")
@@ -47,7 +47,7 @@ def read_offsets(path: str | os.PathLike):
         :mod:`synth.field_checks` (the message names the block).
     """
     from synth.field_checks import COLUMNS, check_picture_size, field_from_columns
-    from synth.offsets import OffsetField
+    from synth.codec.offsets import OffsetField
 
     path = Path(path)
     if not path.is_file():

@@ -20,8 +20,16 @@ from typing import Iterable
 from synth.errors import FormatError, ParameterError
 from synth.picture import ClipInfo, Picture
 
-from .atomic import atomic_output
-from .planar import PositionalFile, ReaderMixin, check_geometry, check_sample_range, frame_index, pack_picture, unpack_frame
+from synth.io.atomic import atomic_output
+from synth.io.planar import (
+    PositionalFile,
+    ReaderMixin,
+    check_geometry,
+    check_sample_range,
+    frame_index,
+    pack_picture,
+    unpack_frame,
+)
 
 __all__ = ["RawYUVReader", "write_yuv", "parse_size", "geometry_from_name"]
 

@@ -23,8 +23,8 @@ import cv2
 from synth.errors import FormatError, ParameterError
 from synth.picture import ClipInfo, Picture
 
-from .colour import MATRICES, check_matrix, rgb_to_ycbcr420
-from .planar import ReaderMixin, frame_index
+from synth.io.colour import MATRICES, check_matrix, rgb_to_ycbcr420
+from synth.io.planar import ReaderMixin, frame_index
 
 __all__ = ["VideoReader", "rgb_to_ycbcr420", "MATRICES"]
 

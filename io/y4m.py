@@ -31,8 +31,16 @@ from typing import Iterable
 from synth.errors import FormatError
 from synth.picture import ClipInfo, Picture
 
-from .atomic import atomic_output
-from .planar import PositionalFile, ReaderMixin, check_geometry, check_sample_range, frame_index, pack_picture, unpack_frame
+from synth.io.atomic import atomic_output
+from synth.io.planar import (
+    PositionalFile,
+    ReaderMixin,
+    check_geometry,
+    check_sample_range,
+    frame_index,
+    pack_picture,
+    unpack_frame,
+)
 
 __all__ = ["Y4MReader", "write_y4m", "parse_y4m_header", "format_y4m_header", "pack_picture", "C_TAGS"]
 

@@ -17,7 +17,7 @@ import typer
 from typer.core import TyperGroup
 from typer.exceptions import TyperException
 
-from .errors import SynthError
+from synth.errors import SynthError
 
 EXIT_INPUT_ERROR = 2
 EXIT_INTERNAL_ERROR = 3
@@ -101,7 +101,7 @@ def info(
     matrix: Optional[str] = typer.Option(None, "--matrix", help="Images / compressed video: R'G'B' to Y'CbCr matrix, 601 (default) or 709."),
 ) -> None:
     """Show a clip's format, size, frame count, sample format, frame rate and one frame's plane statistics."""
-    from .clipinfo import CHROMA_NAMES, describe_clip
+    from synth.commands.info import CHROMA_NAMES, describe_clip
 
     desc = describe_clip(
         clip, frame=frame, size=size, chroma_format=chroma, bit_depth=bit_depth, frame_rate=fps, matrix=matrix
@@ -143,7 +143,7 @@ def vectors(
     as_json: bool = typer.Option(False, "--json", help="Print the summary as JSON."),
 ) -> None:
     """Estimate codec-like block vectors from one picture of a clip to another."""
-    from .vector_job import parse_block_sizes, run_vectors
+    from synth.commands.vectors import parse_block_sizes, run_vectors
 
     summary = run_vectors(
         clip, coded=coded, reference=ref, output=output, qp=qp, search_range=search_range,
@@ -193,8 +193,8 @@ def frame(
     offset_window: int = typer.Option(2, "--window", help="Offset search range in luma samples, quarter-pel steps (with --offsets)."),
 ) -> None:
     """Synthesise one picture between two pictures of a clip from the vectors coded between them."""
-    from .frame_job import run_frame
-    from .params import SynthParams
+    from synth.commands.frame import run_frame
+    from synth.synthesis.params import SynthParams
 
     if offsets_out is not None and at is None:  # issue 5
         raise SynthError("--offsets needs --at (the true picture is the target of the offset search)")
@@ -204,7 +204,7 @@ def frame(
         maps_dir=maps, qp=qp, two_way=two_way, method=method,
     )  # fmt: skip
     if offsets_out is not None:  # issue 5
-        from .offsets_job import offsets_for_frame
+        from synth.commands.offsets import offsets_for_frame
 
         summary["offsets"] = offsets_for_frame(
             clip, at=at, synthetic_path=output, output=offsets_out, past=past, future=future,
@@ -250,9 +250,9 @@ def calibrate(
     as_json: bool = typer.Option(False, "--json", help="Print the fit record as JSON."),
 ) -> None:
     """Fit the synthesis parameters and the learned reliability on training clips."""
-    from .calibrate import calibrate as run_calibration, training_cases
-    from .io import atomic_write_text
-    from .params import SynthParams
+    from synth.synthesis.calibrate import calibrate as run_calibration, training_cases
+    from synth.io import atomic_write_text
+    from synth.synthesis.params import SynthParams
 
     try:
         gap_list = [int(v) for v in gaps.split(",") if v.strip()]
@@ -328,7 +328,7 @@ def _issue5_progress(description: str):
 
 
 def _issue5_maker(name: str, field_path: Optional[Path] = None, size: Optional[tuple[int, int]] = None):
-    from .reference_makers import maker_by_name
+    from synth.makers.reference_makers import maker_by_name
 
     if field_path is None:
         return maker_by_name(name)
@@ -360,7 +360,7 @@ def offsets(
     from synth.io import open_clip, write_y4m
     from synth.io.offsets_file import write_offsets
 
-    from .offsets import json_safe, refine_with_offsets
+    from synth.codec.offsets import json_safe, refine_with_offsets
 
     reader = open_clip(clip)
     try:
@@ -405,7 +405,7 @@ def export(
     """Synthetic reference pictures for every non-anchor picture of a hierarchical GOP, in display order."""
     from synth.io import open_clip
 
-    from .export import sidecar_path, write_reference_export
+    from synth.codec.export import sidecar_path, write_reference_export
 
     maker = _issue5_maker(synthesiser)
     reader = open_clip(clip)
@@ -444,11 +444,11 @@ def rd(
     as_json: bool = typer.Option(False, "--json", help="Print the summary as JSON instead of a table."),
 ) -> None:
     """Bits a synthetic third reference saves a real encoder: BD-rate against the two real references."""
-    from .offsets import json_safe
-    from .rd import rd as measure_rd
-    from .rdmeasure import parse_qps, summarise_clips
-    from .rdreport import format_rd_table, write_rd_report
-    from .reference_makers import maker_by_name
+    from synth.codec.offsets import json_safe
+    from synth.commands.rd import rd as measure_rd
+    from synth.codec.rdmeasure import parse_qps, summarise_clips
+    from synth.codec.rdreport import format_rd_table, write_rd_report
+    from synth.makers.reference_makers import maker_by_name
 
     maker_by_name(synthesiser)  # fail early when the synthesiser is not available
     qp_list = parse_qps(qps)
@@ -520,7 +520,7 @@ class _ProgressBar:
 
 
 def _open_for_run(clip: Path):
-    from .io import open_clip
+    from synth.io import open_clip
 
     return open_clip(clip)
 
@@ -531,7 +531,7 @@ def _field_estimator(two_way: bool):
         return None
     from functools import partial
 
-    from .workbench import estimate_pair_fields
+    from synth.evaluation.workbench import estimate_pair_fields
 
     return partial(estimate_pair_fields, two_way=True)
 
@@ -547,8 +547,8 @@ def compare(
     frames: Optional[int] = typer.Option(None, "--frames", "-n", help="Use only the first N pictures of the clip."),
 ) -> None:
     """Predict every picture between references GAP apart with every predictor and compare."""
-    from .compare import compare_clip
-    from .tables import run_tables
+    from synth.evaluation.compare import compare_clip
+    from synth.evaluation.tables import run_tables
 
     reader = _open_for_run(clip)
     with _ProgressBar(f"compare {clip.name}") as bar:
@@ -558,7 +558,7 @@ def compare(
         )
     typer.echo(run_tables(result))
     if report is not None:
-        from .report import write_report
+        from synth.evaluation.report import write_report
 
         paths = write_report([result], report, title=f"synth compare: {clip.name}")
         typer.echo(f"report: {paths['html']}")
@@ -579,10 +579,10 @@ def gop(
     frames: Optional[int] = typer.Option(None, "--frames", "-n", help="Use only the first N pictures of the clip."),
 ) -> None:
     """Synthesise every B picture of a dyadic hierarchical GOP from its references; statistics per layer."""
-    from .errors import ParameterError
-    from .gop import run_gop
-    from .predictors import resolve_predictors
-    from .tables import run_tables
+    from synth.errors import ParameterError
+    from synth.evaluation.gop import run_gop
+    from synth.makers import resolve_predictors
+    from synth.evaluation.tables import run_tables
 
     if export is not None and export.suffix.lower() != ".y4m":
         raise ParameterError(f"--export must name a .y4m file, got {str(export)!r}")
@@ -613,8 +613,8 @@ def gop(
         )
     typer.echo(run_tables(result))
     if export is not None:
-        from .export import sidecar_path
-        from .gop import write_gop_export
+        from synth.codec.export import sidecar_path
+        from synth.evaluation.gop import write_gop_export
 
         info = reader.info
         if not info.frame_count:
@@ -624,7 +624,7 @@ def gop(
         write_gop_export(result, export, info=info, source_name=str(clip))
         typer.echo(f"exported {len(result.synthetic)} synthetic pictures ({method}) to {export}; sidecar {sidecar_path(export)}")
     if report is not None:
-        from .report import write_report
+        from synth.evaluation.report import write_report
 
         paths = write_report([result], report, title=f"synth gop: {clip.name}")
         typer.echo(f"report: {paths['html']}")
@@ -635,8 +635,8 @@ def demo(
     out: Path = typer.Option(Path("synth-demo"), "--out", "-o", help="Directory for the report."),
 ) -> None:
     """Run the main job on the bundled demo clips: GOP run and comparison, with a report."""
-    from .demo import demo_plan, run_demo
-    from .tables import overview_table, vector_qp_table
+    from synth.demo.run import demo_plan, run_demo
+    from synth.evaluation.tables import overview_table, vector_qp_table
 
     plan = demo_plan()
     with _ProgressBar("demo") as bar:
@@ -678,9 +678,9 @@ def study(
     from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn, TimeRemainingColumn
     from rich.table import Table
 
-    from .study import load_manifest, make_executor, plan_study, run_study
-    from .study.report import format_table
-    from .study.runner import load_records
+    from synth.study import load_manifest, make_executor, plan_study, run_study
+    from synth.study.report import format_table
+    from synth.study.runner import load_records
 
     spec = load_manifest(manifest)  # validation errors: one line, exit 2, before anything runs
     console = Console(stderr=True)
@@ -726,7 +726,7 @@ def study(
         metrics = tables.metrics.get(kind, [])
         shared = ", ".join(f"{k}={v}" for k, v in tables.fixed.get(kind, {}).items())
         table = Table(title=f"{kind}: mean over clips", title_justify="left", caption=f"every job: {shared}" if shared else None, caption_justify="left")
-        from .study import get_kind
+        from synth.study import get_kind
 
         cols = ["setting", *get_kind(kind).group_by, "clips", *metrics]
         for col in cols:

@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .errors import ParameterError
+from synth.errors import ParameterError
 
 __all__ = [
     "ue_length",

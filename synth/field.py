@@ -15,7 +15,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .errors import ParameterError
+from synth.errors import ParameterError
 
 __all__ = ["VectorField"]
 

@@ -19,8 +19,8 @@ from typing import Mapping, Sequence
 
 import numpy as np
 
-from .errors import FormatError
-from .field import VectorField
+from synth.errors import FormatError
+from synth.field import VectorField
 
 __all__ = [
     "COLUMNS",

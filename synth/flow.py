@@ -11,7 +11,7 @@ from __future__ import annotations
 import cv2
 import numpy as np
 
-from .errors import ParameterError
+from synth.errors import ParameterError
 
 __all__ = ["check_flow", "sample_with_flow", "scale_flow_to_plane"]
 

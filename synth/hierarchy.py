@@ -14,7 +14,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-from .errors import ParameterError
+from synth.errors import ParameterError
 
 __all__ = ["GopPicture", "MAX_GOP_SIZE", "check_gop_size", "dyadic_gop", "flat_gop"]
 

@@ -21,8 +21,8 @@ import math
 import numpy as np
 from scipy.ndimage import correlate1d
 
-from .errors import ParameterError
-from .picture import Picture
+from synth.errors import ParameterError
+from synth.picture import Picture
 
 __all__ = [
     "PLANE_NAMES",

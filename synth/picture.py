@@ -13,7 +13,7 @@ from fractions import Fraction
 
 import numpy as np
 
-from .errors import ParameterError
+from synth.errors import ParameterError
 
 __all__ = ["CHROMA_FORMATS", "Picture", "ClipInfo", "chroma_shape", "chroma_factors"]
 

@@ -10,8 +10,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from realcrops import real_pictures
-from synth.bdrate import bd_psnr, bd_rate
-from synth.encode import encode_pictures
+from synth.codec.bdrate import bd_psnr, bd_rate
+from synth.codec.encode import encode_pictures
 from synth.errors import ParameterError
 from synth.metrics import picture_psnr
 

@@ -18,13 +18,13 @@ import scipy.linalg
 from typer.testing import CliRunner
 
 from synth import SynthParams, VectorField, synthesise
-from synth.calibrate import fit_exponential_decay, learned_estimate, stack_side_cues
-from synth.candidate_stack import candidate_stack
+from synth.synthesis.calibrate import fit_exponential_decay, learned_estimate, stack_side_cues
+from synth.synthesis.candidate_stack import candidate_stack
 from synth.cli import app
 from synth.errors import ParameterError
 from synth.io import rgb_to_ycbcr420, write_clip
-from synth.oracles import best_of_k, block_least_squares_stack
-from synth.reliability import (
+from synth.synthesis.oracles import best_of_k, block_least_squares_stack
+from synth.synthesis.reliability import (
     CUE_NAMES,
     check_coefficients,
     fit_error_model,

@@ -38,7 +38,7 @@ def test_gop_export_writes_a_clip(small_y4m, tmp_path):
     assert proc.returncode == 0, proc.stderr
     assert "layer" in proc.stdout and f"exported 6 synthetic pictures (obmc) to {out}" in proc.stdout
     assert len(open_clip(out)) == 6
-    # Sidecar in the layout of `synth export` (synth.export).
+    # Sidecar in the layout of `synth export` (synth.codec.export).
     doc = json.loads(out.with_name(out.name + ".json").read_text())
     assert doc["format"] == "synth-reference-sidecar" and doc["gop"] == 4 and doc["synthesiser"] == "obmc"
     assert [p["time"] for p in doc["pictures"]] == [1, 2, 3, 5, 6, 7]
@@ -81,7 +81,7 @@ def test_error_in_a_child_process_is_one_line(tmp_path):
 
 
 def test_demo_plan_and_a_reduced_demo_run(tmp_path):
-    from synth.demo import DEMO_CLIPS, demo_plan, run_demo
+    from synth.demo.run import DEMO_CLIPS, demo_plan, run_demo
 
     plan = demo_plan()
     assert [(s.kind, s.clip) for s in plan][:3] == [("gop", c) for c in DEMO_CLIPS]

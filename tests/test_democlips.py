@@ -7,7 +7,7 @@ import numpy as np
 import pytest
 
 from synth import ParameterError
-from synth.democlips import SCENES, render_scene, true_motion
+from synth.demo.scenes import SCENES, render_scene, true_motion
 from synth.flow import sample_with_flow
 from synth.io import open_clip, write_clip
 from synth.picture import ClipInfo

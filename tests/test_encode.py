@@ -9,10 +9,10 @@ import numpy as np
 import pytest
 
 from realcrops import real_pictures, to_high_depth_422
-from synth.encode import encode_pictures
+from synth.codec.encode import encode_pictures
 from synth.errors import ParameterError
 from synth.metrics import picture_psnr
-from synth.rdmeasure import code_target
+from synth.codec.rdmeasure import code_target
 
 
 @pytest.fixture

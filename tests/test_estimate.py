@@ -5,7 +5,7 @@ import pytest
 import scipy.linalg
 
 from synth import ParameterError
-from synth.estimate import (
+from synth.synthesis.lmmse import (
     endpoint_agreement_stats,
     innovation_correlation,
     link_correlation,
@@ -124,7 +124,7 @@ def test_markov_chain_endpoint_correlation_is_squared():
 
 def test_endpoint_agreement_is_the_correlation_for_zero_mean_patches():
     # Reference: numpy.corrcoef. For zero-mean patches of equal variance and no floor, equation 1 of
-    # synth.estimate is the correlation coefficient.
+    # synth.synthesis.lmmse is the correlation coefficient.
     rng = np.random.default_rng(6)
     a = rng.standard_normal((500, 256))
     noise = rng.standard_normal((500, 256))

@@ -14,11 +14,11 @@ from realcrops import to_high_depth_422, write_real_crop
 from synth.cli import app
 from synth.errors import ParameterError
 from synth.expgolomb import se_codeword
-from synth.export import export_plan, hierarchy, write_reference_export
+from synth.codec.export import export_plan, hierarchy, write_reference_export
 from synth.io import Y4MReader, open_clip, write_y4m
 from synth.io.offsets_file import read_offsets
-from synth.rdmeasure import measure_clip, parse_qps, rd_targets, summarise_clips
-from synth.reference_makers import BlendMaker, fraction_of, maker_by_name
+from synth.codec.rdmeasure import measure_clip, parse_qps, rd_targets, summarise_clips
+from synth.makers.reference_makers import BlendMaker, fraction_of, maker_by_name
 
 runner = CliRunner()
 
@@ -183,7 +183,7 @@ def test_frame_command_searches_offsets_on_its_synthesised_picture(crop_clip, tm
     field, doc = read_offsets(off)
     assert len(field) == 64 and field.coded_time == 4.0 and doc["search"]["window"] == 1
     # the offsets were searched on exactly the picture `frame` wrote, against the true picture 4
-    from synth.offsets import refine_with_offsets
+    from synth.codec.offsets import refine_with_offsets
 
     with Y4MReader(out) as syn, open_clip(crop_clip) as clip:
         again = refine_with_offsets(clip.read(4), syn.read(0), block=8, window=1, qp=27)

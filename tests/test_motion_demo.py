@@ -1,7 +1,7 @@
 """The estimator on the demo clips against their analytic true motion.
 
 Outside reference: the true motion comes from the scene generator's closed-form affine maps
-(`synth.democlips.true_motion`), not from any estimator. Error is measured per luma sample
+(`synth.demo.scenes.true_motion`), not from any estimator. Error is measured per luma sample
 (field vector minus true displacement) and averaged over fixed 16 x 16 cells that are textured
 (upper half of the mean minimum structure-tensor eigenvalue, Shi & Tomasi 1994, via OpenCV) and
 whose true motion is uniform to 1/4 sample; the median over cells is reported. The same cells are
@@ -13,9 +13,9 @@ import numpy as np
 import pytest
 
 from synth import estimate_field
-from synth.compensate import vector_maps
-from synth.democlips import true_motion
-from synth.field_rate import field_vector_bits
+from synth.motion.compensate import vector_maps
+from synth.demo.scenes import true_motion
+from synth.motion.rate import field_vector_bits
 from synth.io import open_clip
 
 from conftest import DEMO_CLIPS

@@ -8,11 +8,11 @@ import numpy as np
 import pytest
 from scipy import ndimage
 
-from synth.dctif import quarter_pel_phases
+from synth.codec.dctif import quarter_pel_phases
 from synth.errors import FormatError, ParameterError
 from synth.io.offsets_file import read_offsets, write_offsets
 from synth.io import rgb_to_ycbcr420
-from synth.offsets import OffsetField, motion_lagrangian, offsets_document, refine_with_offsets
+from synth.codec.offsets import OffsetField, motion_lagrangian, offsets_document, refine_with_offsets
 from synth.picture import Picture
 
 skdata = pytest.importorskip("skimage.data")

@@ -8,8 +8,8 @@ import skimage.data
 
 from synth import ParameterError, Picture, VectorField
 from synth.metrics import plane_psnr
-from synth.predictors import PREDICTORS, Prediction, get_predictor, resolve_predictors
-from synth.predictors.optical_flow import dis_flow
+from synth.makers import PREDICTORS, Prediction, get_predictor, resolve_predictors
+from synth.makers.optical_flow import dis_flow
 
 # Displacement of the content from the past to the future picture, luma samples (x, y).
 MOTION = (3.5, -2.25)

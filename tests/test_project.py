@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 
 from synth import ParameterError, VectorField
-from synth.project import project_fields, reference_times
+from synth.synthesis.project import project_fields, reference_times
 
 
 def _field(coded_time, reference_time, dx, dy, intra=None):

@@ -8,7 +8,15 @@ import numpy as np
 import pytest
 
 from synth import FormatError, ParameterError, Picture
-from synth.io import RawYUVReader, geometry_from_name, open_clip, parse_size, write_clip, write_y4m, write_yuv
+from synth.io import (
+    RawYUVReader,
+    geometry_from_name,
+    open_clip,
+    parse_size,
+    write_clip,
+    write_y4m,
+    write_yuv,
+)
 
 from test_y4m import PIX_FMT, av_planes, random_picture
 

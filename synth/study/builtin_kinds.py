@@ -9,10 +9,10 @@
     The product on the clip: vectors estimated between the references, the LMMSE synthesiser
     (optionally in stripes), measured against the true in-between pictures.
 ``rd``
-    The encoder-in-the-loop measurement (`synth.rdmeasure.measure_clip`): rows per target picture,
+    The encoder-in-the-loop measurement (`synth.codec.rdmeasure.measure_clip`): rows per target picture,
     configuration and QP, with each configuration's BD-rate against the real references.
 ``compare``, ``gop``
-    Adapters around the evaluation workbench (`synth.compare.compare`, `synth.gop.gop`). Each one
+    Adapters around the evaluation workbench (`synth.evaluation.compare.compare`, `synth.evaluation.gop.gop`). Each one
     reads the clip by path (a temporary ``.y4m`` on the worker when the manifest selects pictures or
     a window) and returns the per-picture rows of the library's result. Their rows carry the
     measured ``seconds`` per picture, which naturally differ from run to run.
@@ -32,8 +32,8 @@ from synth.errors import ParameterError
 from synth.metrics import mean_squared_error, picture_psnr
 from synth.picture import Picture
 
-from .clipsource import clip_as_y4m, open_job_clip
-from .kinds import JobKind, KindUnavailable, Param, register_kind
+from synth.study.clipsource import clip_as_y4m, open_job_clip
+from synth.study.kinds import JobKind, KindUnavailable, Param, register_kind
 
 __all__ = ["blend_rows", "BLEND_METHODS"]
 
@@ -52,7 +52,7 @@ def _one_of(options) -> Callable[[Any], str | None]:
 def _with_defaults(kind: str, params: dict) -> dict:
     """`params` with the kind's declared defaults filled in for keys it lacks (callers that bypass
     the manifest, e.g. tests calling ``get_kind(...).run`` directly, may pass only some keys)."""
-    from .kinds import get_kind
+    from synth.study.kinds import get_kind
 
     out = dict(params)
     for key, spec in (get_kind(kind).params or {}).items():
@@ -182,11 +182,11 @@ def synthesise_rows(clip_path, params: dict, *, progress=None) -> list[dict]:
         ``past``, ``future``, ``target``, ``t``, ``psnr_y``/``psnr_cb``/``psnr_cr``, ``mse_y`` per
         synthesised picture.
     """
-    from synth.motion import estimate_field
-    from synth.params import SynthParams
-    from synth.synthesis import synthesise
+    from synth.motion.estimator import estimate_field
+    from synth.synthesis.params import SynthParams
+    from synth.synthesis.synthesiser import synthesise
 
-    from .stripes import synthesise_striped
+    from synth.study.stripes import synthesise_striped
 
     params = _with_defaults("synthesise", params)
     gap, qp, stripe_rows = int(params["gap"]), int(params["qp"]), int(params["stripe_rows"])
@@ -203,7 +203,7 @@ def synthesise_rows(clip_path, params: dict, *, progress=None) -> list[dict]:
 
 
 def _synthesis_available() -> str | None:
-    for module, name in (("synth.motion", "estimate_field"), ("synth.synthesis", "synthesise"), ("synth.params", "SynthParams")):
+    for module, name in (("synth.motion.estimator", "estimate_field"), ("synth.synthesis.synthesiser", "synthesise"), ("synth.synthesis.params", "SynthParams")):
         if _library_function(module, name) is None:
             return f"job kind 'synthesise' is not available: {module}.{name} is not in this installation"
     return None
@@ -221,7 +221,7 @@ def _library_function(module: str, name: str):
 
 
 def rd_rows(clip_path, params: dict, *, progress=None) -> list[dict]:
-    """Run the ``rd`` kind: the encoder-in-the-loop measurement (`synth.rdmeasure.measure_clip`).
+    """Run the ``rd`` kind: the encoder-in-the-loop measurement (`synth.codec.rdmeasure.measure_clip`).
 
     Parameters
     ----------
@@ -238,8 +238,8 @@ def rd_rows(clip_path, params: dict, *, progress=None) -> list[dict]:
         ...), each with the clip's BD-rate (%) and BD-PSNR (dB) of its configuration against the
         two real references (VCEG-M33; empty for the anchor itself).
     """
-    from synth.rdmeasure import measure_clip, parse_qps
-    from synth.reference_makers import maker_by_name
+    from synth.codec.rdmeasure import measure_clip, parse_qps
+    from synth.makers.reference_makers import maker_by_name
 
     params = _with_defaults("rd", params)
     with open_job_clip(clip_path, params) as clip:
@@ -298,7 +298,7 @@ def _adapter(kind: str, module: str, name: str, issue: int, *, params: dict[str,
 
 
 def _rd_available() -> str | None:
-    for module, name in (("synth.rdmeasure", "measure_clip"), ("synth.reference_makers", "maker_by_name")):
+    for module, name in (("synth.codec.rdmeasure", "measure_clip"), ("synth.makers.reference_makers", "maker_by_name")):
         if _library_function(module, name) is None:
             return f"job kind 'rd' is not available yet: {module}.{name} is not in this installation (issue 5)"
     return None
@@ -366,7 +366,7 @@ def _positive(v) -> str | None:
 
 register_kind(
     _adapter(
-        "compare", "synth.compare", "compare", 6,
+        "compare", "synth.evaluation.compare", "compare", 6,
         params={
             "gap": Param((int,), 8, _at_least(2), "distance between the two references"),
             "predictors": Param((str,), None, None, "comma-separated predictor names (default: all)"),
@@ -379,7 +379,7 @@ register_kind(
 )
 register_kind(
     _adapter(
-        "gop", "synth.gop", "gop", 6,
+        "gop", "synth.evaluation.gop", "gop", 6,
         params={
             "size": Param((int,), 16, _one_of((2, 4, 8, 16, 32, 64)), "GOP size"),
             "flat": Param((bool,), None, None, "synthesise every picture straight from the anchors"),

@@ -24,7 +24,7 @@ from typing import Iterator
 
 from synth.errors import ParameterError
 
-from .worker import execute_job
+from synth.study.worker import execute_job
 
 __all__ = ["Executor", "LocalExecutor", "DaskExecutor", "make_executor"]
 
@@ -119,7 +119,7 @@ class LocalExecutor(Executor):
 
 def _worker_environment() -> dict:
     """What a Dask worker reports about itself (run on every worker by `DaskExecutor`)."""
-    from .jobs import code_version
+    from synth.study.jobs import code_version
 
     return {"code_version": code_version(), "malloc_trim_threshold": os.environ.get("MALLOC_TRIM_THRESHOLD_")}
 
@@ -177,7 +177,7 @@ class DaskExecutor(Executor):
 
     def _check_workers(self) -> None:
         """Refuse workers that cannot run synth's jobs; note settings that slow them down."""
-        from .jobs import code_version
+        from synth.study.jobs import code_version
 
         try:
             found = self._client.run(_worker_environment)

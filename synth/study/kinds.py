@@ -188,7 +188,7 @@ def register_kind(kind: JobKind, *, replace: bool = False) -> JobKind:
 def _ensure_builtins() -> None:
     # The built-in kinds register themselves on import; importing here keeps `kinds` free of
     # import cycles (builtin_kinds imports this module).
-    from . import builtin_kinds  # noqa: F401
+    from synth.study import builtin_kinds  # noqa: F401
 
 
 def get_kind(name: str) -> JobKind:

@@ -37,8 +37,8 @@ from typing import Any
 
 from synth.errors import FormatError, ParameterError
 
-from .clipsource import raw_geometry_for
-from .kinds import get_kind
+from synth.study.clipsource import raw_geometry_for
+from synth.study.kinds import get_kind
 
 __all__ = ["ClipEntry", "Task", "JobSpec", "Manifest", "load_manifest", "parse_manifest"]
 

@@ -15,8 +15,8 @@ from pathlib import Path
 
 from synth.io import atomic_write_bytes, atomic_write_text
 
-from .aggregate import StudyTables
-from .kinds import get_kind
+from synth.study.aggregate import StudyTables
+from synth.study.kinds import get_kind
 
 __all__ = ["write_report", "format_table"]
 

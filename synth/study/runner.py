@@ -27,11 +27,19 @@ from typing import Callable
 from synth.errors import FormatError
 from synth.io import atomic_write_text
 
-from .aggregate import StudyTables, aggregate, to_csv, to_json
-from .executors import Executor, LocalExecutor
-from .jobs import ClipHasher, Job, code_version, make_jobs, read_record, records_dir, write_record
-from .manifest import Manifest
-from .report import write_report
+from synth.study.aggregate import StudyTables, aggregate, to_csv, to_json
+from synth.study.executors import Executor, LocalExecutor
+from synth.study.jobs import (
+    ClipHasher,
+    Job,
+    code_version,
+    make_jobs,
+    read_record,
+    records_dir,
+    write_record,
+)
+from synth.study.manifest import Manifest
+from synth.study.report import write_report
 
 __all__ = ["StudyProgress", "StudyOutcome", "plan_study", "run_study", "load_records"]
 

