@@ -17,6 +17,7 @@ import typer
 from typer.core import TyperGroup
 from typer.exceptions import TyperException
 
+from synth.commands.progress import Progress
 from synth.errors import SynthError
 
 EXIT_INPUT_ERROR = 2
@@ -39,6 +40,12 @@ class _OneLineErrors(TyperGroup):
                 raise
             typer.echo(f"synth: error: {exc}", err=True)
             raise typer.Exit(EXIT_INPUT_ERROR) from None
+        except BrokenPipeError:  # output piped into a reader that stopped (e.g. head): end quietly
+            try:
+                sys.stdout = open(os.devnull, "w")
+            except OSError:
+                pass
+            raise typer.Exit(0) from None
         except KeyboardInterrupt:
             typer.echo("synth: interrupted", err=True)
             raise typer.Exit(130) from None
@@ -64,7 +71,9 @@ def _root() -> None:
 
 
 def _print_json(obj) -> None:
-    typer.echo(json.dumps(obj, indent=2, sort_keys=False, default=str))
+    from synth.io.jsonout import dumps_strict
+
+    typer.echo(dumps_strict(obj))
 
 
 # =============================================================================================
@@ -305,41 +314,6 @@ def calibrate(
 # Encoder side: export, rd  (issue 5)
 # =============================================================================================
 
-def _issue5_progress(description: str):
-    """A rich progress bar on stderr; returns (context manager, callback(done, total))."""
-    from rich.console import Console
-    from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn, TimeRemainingColumn
-
-    bar = Progress(
-        TextColumn("[progress.description]{task.description}"),
-        BarColumn(),
-        MofNCompleteColumn(),
-        TimeElapsedColumn(),
-        TimeRemainingColumn(),
-        console=Console(stderr=True),
-        transient=True,
-    )
-    task = bar.add_task(description, total=None)
-
-    def update(done: int, total: int) -> None:
-        bar.update(task, completed=done, total=total)
-
-    return bar, update
-
-
-def _issue5_maker(name: str, field_path: Optional[Path] = None, size: Optional[tuple[int, int]] = None):
-    from synth.makers.reference_makers import maker_by_name
-
-    if field_path is None:
-        return maker_by_name(name)
-    if name != "estimator":
-        raise SynthError(f"--field needs --synthesiser estimator, got {name!r}")
-    from synth.io.fields import read_fields
-
-    width, height = size if size is not None else (None, None)
-    return maker_by_name(name, fields=read_fields(field_path, width=width, height=height))
-
-
 @app.command()
 def offsets(
     clip: Path = typer.Argument(..., help="Clip file."),
@@ -485,57 +459,6 @@ def rd(
 # =============================================================================================
 
 
-class _ProgressBar:
-    """A rich progress bar on stderr, used as the library's ``progress(done, total, label)`` callback."""
-
-    def __init__(self, description: str):
-        from rich.console import Console
-        from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn, TimeRemainingColumn
-
-        self._progress = Progress(
-            TextColumn("{task.description}"),
-            BarColumn(),
-            MofNCompleteColumn(),
-            TimeElapsedColumn(),
-            TimeRemainingColumn(),
-            TextColumn("{task.fields[label]}"),
-            console=Console(stderr=True),
-            transient=True,
-        )
-        self._description = description
-        self._task = None
-
-    def __enter__(self) -> "_ProgressBar":
-        return self
-
-    def __exit__(self, *exc) -> None:
-        if self._task is not None:
-            self._progress.stop()
-
-    def __call__(self, done: int, total: int, label: str) -> None:
-        if self._task is None:  # started on the first report, so an early error prints one line only
-            self._progress.start()
-            self._task = self._progress.add_task(self._description, total=total, label="")
-        self._progress.update(self._task, completed=done, total=total, label=label)
-
-
-def _open_for_run(clip: Path):
-    from synth.io import open_clip
-
-    return open_clip(clip)
-
-
-def _field_estimator(two_way: bool):
-    """The workbench's vector estimator for ``--two-way`` (None: its default, one way)."""
-    if not two_way:
-        return None
-    from functools import partial
-
-    from synth.evaluation.workbench import estimate_pair_fields
-
-    return partial(estimate_pair_fields, two_way=True)
-
-
 @app.command()
 def compare(
     clip: Path = typer.Argument(..., help="Clip file (.y4m, or any video OpenCV decodes)."),
@@ -551,7 +474,7 @@ def compare(
     from synth.evaluation.tables import run_tables
 
     reader = _open_for_run(clip)
-    with _ProgressBar(f"compare {clip.name}") as bar:
+    with Progress(f"compare {clip.name}") as bar:
         result = compare_clip(
             reader, gaps=gap, predictors=predictors, vector_qps=vector_qp, limit=frames, clip_name=clip.name, progress=bar,
             estimate_fields=_field_estimator(two_way),
@@ -596,7 +519,7 @@ def gop(
     if export is None and export_method is not None:
         raise ParameterError("--export-method needs --export")
     reader = _open_for_run(clip)
-    with _ProgressBar(f"gop {clip.name}") as bar:
+    with Progress(f"gop {clip.name}") as bar:
         result = run_gop(
             reader,
             size=size,
@@ -639,7 +562,7 @@ def demo(
     from synth.evaluation.tables import overview_table, vector_qp_table
 
     plan = demo_plan()
-    with _ProgressBar("demo") as bar:
+    with Progress("demo") as bar:
         results, paths = run_demo(plan, out=out, progress=bar)
     clips = sorted({r.clip for r in results}, key=[r.clip for r in results].index)
     typer.echo(f"Mean PSNR-YUV (dB) of the picture each method predicts, over {len(clips)} demo clips ({', '.join(clips)}):")

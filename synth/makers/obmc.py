@@ -18,7 +18,7 @@ from synth.flow import sample_with_flow, scale_flow_to_plane
 from synth.picture import Picture
 from synth.synthesis.project import project_fields, reference_times
 
-__all__ = ["predict_obmc", "raised_cosine_weights", "grid_block_size"]
+__all__ = ["obmc_picture", "predict_obmc", "raised_cosine_weights", "grid_block_size"]
 
 
 def grid_block_size(fields: Sequence[VectorField]) -> int:
@@ -117,3 +117,8 @@ def predict_obmc(past: Picture, future: Picture, *, t: float, fields: Sequence[V
     picture = Picture.from_float(out, chroma_format=past.chroma_format, bit_depth=past.bit_depth)
     dist_map = np.kron(dist, np.ones((block, block), np.float32))[:h, :w]
     return picture, {"block_vector_distance": dist_map}
+
+
+def obmc_picture(state, *, t: float):
+    """Overlapped block motion compensation of the projected vectors (see `predict_obmc`)."""
+    return predict_obmc(state.past, state.future, t=t, fields=state.fields)

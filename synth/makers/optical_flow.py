@@ -41,6 +41,10 @@ prediction), ``occluded_in_future`` and ``occluded_in_past`` (1 where a far samp
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+from functools import partial
+from typing import Callable
+
 import cv2
 import numpy as np
 
@@ -48,12 +52,14 @@ from synth.flow import sample_with_flow, scale_flow_to_plane
 from synth.picture import Picture
 
 __all__ = [
+    "FlowPair",
     "dis_flow",
     "farneback_flow",
     "interpolate_with_flows",
-    "predict_dis_fast",
-    "predict_dis_medium",
-    "predict_farneback",
+    "interpolate_prepared",
+    "prepare_dis_fast",
+    "prepare_dis_medium",
+    "prepare_farneback",
 ]
 
 #: Fixed-point iterations when inverting a flow to time t.
@@ -194,36 +200,34 @@ def interpolate_with_flows(
     return picture, maps
 
 
-def predict_dis_fast(past: Picture, future: Picture, *, t: float, fields=None):
-    """Optical-flow interpolation with OpenCV's DIS flow, 'fast' preset (Kroeger et al., ECCV 2016).
+@dataclass
+class FlowPair:
+    """A reference pair with its flows both ways (the preparation of the optical-flow makers)."""
+
+    past: Picture
+    future: Picture
+    f01: np.ndarray
+    f10: np.ndarray
+
+
+def _flow_preparer(flow: Callable[[np.ndarray, np.ndarray], np.ndarray]):
+    def prepare(past: Picture, future: Picture, *, fields=None, params=None) -> FlowPair:
+        a, b = _luma8(past), _luma8(future)
+        return FlowPair(past, future, flow(a, b), flow(b, a))
+
+    return prepare
+
+
+prepare_dis_fast = _flow_preparer(partial(dis_flow, preset="fast"))
+prepare_dis_medium = _flow_preparer(partial(dis_flow, preset="medium"))
+prepare_farneback = _flow_preparer(farneback_flow)
+
+
+def interpolate_prepared(state: FlowPair, *, t: float):
+    """Optical-flow interpolation of a prepared pair (OpenCV DIS, Kroeger et al., ECCV 2016, or
+    Farneback, SCIA 2003, flows).
 
     Flows both ways, each reference warped to time t by fixed-point flow inversion, blended with a
-    forward-backward consistency (occlusion-aware)
-    rule; see `synth.makers.optical_flow`.
+    forward-backward consistency (occlusion-aware) rule; see `synth.makers.optical_flow`.
     """
-    a, b = _luma8(past), _luma8(future)
-    return interpolate_with_flows(past, future, dis_flow(a, b, preset="fast"), dis_flow(b, a, preset="fast"), t=t)
-
-
-def predict_dis_medium(past: Picture, future: Picture, *, t: float, fields=None):
-    """Optical-flow interpolation with OpenCV's DIS flow, 'medium' preset (Kroeger et al., ECCV 2016).
-
-    Flows both ways, each reference warped to time t by fixed-point flow inversion, blended with a
-    forward-backward consistency (occlusion-aware)
-    rule; see `synth.makers.optical_flow`.
-    """
-    a, b = _luma8(past), _luma8(future)
-    return interpolate_with_flows(
-        past, future, dis_flow(a, b, preset="medium"), dis_flow(b, a, preset="medium"), t=t
-    )
-
-
-def predict_farneback(past: Picture, future: Picture, *, t: float, fields=None):
-    """Optical-flow interpolation with OpenCV's Farneback flow (Farneback, SCIA 2003).
-
-    Flows both ways, each reference warped to time t by fixed-point flow inversion, blended with a
-    forward-backward consistency (occlusion-aware)
-    rule; see `synth.makers.optical_flow`.
-    """
-    a, b = _luma8(past), _luma8(future)
-    return interpolate_with_flows(past, future, farneback_flow(a, b), farneback_flow(b, a), t=t)
+    return interpolate_with_flows(state.past, state.future, state.f01, state.f10, t=t)

@@ -1,59 +1,40 @@
-"""Predictors built on the core synthesis (`synth.synthesis.synthesiser`): the estimator and its two
+"""Makers built on the core synthesis (`synth.synthesis.synthesiser`): the estimator and its two
 simplifications, which share the projection of the coded vectors and differ only in how they
 combine the candidates landing near each pixel.
 """
 
 from __future__ import annotations
 
-from typing import Sequence
+from synth.synthesis.synthesiser import synthesise_with_maps
 
-from synth.errors import ParameterError
-from synth.field import VectorField
-from synth.picture import Picture
-
-__all__ = ["predict_lmmse", "predict_projection", "predict_weighted", "core_available"]
+__all__ = ["lmmse_picture", "projection_picture", "weighted_picture"]
 
 
-def core_available() -> bool:
-    """True when the core synthesis (`synth.synthesis.synthesise_with_maps`) is installed."""
-    try:
-        from synth.synthesis.synthesiser import synthesise_with_maps  # noqa: F401
-    except ImportError:
-        return False
-    return True
-
-
-def _core(past: Picture, future: Picture, fields: Sequence[VectorField], *, t: float, method: str):
-    try:
-        from synth.synthesis.synthesiser import synthesise_with_maps
-    except ImportError:
-        raise ParameterError(
-            f"predictor method {method!r} needs the core synthesis (synth.synthesis.synthesiser), which is not installed"
-        ) from None
-    result = synthesise_with_maps(past, future, list(fields), t=t, method=method)
+def _core(state, *, t: float, method: str):
+    result = synthesise_with_maps(state.past, state.future, state.fields, t=t, params=state.params, method=method)
     return result.picture, dict(result.maps)
 
 
-def predict_lmmse(past: Picture, future: Picture, *, t: float, fields: Sequence[VectorField]):
+def lmmse_picture(state, *, t: float):
     """The core estimator: LMMSE (Wiener) combination of the projected vector candidates.
 
     The coded vectors are projected along their trajectories to time t; at every pixel the K
     nearby candidates each point at a pair of samples (one per reference), and the weights solve
-    R w = r per pixel (see `synth.synthesis.synthesiser`). Maps: the core's 'past_weight', 'confidence',
-    'candidates'.
+    R w = r per pixel (see `synth.synthesis.synthesiser`). Maps: the core's 'past_weight',
+    'confidence', 'candidates'.
     """
-    return _core(past, future, fields, t=t, method="lmmse")
+    return _core(state, t=t, method="lmmse")
 
 
-def predict_projection(past: Picture, future: Picture, *, t: float, fields: Sequence[VectorField]):
+def projection_picture(state, *, t: float):
     """Plain vector projection: each pixel takes the nearest landed vector (method 'nearest' of the
     core synthesis) and averages its two reference samples by temporal distance.
     """
-    return _core(past, future, fields, t=t, method="nearest")
+    return _core(state, t=t, method="nearest")
 
 
-def predict_weighted(past: Picture, future: Picture, *, t: float, fields: Sequence[VectorField]):
+def weighted_picture(state, *, t: float):
     """Distance-weighted average of the same K candidates the estimator uses (method
     'distance_weighted' of the core synthesis): the estimator without its correlation model.
     """
-    return _core(past, future, fields, t=t, method="distance_weighted")
+    return _core(state, t=t, method="distance_weighted")
