@@ -42,6 +42,11 @@ def main(argv: list[str]) -> int:
         else:
             make(name, target)
             print(f"{target.name}: written ({target.stat().st_size} bytes)")
+    if not check:
+        import cv2
+
+        # The OpenCV release that rendered the clips: tests compare byte for byte under it only.
+        (HERE / "RENDERED_WITH").write_text(f"opencv {cv2.__version__}\n")
     return status
 
 

@@ -15,15 +15,35 @@ from synth.picture import ClipInfo
 from conftest import DEMO_CLIPS
 
 
+#: Lowest PSNR-Y (dB) of a picture rendered by another OpenCV release against the committed one.
+#: OpenCV's anti-aliased text and line drawing changes between releases: measured for clips rendered
+#: with 4.x and re-rendered with 5.1, 36.9 dB at worst (cart_accelerate), 2.5 % of samples differing.
+OTHER_RELEASE_MIN_PSNR = 33.0
+
+
+def _rendered_with() -> str:
+    return (DEMO_CLIPS / "RENDERED_WITH").read_text().split()[1]
+
+
 @pytest.mark.parametrize("name", SCENES)
-def test_generator_recreates_committed_clip_byte_for_byte(name, tmp_path):
+def test_generator_recreates_committed_clip(name, tmp_path):
+    """Byte for byte under the OpenCV release that rendered the clips (demo_clips/RENDERED_WITH),
+    within `OTHER_RELEASE_MIN_PSNR` under any other."""
     committed = DEMO_CLIPS / f"{name}.y4m"
     with open_clip(committed) as reader:
         info = reader.info
         assert (info.width, info.height, len(reader), info.chroma_format, info.bit_depth) == (352, 288, 17, "420", 8)
     fresh = tmp_path / committed.name
-    write_clip(fresh, render_scene(name), ClipInfo(352, 288, frame_rate=info.frame_rate, chroma_siting="420jpeg"))
-    assert fresh.read_bytes() == committed.read_bytes()
+    pictures = render_scene(name)
+    write_clip(fresh, pictures, ClipInfo(352, 288, frame_rate=info.frame_rate, chroma_siting="420jpeg"))
+    if cv2.__version__ == _rendered_with():
+        assert fresh.read_bytes() == committed.read_bytes()
+    else:
+        from synth.metrics import plane_psnr
+
+        with open_clip(committed) as reader:
+            worst = min(plane_psnr(p.y, reader.read(i).y, bit_depth=8) for i, p in enumerate(pictures))
+        assert worst >= OTHER_RELEASE_MIN_PSNR, f"rendered with OpenCV {cv2.__version__}: {worst:.2f} dB"
 
 
 def test_committed_clips_fit_the_size_cap():
