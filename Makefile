@@ -6,7 +6,7 @@ VENV ?= .venv
 PY := $(VENV)/bin/python
 STAMP := $(VENV)/.installed
 
-.PHONY: demo test bench clean
+.PHONY: demo test lint bench clean
 
 $(STAMP): pyproject.toml
 	$(PYTHON) -m venv $(VENV)
@@ -18,8 +18,15 @@ $(STAMP): pyproject.toml
 demo: $(STAMP)
 	$(VENV)/bin/synth demo
 
+# Lint and format check first (ruff, configured in pyproject.toml), then the tests.
 test: $(STAMP)
+	$(VENV)/bin/ruff check .
+	$(VENV)/bin/ruff format --check .
 	$(PY) -m pytest -q -n 2
+
+lint: $(STAMP)
+	$(VENV)/bin/ruff check .
+	$(VENV)/bin/ruff format --check .
 
 bench: $(STAMP)
 	$(PY) tests/benchmarks/run_all.py

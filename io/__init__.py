@@ -13,7 +13,8 @@ Formats (chosen from the file name by `open_clip` and `write_clip`):
 - anything else: any video OpenCV decodes, read only, 4:2:0 8-bit (`VideoReader`).
 
 Vector fields: ``*.json`` (versioned, readable) and ``*.npz`` through `write_fields` / `read_fields`,
-CSV export with `fields_to_csv` (see :mod:`synth.io.fields`).
+CSV export with `fields_to_csv` (see :mod:`synth.io.fields`). Corrective block offsets:
+``synth-offsets`` JSON through `write_offsets` / `read_offsets` (see :mod:`synth.io.offsets_file`).
 """
 
 from __future__ import annotations
@@ -28,6 +29,7 @@ from synth.picture import ClipInfo, Picture
 from synth.io.atomic import atomic_output, atomic_write_bytes, atomic_write_text
 from synth.io.colour import MATRICES, picture_to_rgb, rgb_to_picture, rgb_to_ycbcr420
 from synth.io.fields import fields_to_csv, read_fields, write_fields
+from synth.io.offsets_file import read_offsets, write_offsets
 from synth.io.images import ImageSequenceReader, is_image_pattern, write_images
 from synth.io.rawyuv import RawYUVReader, geometry_from_name, parse_size, write_yuv
 from synth.io.video import VideoReader
@@ -61,6 +63,9 @@ __all__ = [
     "write_fields",
     "read_fields",
     "fields_to_csv",
+    # corrective block offsets (synth.offset_field)
+    "write_offsets",
+    "read_offsets",
 ]
 
 

@@ -1,38 +1,116 @@
 """Files of corrective block offsets (format ``synth-offsets``, schema version 1).
 
-The block table is the one of the vector-field files (:mod:`synth.io.fields`): ``columns`` and one
-row per block, quarter-sample vectors. The offsets point into the synthetic picture made for the
-target's own time (``reference: synthetic``), so coded and reference time are the same ``time``;
-the vector-field format requires two different times, hence a format of its own. Every other block
-rule of :mod:`synth.field_checks` (sizes, inside the picture, no overlap, coverage unless gaps are
-allowed, vectors within reach) is checked on reading. Layout: :func:`synth.codec.offsets.offsets_document`.
+The layout is the offsets document of :mod:`synth.offset_field` (the model); this module only
+writes it as strict JSON and reads it back, checking every rule. The block table is the one of the
+vector-field files (:mod:`synth.io.fields`): ``columns`` and one row per block, quarter-sample
+offsets. Offsets point into the synthetic picture made for the target's own time, so the file has
+ONE ``time`` (a finite number); the vector-field rule "coded and reference times differ" does not
+apply and is not faked. The block rules are checked here directly: integer values, sizes powers
+of two from 4 to 128, blocks inside the picture, no overlap, coverage unless ``gaps_allowed``,
+offsets no further than the picture.
+
+Version key ``schema_version``; files with the older ``version`` / ``format_version`` keys are read.
 """
 
 from __future__ import annotations
 
 import json
+import math
 import os
 from pathlib import Path
 
-from synth.errors import FormatError
+import numpy as np
 
+from synth.errors import FormatError
 from synth.io.atomic import atomic_write_text
+from synth.offset_field import (
+    OFFSET_COLUMNS,
+    OFFSETS_FORMAT,
+    OFFSETS_SCHEMA_VERSION,
+    OffsetField,
+    OffsetStatistics,
+    offsets_document,
+)
 
 __all__ = ["OFFSETS_FORMAT", "write_offsets", "read_offsets"]
 
-OFFSETS_FORMAT = "synth-offsets"
+_VERSION_KEYS = ("schema_version", "version", "format_version")
+_MIN_BLOCK, _MAX_BLOCK = 4, 128
 
 
-def write_offsets(path: str | os.PathLike, search, *, extra: dict | None = None) -> dict:
-    """Write an offset search (`synth.codec.offsets.OffsetSearch`) as JSON, atomically; return the document."""
-    from synth.codec.offsets import offsets_document
+def write_offsets(path: str | os.PathLike, field: OffsetField, *, statistics: OffsetStatistics | dict | None = None,
+                  settings: dict | None = None, extra: dict | None = None) -> dict:
+    """Write offsets as a ``synth-offsets`` JSON file, atomically.
 
-    doc = offsets_document(search, extra=extra)
-    atomic_write_text(path, json.dumps(doc, indent=1) + "\n")
+    Parameters
+    ----------
+    path : path-like
+    field : OffsetField
+    statistics, settings, extra
+        As in `synth.offset_field.offsets_document`.
+
+    Returns
+    -------
+    dict
+        The document written.
+    """
+    from synth.io.jsonout import dumps_strict
+
+    doc = offsets_document(field, statistics=statistics, settings=settings, extra=extra)
+    atomic_write_text(path, dumps_strict(doc, indent=1) + "\n")
     return doc
 
 
-def read_offsets(path: str | os.PathLike):
+def _integers(label: str, name: str, values) -> np.ndarray:
+    out = []
+    for i, v in enumerate(values):
+        if isinstance(v, bool) or not isinstance(v, int):
+            raise FormatError(f"{label}, block {i}: {name} must be an integer, got {v!r}")
+        if not -(2**31) <= v < 2**31:
+            raise FormatError(f"{label}, block {i}: {name} = {v} does not fit a 32-bit integer")
+        out.append(v)
+    return np.array(out, dtype=np.int64)
+
+
+def _check_blocks(label: str, width: int, height: int, x, y, w, h, dx, dy, intra, gaps_allowed: bool) -> None:
+    """The geometric rules of a block table (module docstring); raise `FormatError` naming the block."""
+
+    def where(i: int) -> str:
+        return f"{label}, block {i} (x={x[i]}, y={y[i]}, {w[i]}x{h[i]})"
+
+    for name, s in (("width", w), ("height", h)):
+        bad = (s < _MIN_BLOCK) | (s > _MAX_BLOCK) | ((s & (s - 1)) != 0)
+        if bad.any():
+            i = int(np.argmax(bad))
+            raise FormatError(
+                f"{where(i)}: block {name} must be a power of two from {_MIN_BLOCK} to {_MAX_BLOCK}, got {s[i]}"
+            )
+    outside = (x < 0) | (y < 0) | (x + w > width) | (y + h > height)
+    if outside.any():
+        i = int(np.argmax(outside))
+        raise FormatError(f"{where(i)}: block lies outside the {width}x{height} picture")
+    far = ~intra & (
+        (4 * x + dx < -4 * w) | (4 * x + dx > 4 * width) | (4 * y + dy < -4 * h) | (4 * y + dy > 4 * height)
+    )
+    if far.any():
+        i = int(np.argmax(far))
+        raise FormatError(
+            f"{where(i)}: offset (dx={dx[i]}, dy={dy[i]}) quarter samples points further than the picture"
+        )
+    owner = np.full((height, width), -1, dtype=np.int32)
+    for i, (bx, by, bw, bh) in enumerate(zip(x.tolist(), y.tolist(), w.tolist(), h.tolist())):
+        region = owner[by : by + bh, bx : bx + bw]
+        taken = region >= 0
+        if taken.any():
+            j = int(region[taken][0])
+            raise FormatError(f"{where(i)}: block overlaps block {j} (x={x[j]}, y={y[j]}) listed before it")
+        region[...] = i
+    if not gaps_allowed and (owner < 0).any():
+        r, c = np.argwhere(owner < 0)[0]
+        raise FormatError(f"{label}: sample (x={c}, y={r}) is covered by no block and gaps_allowed is false")
+
+
+def read_offsets(path: str | os.PathLike) -> tuple[OffsetField, dict]:
     """Read and validate an offsets file.
 
     Returns
@@ -43,13 +121,13 @@ def read_offsets(path: str | os.PathLike):
     Raises
     ------
     FormatError
-        Missing or malformed file, wrong format or schema version, or a block breaking a rule of
-        :mod:`synth.field_checks` (the message names the block).
+        Missing or malformed file, wrong format or schema version, a bad time, or a block breaking
+        a rule of the module docstring (the message names the block).
     """
-    from synth.field_checks import COLUMNS, check_picture_size, field_from_columns
-    from synth.codec.offsets import OffsetField
+    from synth.field_checks import check_picture_size
 
     path = Path(path)
+    label = str(path)
     if not path.is_file():
         raise FormatError(f"{path}: no such file")
     try:
@@ -58,8 +136,9 @@ def read_offsets(path: str | os.PathLike):
         raise FormatError(f"{path}: not a JSON offsets file ({exc})") from None
     if not isinstance(doc, dict) or doc.get("format") != OFFSETS_FORMAT:
         raise FormatError(f"{path}: not an offsets file (format must be {OFFSETS_FORMAT!r})")
-    if doc.get("schema_version") != 1:
-        raise FormatError(f"{path}: unknown schema version {doc.get('schema_version')!r} (this synth reads 1)")
+    version = next((doc[k] for k in _VERSION_KEYS if k in doc), None)
+    if version != OFFSETS_SCHEMA_VERSION or isinstance(version, bool):
+        raise FormatError(f"{path}: unknown schema version {version!r} (this synth reads {OFFSETS_SCHEMA_VERSION})")
     for key in ("width", "height", "time", "columns", "blocks"):
         if key not in doc:
             raise FormatError(f"{path}: missing key {key!r}")
@@ -69,26 +148,29 @@ def read_offsets(path: str | os.PathLike):
         width, height = check_picture_size(doc["width"], doc["height"])
     except FormatError as exc:
         raise FormatError(f"{path}: {exc}") from None
+    time = doc["time"]
+    if isinstance(time, bool) or not isinstance(time, (int, float)) or not math.isfinite(time):
+        raise FormatError(f"{path}: time must be a finite number (the target's display time), got {time!r}")
+    gaps_allowed = doc.get("gaps_allowed", False)
+    if not isinstance(gaps_allowed, bool):
+        raise FormatError(f"{path}: gaps_allowed must be true or false, got {gaps_allowed!r}")
     cols, blocks = doc["columns"], doc["blocks"]
-    if not isinstance(cols, list) or sorted(map(str, cols)) != sorted(COLUMNS) or len(cols) != len(COLUMNS):
-        raise FormatError(f"{path}: columns must name {', '.join(COLUMNS)} once each, got {cols!r}")
+    if not isinstance(cols, list) or sorted(map(str, cols)) != sorted(OFFSET_COLUMNS):
+        raise FormatError(f"{path}: columns must name {', '.join(OFFSET_COLUMNS)} once each, got {cols!r}")
     if not isinstance(blocks, list):
         raise FormatError(f"{path}: 'blocks' must be a list of rows")
     for i, row in enumerate(blocks):
         if not isinstance(row, list) or len(row) != len(cols):
             raise FormatError(f"{path}, block {i}: a row must list {len(cols)} values, got {row!r}")
-    time = doc["time"]
-    if isinstance(time, bool) or not isinstance(time, (int, float)):
-        raise FormatError(f"{path}: time must be a number, got {time!r}")
-    columns = {c: [row[j] for row in blocks] for j, c in enumerate(cols)}
-    # The block rules of the vector-field format; the "two different times" rule does not apply
-    # (the synthetic reference lives at the target's time), so a placeholder time is used here.
-    checked = field_from_columns(
-        columns, width=width, height=height, coded_time=float(time), reference_time=float(time) + 1.0,
-        gaps_allowed=doc.get("gaps_allowed", False), label=str(path),
-    )  # fmt: skip
-    field = OffsetField(
-        checked.width, checked.height, float(time), float(time), checked.x, checked.y, checked.w, checked.h,
-        checked.dx, checked.dy, checked.intra, checked.gaps_allowed,
+    raw = {c: [row[j] for row in blocks] for j, c in enumerate(cols)}
+    ints = {c: _integers(label, c, raw[c]) for c in OFFSET_COLUMNS[:-1]}
+    for i, v in enumerate(raw["intra"]):
+        if not (isinstance(v, bool) or (isinstance(v, int) and v in (0, 1))):
+            raise FormatError(f"{path}, block {i}: intra must be true/false or 0/1, got {v!r}")
+    intra = np.array([bool(v) for v in raw["intra"]], dtype=bool)
+    _check_blocks(label, width, height, *(ints[c] for c in OFFSET_COLUMNS[:-1]), intra, gaps_allowed)
+    field = OffsetField.from_blocks(
+        width=width, height=height, time=float(time), **{c: ints[c] for c in OFFSET_COLUMNS[:-1]}, intra=intra,
+        gaps_allowed=gaps_allowed,
     )  # fmt: skip
     return field, doc

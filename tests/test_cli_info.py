@@ -12,7 +12,7 @@ from synth.cli import app
 from synth.io import open_clip, write_yuv
 
 from conftest import DEMO_CLIPS
-from test_y4m import random_picture
+from test_io_y4m import random_picture
 
 runner = CliRunner()
 

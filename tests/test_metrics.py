@@ -78,3 +78,29 @@ def test_picture_metrics_keys_and_identity():
         picture_psnr(pic, Picture.blank(16, 16))
     with pytest.raises(ParameterError, match="at least 11x11"):
         ssim(y[:8, :8], y[:8, :8])
+
+
+@pytest.mark.parametrize("bit_depth", [8, 10])
+@pytest.mark.parametrize("name", ["camera", "astronaut_green"])
+def test_ssim_matches_scikit_image_on_whole_photographs_8_and_10_bit(name, bit_depth):
+    # Whole 512x512 photographs (skimage.data); the 10-bit planes are the 8-bit ones times 4 plus
+    # noise. Reference: scikit-image's structural_similarity configured as Wang et al. 2004.
+    top = (1 << bit_depth) - 1
+    plane = _photos()[name].astype(np.uint16) << (bit_depth - 8)
+    ref = plane.astype(np.uint8 if bit_depth == 8 else np.uint16)
+    test = _distorted(ref, seed=bit_depth, top=top)
+    want = structural_similarity(
+        ref, test, gaussian_weights=True, sigma=1.5, use_sample_covariance=False, data_range=top
+    )
+    assert abs(ssim(test, ref, bit_depth=bit_depth) - want) < 1e-4
+    assert 0.3 < want < 0.99
+
+
+def test_importing_metrics_loads_neither_opencv_nor_scipy():
+    # Start-up cost: OpenCV is imported when SSIM is first computed, scipy not at all.
+    import subprocess
+    import sys
+
+    code = "import sys, synth.metrics; print('cv2' in sys.modules, 'scipy' in sys.modules)"
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout
+    assert out.split() == ["False", "False"]

@@ -10,8 +10,10 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
+import numpy as np
 import pytest
 
+from synth.errors import ParameterError
 from synth.io import open_clip
 from synth.study import get_kind, load_manifest, run_study
 from synth.study.clipsource import ClipView
@@ -50,19 +52,20 @@ def test_rd_kind_passes_the_measurement_through(clip, tmp_path):
     if get_kind("rd").unavailable_reason():
         pytest.skip(get_kind("rd").unavailable_reason())
     from synth.codec.rdmeasure import measure_clip
-    from synth.makers.reference_makers import maker_by_name
+    from synth.makers import resolve_makers
 
     (tmp_path / "s.toml").write_text(
         f'[[clips]]\npath = "{clip}"\nname = "dock"\npictures = [0, 2]\nwindow = [0, 0, 64, 48]\n'
-        '[[tasks]]\nkind = "rd"\nfixed = { gap = 2, synthesiser = "blend", preset = "ultrafast", limit = 1 }\n'
+        '[[tasks]]\nkind = "rd"\nfixed = { gap = 2, makers = "average", preset = "ultrafast", limit = 1 }\n'
     )
     outcome = run_study(load_manifest(tmp_path / "s.toml"), tmp_path / "out")
     assert not outcome.failed
     doc = json.loads((tmp_path / "out" / "study.json").read_text())
     view = ClipView(open_clip(clip), pictures=[0, 2], window=[0, 0, 64, 48])
-    direct = measure_clip(view.read, len(view), clip="x", gap=2, qps=[22, 27, 32, 37], maker=maker_by_name("blend"),
+    direct = measure_clip(view.read, len(view), clip="x", gap=2, qps=[22, 27, 32, 37], makers=resolve_makers("average"),
                           preset="ultrafast", limit=1)
     bd = direct.bd()
+    assert {r["config"] for r in direct.rows} == {"real", "real+average", "average-only"}
     assert len(doc["rows"]) == len(direct.rows) > 0
     for got, want in zip(doc["rows"], direct.rows):
         assert (got["config"], got["qp"], got["bits"], got["psnr_y"]) == (want["config"], want["qp"], want["bits"], want["psnr_y"])
@@ -72,11 +75,40 @@ def test_rd_kind_passes_the_measurement_through(clip, tmp_path):
     assert {(m["config"], m["qp"]) for m in doc["means"]} == {(r["config"], r["qp"]) for r in direct.rows}
 
 
+def test_synthesise_kind_takes_a_maker_and_a_field_file(clip, tmp_path):
+    from synth import estimate_field
+    from synth.io import write_fields
+    from synth.makers import get_maker
+
+    view = ClipView(open_clip(clip), pictures=[0, 2], window=[32, 16, 96, 64])
+    past, truth, future = view.read(0), view.read(1), view.read(2)
+    field = estimate_field(future, past, coded_time=2, reference_time=0, qp=33)
+    write_fields(tmp_path / "f.json", [field])
+    (tmp_path / "s.toml").write_text(
+        f'[[clips]]\npath = "{clip}"\npictures = [0, 2]\nwindow = [32, 16, 96, 64]\n'
+        f'[[tasks]]\nkind = "synthesise"\nfixed = {{ maker = "projection", vectors = "{tmp_path / "f.json"}" }}\n'
+        '[[tasks]]\nkind = "synthesise"\nfixed = { maker = "projection", vector_qp = 33, stripe_rows = 16 }\n'
+    )
+    run_study(load_manifest(tmp_path / "s.toml"), tmp_path / "out")
+    doc = json.loads((tmp_path / "out" / "study.json").read_text())
+    from_file, striped = doc["rows"]
+    # PSNR as 10 log10(255^2 / MSE) (common practice) of the registry's maker on the same field
+    pred = get_maker("projection")(past, future, t=0.5, fields=[field]).picture
+    mse = float(np.mean((pred.y.astype(float) - truth.y.astype(float)) ** 2))
+    assert from_file["psnr_y"] == pytest.approx(10 * np.log10(255**2 / mse), abs=1e-9)
+    assert striped["psnr_y"] == from_file["psnr_y"]  # stripes are bit-identical, estimate = file field
+    (tmp_path / "bad.toml").write_text(
+        f'[[clips]]\npath = "{clip}"\n[[tasks]]\nkind = "synthesise"\nfixed = {{ maker = "blend" }}\n'
+    )
+    with pytest.raises(ParameterError, match="maker"):
+        load_manifest(tmp_path / "bad.toml")
+
+
 @pytest.mark.parametrize(
     "kind, fixed, call",
     [
-        ("compare", 'gap = 2, predictors = "average,lmmse"', dict(gap=2, predictors="average,lmmse")),
-        ("gop", 'size = 2, predictors = "average,obmc"', dict(size=2, predictors="average,obmc")),
+        ("compare", 'gap = 2, makers = "average,lmmse"', dict(gap=2, makers="average,lmmse")),
+        ("gop", 'size = 2, makers = "average,obmc"', dict(size=2, makers="average,obmc")),
     ],
 )
 def test_workbench_kinds_pass_the_rows_through(clip, tmp_path, kind, fixed, call):

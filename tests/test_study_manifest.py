@@ -156,7 +156,7 @@ def test_cli_bad_manifest_one_line_exit_2_and_no_job(tmp_path, clips, body, key)
     else:
         path = _write(tmp_path, _clip_block(clips[:1]) + body)
     out = tmp_path / "out"
-    result = CliRunner().invoke(app, ["study", str(path), "--out", str(out), "--workers", "1"])
+    result = CliRunner().invoke(app, ["study", str(path), "-o", str(out), "--workers", "1"])
     assert result.exit_code == 2
     lines = result.stderr.strip().splitlines()
     assert len(lines) == 1 and lines[0].startswith("synth: error: study.toml: ") and key in lines[0]

@@ -8,28 +8,35 @@ its two hierarchy references (the source pictures at those positions). The pictu
 in display order as Y4M (or raw planar ``.yuv``), with the source's size, chroma format and bit
 depth, plus a JSON sidecar describing each written picture.
 
-Sidecar (``format: synth-reference-sidecar``, ``version: 1``): ``source``, ``output``,
+Sidecar (``format: synth-reference-sidecar``, ``schema_version: 1``): ``source``, ``output``,
 ``container`` ('y4m' or 'raw'), ``width``, ``height``, ``chroma_format``, ``bit_depth``,
-``frame_rate``, ``gop``, ``synthesiser``, ``qp``, ``pictures`` (one entry per written picture, in
-file order: ``position`` in the output file, ``time`` (display number in the source), ``past``,
-``future``, ``t``, ``layer`` (1 for the GOP's middle picture, 2 for the next, ...), ``fields``
-(the vector fields used: coded and reference time, block count, where they came from)), and
-``uncovered`` (source pictures after the last complete GOP, which have no future anchor).
+``frame_rate``, ``gop`` (the GOP size), ``synthesiser`` (the maker's registry name), ``qp`` (the
+vector QP), ``pictures`` (one entry per written picture, in file order: ``position`` in the output
+file, ``time`` (display number in the source), ``past``, ``future``, ``t``, ``layer`` (1 for the
+GOP's middle picture, 2 for the next, ...), ``fields`` (the vector fields used: coded and
+reference time, block count, where they came from, QP)), and ``uncovered`` (source pictures after
+the last complete GOP, which have no future anchor). The layout is described in io/FORMATS.md.
 """
 
 from __future__ import annotations
 
-import json
 import os
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Callable, Iterator
 
 from synth.errors import ParameterError
+from synth.makers import Maker
+from synth.motion.sources import VectorSource
 from synth.picture import Picture
-from synth.makers.reference_makers import ReferenceMaker
 
-__all__ = ["GopEntry", "hierarchy", "export_plan", "synthetic_references", "write_reference_export", "sidecar_path"]
+__all__ = [
+    "GopEntry", "hierarchy", "export_plan", "describe_fields", "synthetic_references", "write_reference_export",
+    "sidecar_path", "SIDECAR_SCHEMA_VERSION",
+]
+
+#: ``schema_version`` of the sidecar this module writes.
+SIDECAR_SCHEMA_VERSION = 1
 
 
 @dataclass(frozen=True)
@@ -46,9 +53,9 @@ class GopEntry:
         return (self.time - self.past) / (self.future - self.past)
 
 
-def _check_gop(gop: int) -> None:
+def _check_gop(gop: int, option: str = "--gop-size") -> None:
     if isinstance(gop, bool) or not isinstance(gop, int) or gop < 2 or gop > 64 or gop & (gop - 1):
-        raise ParameterError(f"gop must be a power of two from 2 to 64, got {gop!r}")
+        raise ParameterError(f"{option} must be a power of two from 2 to 64, got {gop!r}")
 
 
 def hierarchy(gop: int, *, start: int = 0) -> list[GopEntry]:
@@ -85,37 +92,90 @@ def export_plan(frame_count: int, gop: int) -> tuple[list[GopEntry], list[int]]:
     """
     _check_gop(gop)
     if frame_count < gop + 1:
-        raise ParameterError(f"a GOP of {gop} needs {gop + 1} pictures, the clip has {frame_count}")
+        raise ParameterError(f"--gop-size {gop}: a GOP of {gop} needs {gop + 1} pictures, the clip has {frame_count}")
     groups = (frame_count - 1) // gop
     entries = [e for g in range(groups) for e in hierarchy(gop, start=g * gop)]
     entries.sort(key=lambda e: e.time)
     return entries, list(range(groups * gop + 1, frame_count))
 
 
+def describe_fields(fields, source: VectorSource | None) -> list[dict]:
+    """JSON-ready record of the vector fields a picture was made from.
+
+    One dict per field: ``coded_time``, ``reference_time``, ``blocks`` (the field's block count),
+    ``source`` ('estimated' by the built-in estimator, 'given' when read from a field file) and
+    ``qp`` (the vector QP of estimated fields, None for given ones).
+    """
+    estimated = source is None or source.kind == "estimate"
+    return [
+        {
+            "coded_time": f.coded_time,
+            "reference_time": f.reference_time,
+            "blocks": len(f),
+            "source": "estimated" if estimated else "given",
+            "qp": (source.qp if source is not None else None) if estimated else None,
+        }
+        for f in fields
+    ]
+
+
+def prepare_pair(maker: Maker, past: Picture, future: Picture, *, past_time: float, future_time: float,
+                 source: VectorSource | None, params=None):
+    """``(PreparedPair, fields record)`` of `maker` for one reference pair.
+
+    The fields come from `source` only when the maker needs vectors (`Maker.needs_vectors`).
+    """
+    fields = []
+    if maker.needs_vectors:
+        if source is None:
+            raise ParameterError(f"maker {maker.name!r} needs vectors: give a vector source (--vectors)")
+        fields = source.fields_for(past, future, past_time=past_time, future_time=future_time)
+    pair = maker.prepare(past, future, fields=fields, params=params, past_time=past_time, future_time=future_time)
+    return pair, describe_fields(fields, source)
+
+
 def synthetic_references(
     read: Callable[[int], Picture],
     entries: list[GopEntry],
     *,
-    maker: ReferenceMaker,
-    qp: int,
-    progress: Callable[[int, int], None] | None = None,
+    maker: Maker,
+    source: VectorSource | None = None,
+    params=None,
+    progress: Callable[[int, int, str], None] | None = None,
 ) -> Iterator[tuple[GopEntry, Picture, list[dict]]]:
     """Yield ``(entry, synthetic picture, fields used)`` for every entry, in the entries' order.
 
+    Parameters
+    ----------
+    read : callable
+        ``read(display number) -> Picture``.
+    entries : list of GopEntry
+    maker : Maker
+        From the makers registry (`synth.makers.get_maker`).
+    source : VectorSource, optional
+        Where the vectors come from (used only by makers that need vectors).
+    params : SynthParams, optional
+        Synthesis parameters handed to the maker.
+    progress : callable, optional
+        ``progress(done, total, label)`` after each picture.
+
+    Notes
+    -----
     Work shared by pictures with the same two references is prepared once (kept while consecutive
     entries need it, at most a few pairs at a time).
     """
-    cache: dict[tuple[int, int], object] = {}
+    cache: dict[tuple[int, int], tuple] = {}
     for i, e in enumerate(entries):
         key = (e.past, e.future)
         if key not in cache:
             if len(cache) > 8:
                 cache.pop(next(iter(cache)))
-            cache[key] = maker.prepare(read(e.past), read(e.future), past_time=e.past, future_time=e.future, qp=qp)
-        state = cache[key]
-        yield e, maker.make(state, time=e.time), maker.describe(state)
+            cache[key] = prepare_pair(maker, read(e.past), read(e.future), past_time=e.past, future_time=e.future,
+                                      source=source, params=params)
+        pair, fields = cache[key]
+        yield e, pair.at_time(e.time).picture, fields
         if progress is not None:
-            progress(i + 1, len(entries))
+            progress(i + 1, len(entries), f"picture {e.time}")
 
 
 def sidecar_path(output: str | os.PathLike) -> Path:
@@ -129,12 +189,13 @@ def write_reference_export(
     output: str | os.PathLike,
     *,
     gop: int,
-    maker: ReferenceMaker,
-    qp: int = 27,
+    maker: Maker,
+    source: VectorSource | None = None,
+    params=None,
     raw: bool = False,
     sidecar: str | os.PathLike | None = None,
     source_name: str | None = None,
-    progress: Callable[[int, int], None] | None = None,
+    progress: Callable[[int, int, str], None] | None = None,
 ) -> dict:
     """Write the synthetic pictures of every non-anchor picture of a clip and their sidecar.
 
@@ -145,10 +206,13 @@ def write_reference_export(
         Y4M file, or raw planar file when `raw` is true.
     gop : int
         Dyadic GOP size, a power of two from 2 to 64.
-    maker : ReferenceMaker
-        How each synthetic picture is made (see `synth.makers.reference_makers`).
-    qp : int
-        QP handed to the maker (the rate constraint of the estimated vectors).
+    maker : Maker
+        How each synthetic picture is made (`synth.makers.get_maker`).
+    source : VectorSource, optional
+        Where the vectors come from (`synth.motion.sources.parse_vector_source`; default: the
+        built-in estimator at vector QP 27). Used only by makers that need vectors.
+    params : SynthParams, optional
+        Synthesis parameters (default: built-in values).
     raw : bool
         Write headerless planar samples (8-bit, or 16-bit little-endian above 8 bits).
     sidecar : path, optional
@@ -164,14 +228,20 @@ def write_reference_export(
     Both files are written atomically (temporary name, then rename); the picture file first.
     """
     from synth.io import atomic_output, atomic_write_text, write_y4m
+    from synth.io.jsonout import dumps_strict
     from synth.io.y4m import pack_picture
+    from synth.motion.sources import parse_vector_source
 
+    if source is None:
+        source = parse_vector_source(None)
     info = reader.info
     entries, uncovered = export_plan(len(reader), gop)
     records: list[dict] = []
 
     def pictures() -> Iterator[Picture]:
-        for pos, (e, pic, fields) in enumerate(synthetic_references(reader.read, entries, maker=maker, qp=qp, progress=progress)):
+        for pos, (e, pic, fields) in enumerate(synthetic_references(
+            reader.read, entries, maker=maker, source=source, params=params, progress=progress
+        )):
             records.append(
                 {"position": pos, "time": e.time, "past": e.past, "future": e.future, "t": e.t, "layer": e.layer, "fields": fields}
             )
@@ -186,7 +256,7 @@ def write_reference_export(
         write_y4m(output, pictures(), info)
     doc = {
         "format": "synth-reference-sidecar",
-        "version": 1,
+        "schema_version": SIDECAR_SCHEMA_VERSION,
         "source": source_name if source_name is not None else str(getattr(reader, "path", "")),
         "output": output.name,
         "container": "raw" if raw else "y4m",
@@ -197,9 +267,9 @@ def write_reference_export(
         "frame_rate": f"{info.frame_rate.numerator}/{info.frame_rate.denominator}",
         "gop": gop,
         "synthesiser": maker.name,
-        "qp": qp,
+        "qp": source.qp if source.kind == "estimate" else None,
         "pictures": records,
         "uncovered": uncovered,
     }
-    atomic_write_text(sidecar if sidecar is not None else sidecar_path(output), json.dumps(doc, indent=2) + "\n")
+    atomic_write_text(sidecar if sidecar is not None else sidecar_path(output), dumps_strict(doc, indent=2) + "\n")
     return doc

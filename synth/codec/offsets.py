@@ -22,7 +22,7 @@ doi:10.1109/TCSVT.2003.815168), scaled by ``2^(bit_depth - 8)`` for deeper sampl
 The offsets are a vector field in the usual sign convention (:mod:`synth.field`): a block at
 ``(x, y)`` of the target with offset ``(dx, dy)`` takes its prediction from ``(x + dx/4, y + dy/4)``
 on the synthetic picture. Its reference is the synthetic picture, which lives at the target's own
-time, so the field's coded and reference times are equal (see :class:`OffsetField`). Blocks cover
+time, so the field has one time (the model, :class:`synth.offset_field.OffsetField`). Blocks cover
 the largest multiple of the block size; a rim beyond it (when the picture size is not a multiple)
 keeps the synthetic samples and is flagged as an allowed gap.
 
@@ -39,9 +39,9 @@ import numpy as np
 from synth.codec.dctif import quarter_pel_phases, shifted_view
 from synth.errors import ParameterError
 from synth.expgolomb import se_length
-from synth.field import VectorField
 from synth.flow import sample_with_flow, scale_flow_to_plane
 from synth.metrics import picture_psnr
+from synth.offset_field import OffsetField, OffsetStatistics
 from synth.picture import Picture
 from synth.codec.satd import block_sad, block_satd
 
@@ -53,65 +53,12 @@ __all__ = [
     "motion_lagrangian",
     "offset_bits",
     "refine_with_offsets",
-    "offsets_document",
-    "json_safe",
 ]
 
 #: Distortion measures the search accepts.
 METRICS = ("sad", "satd")
 _BLOCK_SIZES = (4, 8, 16, 32, 64)
 _MAX_WINDOW = 8
-
-
-@dataclass(frozen=True, eq=False)
-class OffsetField(VectorField):
-    """A `VectorField` whose reference is the synthetic picture at the coded picture's own time.
-
-    Identical to its parent except that ``coded_time == reference_time`` is allowed (and
-    expected): the synthetic picture is made for the target's time.
-    """
-
-    def __post_init__(self) -> None:
-        n = len(self.x)
-        for name in ("x", "y", "w", "h", "dx", "dy", "intra"):
-            a = getattr(self, name)
-            if not isinstance(a, np.ndarray) or a.shape != (n,):
-                raise ParameterError(f"OffsetField.{name} must be a 1-D array of {n} entries")
-
-
-@dataclass(frozen=True)
-class OffsetStatistics:
-    """What the offsets cost and what they bring.
-
-    PSNR figures are per plane ('Y', 'Cb', 'Cr'); SAD is over the whole luma plane; costs are the
-    summed Lagrangian ``D + lambda R`` with the search's distortion measure over the blocks.
-    """
-
-    blocks: int
-    block: int
-    window: int
-    metric: str
-    lagrangian: float
-    zero_share: float
-    bits_total: int
-    bits_per_block: float
-    bits_per_pixel: float
-    psnr_before: dict[str, float]
-    psnr_after: dict[str, float]
-    sad_before: float
-    sad_after: float
-    cost_before: float
-    cost_after: float
-
-    @property
-    def psnr_gain(self) -> float:
-        """Luma PSNR after minus before, in dB."""
-        return float(self.psnr_after["Y"] - self.psnr_before["Y"])
-
-    def as_dict(self) -> dict:
-        d = {k: getattr(self, k) for k in self.__dataclass_fields__}
-        d["psnr_gain_y"] = self.psnr_gain
-        return d
 
 
 @dataclass(frozen=True, eq=False)
@@ -282,11 +229,10 @@ def refine_with_offsets(
     prediction = Picture.from_float(planes, chroma_format=target.chroma_format, bit_depth=target.bit_depth)
 
     gy, gx = np.mgrid[0:rows, 0:cols]
-    offsets = OffsetField.from_arrays(
+    offsets = OffsetField.from_blocks(
         width=w,
         height=h,
-        coded_time=time,
-        reference_time=time,
+        time=time,
         x=(gx * block).ravel(),
         y=(gy * block).ravel(),
         w=block,
@@ -320,49 +266,7 @@ def refine_with_offsets(
 
 
 def json_safe(obj):
-    """Replace non-finite floats (an infinite PSNR of identical pictures) by None, recursively."""
-    if isinstance(obj, dict):
-        return {k: json_safe(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [json_safe(v) for v in obj]
-    if isinstance(obj, (float, np.floating)):
-        return float(obj) if np.isfinite(obj) else None
-    if isinstance(obj, np.integer):
-        return int(obj)
-    return obj
+    """Deprecated: `synth.io.jsonout.strict_json` (kept while callers move)."""
+    from synth.io.jsonout import strict_json
 
-
-def offsets_document(search: OffsetSearch, *, extra: dict | None = None) -> dict:
-    """A JSON-ready description of an offset search: the blocks and their offsets, and statistics.
-
-    Layout (``format: synth-offsets``, ``schema_version: 1``): the block table of the vector-field
-    file format (``width``, ``height``, ``vector_unit: quarter-sample``, ``columns`` x, y, w, h,
-    dx, dy, intra and one row per block in ``blocks``, ``gaps_allowed``), plus ``time`` (the
-    target's display time), ``reference: synthetic`` (the vectors point into the synthetic picture
-    made for that same time, which is why this is not a vector-field file: those require two
-    different times), ``search`` (block, window, metric, lambda), ``statistics`` and anything in
-    `extra` (e.g. the clip and picture numbers). Infinite PSNR figures (identical pictures) are
-    written as null.
-    """
-    from synth.field_checks import COLUMNS
-
-    f = search.field
-    st = search.stats
-    rows = np.stack([f.x, f.y, f.w, f.h, f.dx, f.dy, f.intra.astype(np.int32)], axis=1).tolist()
-    doc = {
-        "format": "synth-offsets",
-        "schema_version": 1,
-        "width": f.width,
-        "height": f.height,
-        "vector_unit": "quarter-sample",
-        "reference": "synthetic",
-        "time": float(f.coded_time),
-        "gaps_allowed": bool(f.gaps_allowed),
-        "search": {"block": st.block, "window": st.window, "metric": st.metric, "lambda": st.lagrangian},
-        "statistics": json_safe(st.as_dict()),
-        "columns": list(COLUMNS),
-        "blocks": rows,
-    }
-    if extra:
-        doc.update(json_safe(extra))
-    return doc
+    return strict_json(obj)

@@ -2,19 +2,20 @@
 
 For every target picture between two references ``gap`` apart, and every QP, short streams are
 coded with x264 or x265 (:mod:`synth.codec.encode`) in which the target is a P picture and its
-reference pictures are:
+reference pictures are (``M`` is the first maker of the run, the "synthetic" one, e.g. ``lmmse``):
 
 ``real`` (a)
     the two real references alone: stream ``past, future, target``;
-``real+synthetic`` (b)
-    the two real references plus the synthetic picture as a third reference: stream
+``real+M`` (b)
+    the two real references plus M's picture as a third reference: stream
     ``past, future, synthetic, target``, the synthetic picture coded at `extra_qp` (far lower than
     the QP, so it loses little in coding) and its bits not charged: a decoder derives it;
-``synthetic`` (c)
+``M-only`` (c)
     the synthetic picture as the only reference (same stream as (b), one reference picture);
 ``real+<other>`` (d)
-    another maker's picture (e.g. optical-flow interpolation) as the third reference;
-``real+corrected`` (optional)
+    another maker's picture (e.g. ``real+dis-medium``, optical-flow interpolation) as the third
+    reference;
+``real+M+offsets`` (optional)
     the synthetic picture corrected with the encoder-side offsets (:mod:`synth.codec.offsets`) as the
     third reference, the offsets' bits charged to the target.
 
@@ -38,13 +39,27 @@ from synth.codec.encode import CODECS, encode_pictures, max_qp
 from synth.errors import ParameterError
 from synth.metrics import picture_psnr
 from synth.codec.offsets import refine_with_offsets
+from synth.makers import Maker
+from synth.motion.sources import VectorSource
 from synth.picture import Picture
-from synth.makers.reference_makers import ReferenceMaker
 
-__all__ = ["ANCHOR", "TargetCoding", "code_target", "measure_clip", "ClipRD", "rd_targets", "summarise_clips", "parse_qps"]
+__all__ = [
+    "ANCHOR", "TargetCoding", "code_target", "measure_clip", "ClipRD", "rd_targets", "summarise_clips", "parse_qps",
+    "config_names", "parse_gaps",
+]
 
 #: The anchor configuration every BD-rate is measured against.
 ANCHOR = "real"
+
+
+def config_names(synthetic: str) -> dict[str, str]:
+    """Configuration labels of a run whose first maker is `synthetic`: keys ``'b'`` (plus it as a
+    third reference), ``'c'`` (it as the only reference), ``'corrected'`` (with the offsets).
+
+    >>> config_names("lmmse")["c"]
+    'lmmse-only'
+    """
+    return {"b": f"real+{synthetic}", "c": f"{synthetic}-only", "corrected": f"real+{synthetic}+offsets"}
 
 
 @dataclass(frozen=True, eq=False)
@@ -108,27 +123,33 @@ def code_target(
     return TargetCoding(tp.bits, picture_psnr(tp.reconstruction, target), tp.reconstruction, extra_psnr, match)
 
 
-def parse_qps(text: str | Sequence[int], *, bit_depth: int = 8) -> list[int]:
+def parse_qps(text: str | Sequence[int], *, bit_depth: int = 8, option: str = "--qps") -> list[int]:
     """QPs from '22,27,32,37' (or a sequence): integers in range, distinct, at least four."""
-    if isinstance(text, str):
-        try:
-            qps = [int(v) for v in text.split(",") if v.strip()]
-        except ValueError:
-            raise ParameterError(f"qps must be comma-separated integers, got {text!r}") from None
-    else:
-        qps = [int(v) for v in text]
+    from synth.commands.options import parse_int_list
+
+    qps = parse_int_list(text, option=option, allow_empty=True)
     top = max_qp(bit_depth)
     if len(qps) < 4 or len(set(qps)) != len(qps) or any(not 0 <= q <= top for q in qps):
-        raise ParameterError(f"qps must be at least four distinct integers in 0..{top}, got {text!r}")
+        raise ParameterError(f"{option} must be at least four distinct integers in 0..{top}, got {text!r}")
     return sorted(qps)
+
+
+def parse_gaps(text, *, option: str = "--gaps") -> list[int]:
+    """Reference gaps from '8' or '2,4,8' (or a sequence): distinct integers >= 2, in the given order."""
+    from synth.commands.options import parse_int_list
+
+    gaps = parse_int_list(text, option=option)
+    if any(g < 2 for g in gaps) or len(set(gaps)) != len(gaps):
+        raise ParameterError(f"{option} must be distinct integers >= 2, got {text!r}")
+    return gaps
 
 
 def rd_targets(frame_count: int, gap: int) -> list[tuple[int, int, int]]:
     """``(past, future, target)`` for every picture between references ``gap`` apart (0, gap, 2 gap...)."""
     if isinstance(gap, bool) or not isinstance(gap, int) or gap < 2:
-        raise ParameterError(f"gap must be an integer >= 2, got {gap!r}")
+        raise ParameterError(f"--gaps must be integers >= 2, got {gap!r}")
     if frame_count < gap + 1:
-        raise ParameterError(f"gap {gap} needs at least {gap + 1} pictures, the clip has {frame_count}")
+        raise ParameterError(f"--gaps {gap} needs at least {gap + 1} pictures, the clip has {frame_count}")
     out = []
     for p in range(0, frame_count - gap, gap):
         out += [(p, p + gap, n) for n in range(p + 1, p + gap)]
@@ -140,8 +161,11 @@ class ClipRD:
     """Per-target rows and per-configuration curves of one clip."""
 
     clip: str
+    gap: int = 8
+    synthetic: str = "lmmse"
     rows: list[dict] = field(default_factory=list)
     offsets: list[dict] = field(default_factory=list)
+    fields: list[dict] = field(default_factory=list)
     reference_mismatches: int = 0
 
     def curves(self) -> dict[str, list[dict]]:
@@ -215,6 +239,7 @@ class ClipRD:
 def _row(clip, past, future, target, config, qp, coding: TargetCoding, *, side_bits=0, reference_psnr=None) -> dict:
     return {
         "clip": clip,
+        "gap": future - past,
         "past": past,
         "future": future,
         "target": target,
@@ -240,15 +265,17 @@ def measure_clip(
     gap: int = 8,
     qps: Sequence[int] = (22, 27, 32, 37),
     codec: str = "h264",
-    maker: ReferenceMaker,
-    others: dict[str, ReferenceMaker] | None = None,
+    makers: Sequence[Maker],
+    source: VectorSource | None = None,
+    params=None,
+    vector_qp: int | None = None,
     refs: str = "decoded",
     extra_qp: int = 4,
     preset: str = "medium",
     offsets: dict | None = None,
     only_extra: bool = True,
     limit: int | None = None,
-    progress: Callable[[int, int], None] | None = None,
+    progress: Callable[[int, int, str], None] | None = None,
 ) -> ClipRD:
     """Run the encoder-in-the-loop measurement on one clip.
 
@@ -264,10 +291,17 @@ def measure_clip(
     qps : sequence of int
         One rate-distortion point per QP (four or more for a BD-rate).
     codec : {'h264', 'hevc'}
-    maker : ReferenceMaker
-        Makes the synthetic picture (configurations (b) and (c)).
-    others : dict name -> ReferenceMaker, optional
-        Further third references, each giving configuration ``real+<name>`` (d).
+    makers : sequence of Maker
+        One extra-reference configuration per maker (`synth.makers.resolve_makers`). The first is
+        the synthetic one: configurations ``real+M`` (b), ``M-only`` (c) and, with `offsets`,
+        ``real+M+offsets``; every other maker gives ``real+<name>`` (d).
+    source : VectorSource, optional
+        Where the vectors of makers that need them come from (default: the built-in estimator).
+    params : SynthParams, optional
+        Synthesis parameters handed to the makers.
+    vector_qp : int, optional
+        QP of estimated vectors; None (default) estimates them at each point's encoder QP, as the
+        encoder would have coded them.
     refs : {'decoded', 'source'}
         Make extra references from the decoded references at each QP (what a decoder has) or from
         the source pictures.
@@ -276,29 +310,40 @@ def measure_clip(
     offsets : dict, optional
         When given (keys ``block``, ``window``, ``metric``), run the offset search on every
         synthetic picture (lambda from the QP), record its statistics, and add configuration
-        ``real+corrected`` with the offsets' bits charged.
+        ``real+M+offsets`` with the offsets' bits charged.
     only_extra : bool
         Also measure (c), the synthetic picture as the only reference.
     limit : int, optional
         Measure only the first `limit` targets (quick looks).
-    progress : callable (done, total), optional
+    progress : callable (done, total, label), optional
 
     Returns
     -------
     ClipRD
+        ``fields`` records the vector fields used per reference pair and QP (``past``, ``future``,
+        ``qp``, ``fields``: coded_time, reference_time, blocks, source, qp).
     """
+    from synth.codec.export import prepare_pair
+    from synth.motion.sources import parse_vector_source
+
     if codec not in CODECS:
-        raise ParameterError(f"codec must be one of {', '.join(CODECS)}, got {codec!r}")
+        raise ParameterError(f"--codec must be one of {', '.join(CODECS)}, got {codec!r}")
     if refs not in ("decoded", "source"):
-        raise ParameterError(f"refs must be 'decoded' or 'source', got {refs!r}")
+        raise ParameterError(f"--refs must be 'decoded' or 'source', got {refs!r}")
+    makers = list(makers)
+    if not makers:
+        raise ParameterError("--makers must name at least one maker")
+    if source is None:
+        source = parse_vector_source(None)
     qps = list(qps)
     targets = rd_targets(frame_count, gap)
     if limit is not None:
         if limit < 1:
-            raise ParameterError(f"limit must be >= 1, got {limit}")
+            raise ParameterError(f"--limit must be >= 1, got {limit}")
         targets = targets[:limit]
-    others = dict(others or {})
-    result = ClipRD(clip=clip)
+    primary, others = makers[0], makers[1:]
+    names = config_names(primary.name)
+    result = ClipRD(clip=clip, gap=gap, synthetic=primary.name)
     total = len(targets) * len(qps)
     done = 0
     pairs: dict[tuple[int, int], list[int]] = {}
@@ -312,29 +357,33 @@ def measure_clip(
                 dpast, dfuture = (c.reconstruction for c in ref_stream.pictures)
             else:
                 dpast, dfuture = past, future
-            kw = dict(past_time=p, future_time=f, qp=qp)
-            state = maker.prepare(dpast, dfuture, **kw)
-            other_states = {name: m.prepare(dpast, dfuture, **kw) for name, m in others.items()}
+            point_source = source.with_qp(qp if vector_qp is None else vector_qp)
+            prepared = []
+            for m in makers:
+                pair, used = prepare_pair(m, dpast, dfuture, past_time=p, future_time=f, source=point_source, params=params)
+                prepared.append(pair)
+                if used:
+                    result.fields.append({"past": p, "future": f, "qp": qp, "maker": m.name, "fields": used})
             expected = (dpast, dfuture) if refs == "decoded" else None
             for n in ns:
                 target = read(n)
                 common = dict(codec=codec, qp=qp, extra_qp=extra_qp, preset=preset, expected_refs=expected)
                 a = code_target(past, future, target, **common)
                 result.rows.append(_row(clip, p, f, n, ANCHOR, qp, a))
-                synthetic = maker.make(state, time=n)
+                synthetic = prepared[0].at_time(n).picture
                 syn_psnr = picture_psnr(synthetic, target)["Y"]
                 b = code_target(past, future, target, extra=synthetic, **common)
-                result.rows.append(_row(clip, p, f, n, "real+synthetic", qp, b, reference_psnr=syn_psnr))
+                result.rows.append(_row(clip, p, f, n, names["b"], qp, b, reference_psnr=syn_psnr))
                 codings = [a, b]
                 if only_extra:
                     c = code_target(past, future, target, extra=synthetic, extra_only=True, **common)
-                    result.rows.append(_row(clip, p, f, n, "synthetic", qp, c, reference_psnr=syn_psnr))
+                    result.rows.append(_row(clip, p, f, n, names["c"], qp, c, reference_psnr=syn_psnr))
                     codings.append(c)
-                for name, m in others.items():
-                    pic = m.make(other_states[name], time=n)
+                for m, pair in zip(others, prepared[1:]):
+                    pic = pair.at_time(n).picture
                     d = code_target(past, future, target, extra=pic, **common)
                     result.rows.append(
-                        _row(clip, p, f, n, f"real+{name}", qp, d, reference_psnr=picture_psnr(pic, target)["Y"])
+                        _row(clip, p, f, n, f"real+{m.name}", qp, d, reference_psnr=picture_psnr(pic, target)["Y"])
                     )
                     codings.append(d)
                 if offsets is not None:
@@ -357,7 +406,7 @@ def measure_clip(
                     e = code_target(past, future, target, extra=search.prediction, **common)
                     result.rows.append(
                         _row(
-                            clip, p, f, n, "real+corrected", qp, e,
+                            clip, p, f, n, names["corrected"], qp, e,
                             side_bits=st.bits_total, reference_psnr=st.psnr_after["Y"],
                         )
                     )
@@ -365,25 +414,11 @@ def measure_clip(
                 result.reference_mismatches += sum(not cd.references_match for cd in codings)
                 done += 1
                 if progress is not None:
-                    progress(done, total)
+                    progress(done, total, f"{clip} picture {n} QP {qp}")
     return result
 
 
-def summarise_clips(clips: Sequence[ClipRD]) -> dict:
-    """Per-clip curves and BD figures, and the average BD-rate per configuration over clips."""
-    per = []
-    for c in clips:
-        per.append(
-            {
-                "clip": c.clip,
-                "targets": len({(r["past"], r["target"]) for r in c.rows}),
-                "curves": c.curves(),
-                "bd": c.bd(),
-                "synthesis_psnr_y": c.synthesis_psnr(),
-                "offsets": c.offsets_summary(),
-                "reference_mismatches": c.reference_mismatches,
-            }
-        )
+def _average(per: list[dict]) -> dict:
     configs = sorted({k for p in per for k in p["bd"]})
     average = {}
     for k in configs:
@@ -394,4 +429,38 @@ def summarise_clips(clips: Sequence[ClipRD]) -> dict:
             "bd_psnr": float(np.mean(psn)) if psn else None,
             "clips": len(vals),
         }
-    return {"clips": per, "average": average}
+    return average
+
+
+def summarise_clips(clips: Sequence[ClipRD]) -> dict:
+    """Per-clip (and gap) curves and BD figures, and the average BD-rate per configuration.
+
+    Returns
+    -------
+    dict
+        ``clips`` (one entry per measured clip and gap), ``synthetic`` (the first maker's name),
+        ``average`` (per configuration, the mean over every entry) and ``gaps`` (per gap, as text,
+        the same mean over that gap's entries).
+    """
+    per = []
+    for c in clips:
+        per.append(
+            {
+                "clip": c.clip,
+                "gap": c.gap,
+                "targets": len({(r["past"], r["target"]) for r in c.rows}),
+                "curves": c.curves(),
+                "bd": c.bd(),
+                "synthesis_psnr_y": c.synthesis_psnr(),
+                "offsets": c.offsets_summary(),
+                "reference_mismatches": c.reference_mismatches,
+                "fields": c.fields,
+            }
+        )
+    gaps = list(dict.fromkeys(p["gap"] for p in per))
+    return {
+        "clips": per,
+        "synthetic": clips[0].synthetic if clips else None,
+        "average": _average(per),
+        "gaps": {str(g): _average([p for p in per if p["gap"] == g]) for g in gaps},
+    }

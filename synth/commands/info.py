@@ -9,10 +9,26 @@ import numpy as np
 
 from synth.io import clip_kind, describe_kind, open_clip
 
-__all__ = ["describe_clip", "CHROMA_NAMES"]
+__all__ = ["describe_clip", "format_info", "CHROMA_NAMES"]
 
 #: How chroma formats are shown to people.
 CHROMA_NAMES = {"420": "4:2:0", "422": "4:2:2", "444": "4:4:4", "mono": "4:0:0 (monochrome)"}
+
+
+#: Keys of `describe_clip` shown by `format_info`, with their labels.
+_LABELS = {
+    "file": "file",
+    "format": "format",
+    "width": "width",
+    "height": "height",
+    "frames": "frames",
+    "chroma_format": "chroma",
+    "bit_depth": "bit depth",
+    "frame_rate": "frame rate",
+    "interlacing": "interlacing",
+    "chroma_siting": "chroma siting",
+    "pixel_aspect": "pixel aspect",
+}
 
 
 def _ratio(value: Fraction | None) -> str | None:
@@ -74,3 +90,23 @@ def describe_clip(path: str | os.PathLike, *, frame: int = 0, **options) -> dict
             "frame": frame if frame >= 0 else count + frame,
             "planes": planes,
         }
+
+
+def format_info(desc: dict) -> str:
+    """The table `synth info` prints for a `describe_clip` result."""
+    lines = []
+    for key, label in _LABELS.items():
+        value = desc[key]
+        if value is None:
+            continue
+        if key == "chroma_format":
+            value = CHROMA_NAMES.get(value, value)
+        elif key == "frame_rate" and desc["frame_rate_value"] is not None:
+            value = f"{value} ({desc['frame_rate_value']:g}/s)"
+        lines.append(f"{label:<14} {value}")
+    for k, v in desc["extra"].items():
+        lines.append(f"{'X tag':<14} {k}={v}" if v else f"{'X tag':<14} {k}")
+    lines.append(f"plane statistics of frame {desc['frame']}:")
+    for name, st in desc["planes"].items():
+        lines.append(f"  {name:<3} min {st['min']:>6}  max {st['max']:>6}  mean {st['mean']:10.3f}")
+    return "\n".join(lines)

@@ -1,7 +1,7 @@
 """`synth demo`: the main job on the bundled demo clips, with no arguments.
 
 For every demo clip (generated scenes of our own, see ``demo_clips/``): a dyadic hierarchical GOP
-run (`synth.evaluation.gop.run_gop`) and a comparison of every predictor at several reference gaps
+run (`synth.evaluation.gop.run_gop`) and a comparison of every maker at several reference gaps
 (`synth.evaluation.compare.compare_clip`); then, on the first clip, the comparison at the widest gap repeated
 with vectors estimated at several QPs. One report for all of them.
 """
@@ -25,7 +25,7 @@ __all__ = ["DEMO_CLIPS", "DemoStep", "demo_clip_dir", "demo_plan", "run_demo"]
 DEMO_CLIPS = ("parcels_pan.y4m", "turntable_zoom.y4m", "cart_accelerate.y4m")
 #: GOP size of the demo's GOP runs (the clips hold one GOP of 16 plus its closing anchor), the
 #: gaps of its comparisons and the vector QPs of the vector-QP run.
-DEMO_GOP_SIZE = 16
+DEMO_GOP_SIZE = 16  # passed explicitly: the GOP runs' default (--gop-size) is 8
 DEMO_GAPS = (2, 4, 8)
 DEMO_VECTOR_QPS = (22, 32, 42)
 #: Pictures of each clip the demo uses.
@@ -93,8 +93,8 @@ def run_demo(
     *,
     out: str | os.PathLike,
     progress: Callable[[int, int, str], None] | None = None,
-    predictors=None,
-    estimate_fields=None,
+    makers=None,
+    vectors=None,
 ) -> tuple[list[RunResult], dict[str, Path]]:
     """Run every step of `plan` and write one report into `out`.
 
@@ -105,8 +105,8 @@ def run_demo(
         Report directory (report.html, results.json, results.csv).
     progress : callable, optional
         ``progress(done, total, label)`` over all pictures of all steps.
-    predictors, estimate_fields
-        Passed to the runs (defaults: every available predictor, `synth.motion.estimator` vectors).
+    makers, vectors
+        Passed to the runs (defaults: every registered maker, vectors from the built-in estimator).
 
     Returns
     -------
@@ -137,9 +137,9 @@ def run_demo(
 
         opts = dict(step.options)
         if step.kind == "gop":
-            r = run_gop(readers[step.clip], clip_name=step.clip, predictors=predictors, estimate_fields=estimate_fields, progress=step_progress, **opts)
+            r = run_gop(readers[step.clip], clip_name=step.clip, makers=makers, vectors=vectors, progress=step_progress, **opts)
         elif step.kind == "compare":
-            r = compare_clip(readers[step.clip], clip_name=step.clip, predictors=predictors, estimate_fields=estimate_fields, progress=step_progress, **opts)
+            r = compare_clip(readers[step.clip], clip_name=step.clip, makers=makers, vectors=vectors, progress=step_progress, **opts)
         else:
             raise FormatError(f"unknown demo step kind {step.kind!r}")
         results.append(r)

@@ -80,7 +80,7 @@ def mean_psnr_by_group(summary: Sequence[dict], methods: Sequence[str], *, xlabe
 
 
 def vector_qp_degradation(table: Sequence[dict], qps: Sequence[int]) -> bytes:
-    """Mean weighted PSNR of each vector-based predictor against the QP its vectors were estimated at."""
+    """Mean weighted PSNR of each vector maker against the QP its vectors were estimated at."""
     fig, ax = plt.subplots(figsize=(6.5, 3.6))
     names = [r["predictor"] for r in table]
     for row, c in zip(table, _colours(len(names))):

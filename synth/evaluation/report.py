@@ -3,11 +3,12 @@
 so the page opens without a network).
 
 results.json
-    ``{"format": "synth-results", "format_version": 1, "synth_version": ..., "runs": [...]}``; each
+    ``{"format": "synth-results", "schema_version": 1, "synth_version": ..., "runs": [...]}``; each
     run holds ``id``, ``kind`` ('compare' or 'gop'), ``clip``, ``settings``, ``methods``,
     ``group_key`` ('gap' or 'layer'), ``summary`` (per method and group means; see
     `synth.evaluation.workbench.summarise`), ``vector_qp_table`` (when several vector QPs ran), ``pairs``
-    (vector estimation per reference pair) and ``pictures`` (one record per picture and method).
+    (vector estimation per reference pair) and ``pictures`` (one record per picture and method;
+    ``predictor`` is the maker's registry name, ``method`` its table label).
     With several runs, ``overview`` pools them (`synth.evaluation.workbench.overview`): ``columns`` and per
     method ``rows``. Infinite PSNR (identical pictures) is written as null.
 results.csv
@@ -23,7 +24,6 @@ import base64
 import csv
 import html
 import io as _stdio
-import json
 import os
 from pathlib import Path
 from typing import Sequence
@@ -31,7 +31,8 @@ from typing import Sequence
 import numpy as np
 
 from synth.io import atomic_write_text
-from synth.evaluation.workbench import METRIC_KEYS, RunResult, overview
+from synth.evaluation.workbench import METRIC_KEYS, RunResult, overview, run_document
+from synth.io.jsonout import dumps_strict, strict_json
 
 __all__ = ["CSV_COLUMNS", "results_document", "results_csv", "report_html", "write_report"]
 
@@ -54,43 +55,19 @@ _COLUMN_TITLES = {
 _DECIMALS = {"psnr_yuv": 2, "psnr_y": 2, "psnr_cb": 2, "psnr_cr": 2, "ssim_y": 4, "mae_y": 3, "ms_per_picture": 1}
 
 
-def _jsonable(value):
-    if isinstance(value, dict):
-        return {str(k): _jsonable(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [_jsonable(v) for v in value]
-    if isinstance(value, (np.integer,)):
-        return int(value)
-    if isinstance(value, (float, np.floating)):
-        f = float(value)
-        return f if np.isfinite(f) else None
-    return value
-
-
 def results_document(runs: Sequence[RunResult]) -> dict:
-    """The content of results.json for a list of runs."""
-    doc_runs = []
-    for i, run in enumerate(runs):
-        doc_runs.append(
-            {
-                "id": i,
-                "kind": run.kind,
-                "clip": run.clip,
-                "settings": run.settings,
-                "methods": list(run.methods),
-                "group_key": run.group_key,
-                "summary": run.summary(),
-                "vector_qp_table": run.vector_qp_table(),
-                "pairs": run.pairs,
-                "pictures": run.records,
-            }
-        )
+    """The content of results.json for a list of runs (strict JSON: `synth.io.jsonout.strict_json`)."""
     from synth import __version__
 
-    doc = {"format": "synth-results", "format_version": 1, "synth_version": __version__, "runs": doc_runs}
+    doc = {
+        "format": "synth-results",
+        "schema_version": 1,
+        "synth_version": __version__,
+        "runs": [run_document(run, i) for i, run in enumerate(runs)],
+    }
     if len(runs) > 1:
         doc["overview"] = overview(runs)
-    return _jsonable(doc)
+    return strict_json(doc)
 
 
 def results_csv(runs: Sequence[RunResult]) -> str:
@@ -163,7 +140,7 @@ def _summary_table(run_id: int, summary: list[dict], group_title: str) -> str:
 
 
 def _qp_table(run_id: int, table: list[dict], qps: list[int]) -> str:
-    head = '<tr><th class="name">predictor</th>' + "".join(f"<th>vector QP {q}</th>" for q in qps) + "</tr>"
+    head = '<tr><th class="name">maker</th>' + "".join(f"<th>vector QP {q}</th>" for q in qps) + "</tr>"
     rows = []
     for i, r in enumerate(table):
         cells = "".join(_cell(r[f"qp{q}"], "psnr_yuv", f"runs.{run_id}.vector_qp_table.{i}.qp{q}") for q in qps)
@@ -242,7 +219,7 @@ def report_html(runs: Sequence[RunResult], doc: dict, *, title: str = "synth eva
         f'<p class="note">synth {html.escape(__version__)}. Numbers are also in <code>results.json</code> and '
         "<code>results.csv</code> beside this page. PSNR YUV is (6 Y + Cb + Cr) / 8; SSIM on luma "
         "(Wang et al. 2004, 11x11 Gaussian window, sigma 1.5); MAE on luma; ms/picture excludes vector "
-        "estimation, which is shared by all vector-based predictors. A picture is won by the method with "
+        "estimation, which is shared by all vector makers, and includes each picture's share of its maker's preparation for the reference pair (e.g. optical flows). A picture is won by the method with "
         "the highest PSNR YUV on it.</p>"
     )
     if doc.get("overview") and doc["overview"]["rows"]:
@@ -272,7 +249,7 @@ def report_html(runs: Sequence[RunResult], doc: dict, *, title: str = "synth eva
             body.append(_img(plots.mean_psnr_by_group(rdoc["summary"], run.methods, xlabel=label), f"mean PSNR per {group_title}"))
         if rdoc["vector_qp_table"]:
             qps = list(s["vector_qps"])
-            body.append("<h3>Vector QP: how the rate constraint on coded vectors degrades each vector-based predictor</h3>")
+            body.append("<h3>Vector QP: how the rate constraint on coded vectors degrades each vector maker</h3>")
             body.append(_qp_table(i, rdoc["vector_qp_table"], qps))
             body.append(_img(plots.vector_qp_degradation(rdoc["vector_qp_table"], qps), "PSNR against vector QP"))
         body.append(_highlight_section(run))
@@ -294,7 +271,7 @@ def write_report(runs: Sequence[RunResult], directory: str | os.PathLike, *, tit
     out.mkdir(parents=True, exist_ok=True)
     doc = results_document(runs)
     paths = {"json": out / "results.json", "csv": out / "results.csv", "html": out / "report.html"}
-    atomic_write_text(paths["json"], json.dumps(doc, indent=1, allow_nan=False) + "\n")
+    atomic_write_text(paths["json"], dumps_strict(doc, indent=1) + "\n")
     atomic_write_text(paths["csv"], results_csv(runs))
     atomic_write_text(paths["html"], report_html(runs, doc, title=title))
     return paths

@@ -1,12 +1,16 @@
-"""Plain-text tables of run results for the terminal (the CLI prints them)."""
+"""Plain-text tables of run results for the terminal (the command layer prints them).
+
+Every table reads a run document (`synth.evaluation.workbench.run_document`: the dict a
+``--json`` summary and results.json hold) or a `RunResult`, so text and JSON come from one place.
+"""
 
 from __future__ import annotations
 
 from typing import Sequence
 
-from synth.evaluation.workbench import RunResult, overview
+from synth.evaluation.workbench import RunResult, overview, run_document
 
-__all__ = ["summary_table", "vector_qp_table", "run_tables"]
+__all__ = ["summary_table", "vector_qp_table", "run_tables", "overview_table", "format_overview"]
 
 _COLS = (
     ("pictures", "pics", "{:d}"),
@@ -17,6 +21,10 @@ _COLS = (
     ("ms_per_picture", "ms/pic", "{:.1f}"),
     ("wins", "wins", "{:d}"),
 )
+
+
+def _doc(run) -> dict:
+    return run_document(run, pictures=False) if isinstance(run, RunResult) else run
 
 
 def _fmt(value, spec: str) -> str:
@@ -32,45 +40,47 @@ def _grid(header: Sequence[str], rows: Sequence[Sequence[str]]) -> str:
     return "\n".join(lines)
 
 
-def summary_table(run: RunResult) -> str:
+def summary_table(run) -> str:
     """Per-method means per group (gap or temporal layer) and wins per picture."""
-    group = "gap" if run.group_key == "gap" else "layer"
+    doc = _doc(run)
+    group = "gap" if doc["group_key"] == "gap" else "layer"
     header = [group, "method", *[c[1] for c in _COLS]]
     rows = []
-    for r in run.summary():
+    for r in doc["summary"]:
         rows.append([str(r["group"]), r["method"], *[_fmt(r.get(k), spec) for k, _, spec in _COLS]])
     return _grid(header, rows)
 
 
-def vector_qp_table(run: RunResult) -> str:
-    """Mean PSNR-YUV of each vector-based predictor per vector QP ('' when fewer than two QPs ran)."""
-    table = run.vector_qp_table()
+def vector_qp_table(run) -> str:
+    """Mean PSNR-YUV of each vector maker per vector QP ('' when fewer than two QPs ran)."""
+    doc = _doc(run)
+    table = doc["vector_qp_table"]
     if not table:
         return ""
-    qps = run.settings["vector_qps"]
-    header = ["predictor", "", *[f"QP{q}" for q in qps]]
+    qps = doc["settings"]["vector_qps"]
+    header = ["maker", "", *[f"QP{q}" for q in qps]]
     rows = [[r["predictor"], "", *[_fmt(r[f"qp{q}"], "{:.2f}") for q in qps]] for r in table]
     return _grid(header, rows)
 
 
-def run_tables(run: RunResult) -> str:
+def run_tables(run) -> str:
     """Title line, summary table and (when present) the vector-QP table of one run."""
-    s = run.settings
-    if run.kind == "compare":
-        title = f"{run.clip}: compare, gaps {', '.join(str(g) for g in s['gaps'])}, {s['pictures_used']} pictures"
+    doc = _doc(run)
+    s = doc["settings"]
+    if doc["kind"] == "compare":
+        title = f"{doc['clip']}: compare, gaps {', '.join(str(g) for g in s['gaps'])}, {s['pictures_used']} pictures"
     else:
         refs = f"references decoded at QP {s['decoded_refs_qp']}" if s.get("decoded_refs_qp") is not None else "source references"
-        title = f"{run.clip}: GOP size {s['gop_size']} ({s['structure']}), {s['gops']} GOP(s), {refs}"
-    parts = [title, summary_table(run)]
-    qp = vector_qp_table(run)
+        title = f"{doc['clip']}: GOP size {s['gop_size']} ({s['structure']}), {s['gops']} GOP(s), {refs}"
+    parts = [title, summary_table(doc)]
+    qp = vector_qp_table(doc)
     if qp:
-        parts += ["mean PSNR-YUV by vector QP (vector-based predictors):", qp]
+        parts += ["mean PSNR-YUV by vector QP (vector makers):", qp]
     return "\n".join(parts)
 
 
-def overview_table(runs: Sequence[RunResult]) -> str:
-    """Mean PSNR-YUV per method pooled over several runs (see `synth.evaluation.workbench.overview`)."""
-    ov = overview(runs)
+def format_overview(ov: dict) -> str:
+    """The table of an `overview` dict ('' when it has no rows)."""
     if not ov["rows"]:
         return ""
     header = ["method", "", *ov["columns"], "wins", "ms/pic"]
@@ -79,3 +89,8 @@ def overview_table(runs: Sequence[RunResult]) -> str:
         for r in ov["rows"]
     ]
     return _grid(header, rows)
+
+
+def overview_table(runs: Sequence[RunResult]) -> str:
+    """Mean PSNR-YUV per method pooled over several runs (see `synth.evaluation.workbench.overview`)."""
+    return format_overview(overview(runs))

@@ -1,19 +1,20 @@
 """The evaluation engine shared by `synth.evaluation.compare` and `synth.evaluation.gop`.
 
 A run is a list of `Job`s (a target picture, its two references and the target time). For every
-reference pair the vector fields are estimated once per vector QP (`synth.motion.estimate_reference_fields`:
-the future reference coded against the past one, both directions on request) and shared
-by all vector-based predictors; every predictor then predicts every target and the prediction is
-measured against the true picture (`synth.metrics.picture_metrics`). The result is a `RunResult`:
-one record per picture and method, per-pair vector timing, and the best and worst pictures
-(with predictions and maps) for reports.
+reference pair the vectors are fetched once per vector QP from a `synth.motion.sources.VectorSource`
+(``--vectors``: the built-in estimator or a field file) and shared by all vector makers; every
+maker (`synth.makers`) is prepared once per reference pair (``maker.prepare``: optical flows and
+the like are computed once per pair, not per picture) and makes every target with
+``pair.at(t)``; each picture is measured against the true one (`synth.metrics.picture_metrics`).
+The result is a `RunResult`: one record per picture and method, per-pair vector timing, and the
+best and worst pictures (with predictions and maps) for reports.
 """
 
 from __future__ import annotations
 
 import math
 import time
-from collections import OrderedDict
+from collections import Counter, OrderedDict
 from dataclasses import dataclass, field
 from typing import Callable, Iterable, Sequence
 
@@ -21,9 +22,10 @@ import numpy as np
 
 from synth.errors import ParameterError
 from synth.field import VectorField
+from synth.makers import DEFAULT_MAKER, Maker, Prediction, get_maker, resolve_makers
 from synth.metrics import finite_or_none, picture_metrics
+from synth.motion.sources import DEFAULT_VECTOR_QP, VectorSource, parse_vector_source
 from synth.picture import Picture
-from synth.makers import Prediction, Predictor, resolve_predictors
 
 __all__ = [
     "DEFAULT_VECTOR_QP",
@@ -31,32 +33,30 @@ __all__ = [
     "Highlight",
     "RunResult",
     "FrameSource",
-    "estimate_pair_fields",
     "parse_vector_qps",
+    "resolve_run_makers",
+    "method_label",
     "run_jobs",
     "summarise",
     "overview",
+    "run_document",
     "METRIC_KEYS",
 ]
-
-#: QP at which vectors are estimated when no --vector-qp is given (synth.motion.estimator's default).
-DEFAULT_VECTOR_QP = 27
 
 #: Per-picture figures, in table order.
 METRIC_KEYS = ("psnr_yuv", "psnr_y", "psnr_cb", "psnr_cr", "ssim_y", "mae_y")
 
 ProgressCallback = Callable[[int, int, str], None]
-FieldEstimator = Callable[..., list[VectorField]]
 
 
 @dataclass(frozen=True)
 class Job:
-    """One target picture to predict.
+    """One target picture to make.
 
     Attributes
     ----------
     target, past, future : int
-        Display indices in the clip.
+        Display numbers in the clip.
     t : float
         (target - past) / (future - past).
     tags : dict
@@ -72,7 +72,7 @@ class Job:
 
 @dataclass
 class Highlight:
-    """A picture kept for the report (the best or the worst one for the key predictor)."""
+    """A picture kept for the report (the best or the worst one for the key maker)."""
 
     label: str  # 'best' or 'worst'
     job: Job
@@ -98,10 +98,11 @@ class RunResult:
     settings : dict
         The run's parameters (JSON-ready).
     methods : list of str
-        Method labels in table order (predictor name, with ``@qpNN`` when several vector QPs ran).
+        Method labels in table order (maker name, with ``@qpNN`` when several vector QPs ran).
     records : list of dict
-        One per target picture and method: tags, target/past/future/t, predictor, vector_qp,
-        method, the metrics of `METRIC_KEYS` (None for an infinite PSNR) and seconds.
+        One per target picture and method: tags, target/past/future/t, predictor (the maker's
+        name), vector_qp, method, the metrics of `METRIC_KEYS` (None for an infinite PSNR) and
+        seconds (the picture's time plus its share of the pair's preparation).
     pairs : list of dict
         One per reference pair and vector QP: past, future, vector_qp, vector_seconds, blocks,
         fields (coded_time, reference_time and blocks of each field).
@@ -128,7 +129,7 @@ class RunResult:
         return summarise(self.records, self.methods, group_key=self.group_key)
 
     def vector_qp_table(self) -> list[dict]:
-        """Mean weighted PSNR of every vector-based predictor at every vector QP (all pictures)."""
+        """Mean weighted PSNR of every vector maker at every vector QP (all pictures)."""
         qps = self.settings.get("vector_qps") or []
         out = []
         if len(qps) < 2:
@@ -146,10 +147,43 @@ class RunResult:
         return out
 
 
-class FrameSource:
-    """Random access to pictures with a small cache: wraps a list of pictures or a clip reader."""
+def run_document(run: RunResult, run_id: int = 0, *, pictures: bool = True) -> dict:
+    """One run as a JSON-ready dict (not yet passed through `strict_json`): ``id``, ``kind``,
+    ``clip``, ``settings``, ``methods``, ``group_key``, ``summary``, ``vector_qp_table``, ``pairs``
+    and, with `pictures`, ``pictures`` (the records). The tables of `synth.evaluation.tables` read it."""
+    doc = {
+        "id": run_id,
+        "kind": run.kind,
+        "clip": run.clip,
+        "settings": run.settings,
+        "methods": list(run.methods),
+        "group_key": run.group_key,
+        "summary": run.summary(),
+        "vector_qp_table": run.vector_qp_table(),
+        "pairs": run.pairs,
+    }
+    if pictures:
+        doc["pictures"] = run.records
+    return doc
 
-    def __init__(self, frames, *, limit: int | None = None, cache: int = 80):
+
+class FrameSource:
+    """Random access by display number to the pictures of a clip (or a list), with a small cache.
+
+    Parameters
+    ----------
+    frames : sequence of Picture or clip reader
+        Picture ``i`` of `frames` has display number ``offset + i``.
+    pictures : (first, last), optional
+        Display numbers kept, both included (`synth.commands.options.PictureRange`; ``last`` None:
+        the end). Default: all.
+    limit : int, optional
+        Keep at most this many pictures from the first one.
+    offset : int
+        Display number of ``frames[0]``.
+    """
+
+    def __init__(self, frames, *, pictures=None, limit: int | None = None, offset: int = 0, cache: int = 80):
         if hasattr(frames, "read"):
             self._read = frames.read
             n = len(frames)
@@ -157,41 +191,56 @@ class FrameSource:
             seq = list(frames)
             self._read = seq.__getitem__
             n = len(seq)
+        self._offset = int(offset)
+        first, last = self._offset, self._offset + n - 1
+        if pictures is not None:
+            want_first, want_last = pictures
+            if want_first > last:
+                raise ParameterError(f"--pictures starts at {want_first}, the clip ends at picture {last}")
+            first = max(first, int(want_first))
+            if want_last is not None:
+                last = min(last, int(want_last))
         if limit is not None:
             if int(limit) < 1:
                 raise ParameterError(f"frames must be at least 1, got {limit}")
-            n = min(n, int(limit))
-        self._n = n
+            last = min(last, first + int(limit) - 1)
+        self.first, self.last = first, last
         self._cache: OrderedDict[int, Picture] = OrderedDict()
         self._size = cache
 
     def __len__(self) -> int:
-        return self._n
+        return self.last - self.first + 1
+
+    def __contains__(self, index: int) -> bool:
+        return self.first <= index <= self.last
 
     def __getitem__(self, index: int) -> Picture:
-        if not 0 <= index < self._n:
-            raise ParameterError(f"picture index {index} out of range 0..{self._n - 1}")
+        if index not in self:
+            raise ParameterError(f"picture {index} out of range {self.first}..{self.last}")
         if index in self._cache:
             self._cache.move_to_end(index)
             return self._cache[index]
-        pic = self._read(index)
+        pic = self._read(index - self._offset)
         self._cache[index] = pic
         if len(self._cache) > self._size:
             self._cache.popitem(last=False)
         return pic
 
 
-def parse_vector_qps(value) -> list[int] | None:
-    """Vector QPs from a list or a comma-separated string ('22,32,42'); None stays None.
+def parse_vector_qps(value, *, option: str = "--vector-qp") -> list[int] | None:
+    """Vector QPs from an int, a list or a comma-separated string ('22,32,42'); None stays None.
 
     Raises
     ------
     ParameterError
-        For a non-integer, a QP outside 0..51 (H.264/H.265 range) or a repeated value.
+        For a non-integer, a QP outside 0..51 (H.264/H.265 range) or a repeated value; the
+        message names `option`.
     """
     if value is None:
         return None
-    if isinstance(value, str):
+    if isinstance(value, int) and not isinstance(value, bool):
+        parts = [value]
+    elif isinstance(value, str):
         parts = [p.strip() for p in value.split(",") if p.strip()]
     else:
         parts = list(value)
@@ -200,37 +249,31 @@ def parse_vector_qps(value) -> list[int] | None:
         try:
             q = int(p)
         except (TypeError, ValueError):
-            raise ParameterError(f"vector-qp must be integers 0..51 separated by commas, got {value!r}") from None
+            raise ParameterError(f"{option} must be integers 0..51 separated by commas, got {value!r}") from None
         if not 0 <= q <= 51:
-            raise ParameterError(f"vector-qp values must be in 0..51, got {q}")
+            raise ParameterError(f"{option} values must be in 0..51, got {q}")
         out.append(q)
     if not out:
-        raise ParameterError("vector-qp must list at least one QP")
+        raise ParameterError(f"{option} must list at least one QP")
     if len(set(out)) != len(out):
-        raise ParameterError(f"vector-qp must not repeat a value, got {value!r}")
+        raise ParameterError(f"{option} must not repeat a value, got {value!r}")
     return out
 
 
-def estimate_pair_fields(
-    past: Picture, future: Picture, *, past_time: float, future_time: float, qp: int, two_way: bool = False
-) -> list[VectorField]:
-    """Vector fields between two references, as every synth command estimates them.
-
-    See `synth.motion.estimate_reference_fields`: ``[future -> past]``, and with `two_way` also
-    ``past -> future``.
-    """
-    try:
-        from synth.motion.estimator import estimate_reference_fields
-    except ImportError:
-        raise ParameterError("vector-based predictors need synth.motion.estimator (vector estimation), which is not installed") from None
-    return estimate_reference_fields(past, future, past_time=past_time, future_time=future_time, qp=qp, two_way=two_way)
+def resolve_run_makers(makers=None, *, option: str = "--makers") -> list[Maker]:
+    """The makers of a run: `Maker`s, names, a comma-separated string, or None (every maker)."""
+    if makers is None or isinstance(makers, str):
+        return resolve_makers(makers, option=option)
+    names = [m.name if isinstance(m, Maker) else m for m in makers]
+    resolve_makers(names, option=option)  # the checks: known names, none repeated, at least one
+    return [m if isinstance(m, Maker) else get_maker(m, option=option) for m in makers]
 
 
-def method_label(predictor: Predictor, qp: int | None, several_qps: bool) -> str:
-    """Table label: the predictor name, with '@qpNN' for vector-based ones when several QPs ran."""
-    if predictor.needs_fields and several_qps:
-        return f"{predictor.name}@qp{qp}"
-    return predictor.name
+def method_label(maker: Maker, qp: int | None, several_qps: bool) -> str:
+    """Table label: the maker name, with '@qpNN' for vector makers when several QPs ran."""
+    if maker.needs_vectors and several_qps:
+        return f"{maker.name}@qp{qp}"
+    return maker.name
 
 
 def _mean(values: Iterable) -> float | None:
@@ -243,69 +286,77 @@ def run_jobs(
     targets: FrameSource,
     *,
     references: FrameSource | None = None,
-    predictors: Sequence[Predictor] | str | None = None,
+    makers=None,
+    vectors: VectorSource | str | None = None,
     vector_qps: Sequence[int] | None = None,
-    estimate_fields: FieldEstimator | None = None,
+    params=None,
     progress: ProgressCallback | None = None,
     keep_highlights: bool = True,
     on_prediction: Callable[[Job, str, Prediction], None] | None = None,
 ) -> tuple[list[str], list[dict], list[dict], list[Highlight]]:
-    """Predict and measure every job with every predictor.
+    """Make and measure every job with every maker.
 
     Parameters
     ----------
     jobs : sequence of Job
     targets : FrameSource
-        The true pictures (what predictions are measured against).
+        The true pictures (what the made pictures are measured against).
     references : FrameSource, optional
         Where reference pictures come from (e.g. decoded pictures); `targets` when omitted.
-    predictors : sequence of Predictor, names, or None
-        None runs every available predictor (`synth.makers.resolve_predictors`).
+    makers : sequence of Maker or names, comma-separated str, or None
+        None runs every registered maker (`synth.makers.resolve_makers`).
+    vectors : VectorSource or str, optional
+        Where the vectors between two references come from (``--vectors``; default the built-in
+        estimator). Any object with ``with_qp(q)`` and ``fields_for(past, future, past_time=,
+        future_time=)`` will do.
     vector_qps : sequence of int, optional
-        QPs at which vectors are estimated; vector-based predictors run once per QP.
-        Default: `DEFAULT_VECTOR_QP`.
-    estimate_fields : callable, optional
-        ``estimate_fields(past, future, past_time=, future_time=, qp=) -> list[VectorField]``;
-        default `estimate_pair_fields`.
+        Vector QPs; vector makers run once per QP (``vectors.with_qp(q)``). Default: the source's QP.
+    params : SynthParams, optional
+        Calibrated synthesis parameters, handed to every maker's ``prepare``.
     progress : callable, optional
         Called as ``progress(done, total, label)`` after each job.
     keep_highlights : bool
-        Keep the best and worst picture (by the key predictor) with its predictions.
+        Keep the best and worst picture (by the key maker) with its predictions.
     on_prediction : callable, optional
-        Called as ``on_prediction(job, method, prediction)`` for every prediction (e.g. export).
+        Called as ``on_prediction(job, method, prediction)`` for every picture (e.g. export).
 
     Returns
     -------
     (methods, records, pairs, highlights)
-    """
-    if predictors is None or isinstance(predictors, str):
-        preds = resolve_predictors(predictors, vectors=True if estimate_fields is not None else None)
-    else:
-        preds = [resolve_predictors([p])[0] if isinstance(p, str) else p for p in predictors]
-    if not preds:
-        raise ParameterError("predictors must name at least one predictor")
-    references = references or targets
-    qps = list(vector_qps) if vector_qps else [DEFAULT_VECTOR_QP]
-    several = len(qps) > 1
-    estimate = estimate_fields or estimate_pair_fields
-    any_vectors = any(p.needs_fields for p in preds)
-    methods: list[str] = []
-    for p in preds:
-        for qp in qps if p.needs_fields else [None]:
-            methods.append(method_label(p, qp, several))
-    key_pred = next((p for p in preds if p.name == "lmmse"), preds[0])
-    key_method = method_label(key_pred, qps[0] if key_pred.needs_fields else None, several)
 
+    Notes
+    -----
+    Each maker is prepared once per reference pair (and vector QP); a record's ``seconds`` is
+    the picture's own time plus an equal share of that preparation over the pair's pictures.
+    """
+    makers = resolve_run_makers(makers)
+    references = references or targets
+    if vectors is None or isinstance(vectors, str):
+        vectors = parse_vector_source(vectors)
+    qps = list(vector_qps) if vector_qps else [int(getattr(vectors, "qp", DEFAULT_VECTOR_QP))]
+    several = len(qps) > 1
+    if several and getattr(vectors, "kind", "estimate") != "estimate":
+        raise ParameterError("--vector-qp takes one value with a field file as --vectors (the file's vectors are fixed)")
+    sources = {qp: vectors.with_qp(qp) for qp in qps}
+    any_vectors = any(m.needs_vectors for m in makers)
+    methods: list[str] = []
+    for m in makers:
+        for qp in qps if m.needs_vectors else [None]:
+            methods.append(method_label(m, qp, several))
+    key_maker = next((m for m in makers if m.name == DEFAULT_MAKER), makers[0])
+    key_method = method_label(key_maker, qps[0] if key_maker.needs_vectors else None, several)
+
+    for j in jobs:
+        for idx in (j.target, j.past, j.future):
+            if idx not in targets or idx not in references:
+                raise ParameterError(f"picture {idx} out of range: the run uses pictures {targets.first}..{targets.last}")
+    per_pair = Counter((j.past, j.future) for j in jobs)
     records: list[dict] = []
     pairs: list[dict] = []
     field_cache: dict[tuple[int, int, int], list[VectorField]] = {}
+    prepared: dict[tuple[int, int, str], object] = {}
     best: Highlight | None = None
     worst: Highlight | None = None
-    n = len(targets)
-    for j in jobs:
-        for idx in (j.target, j.past, j.future):
-            if not 0 <= idx < n:
-                raise ParameterError(f"picture index {idx} out of range: the clip has {n} pictures")
     total = len(jobs)
     for done, job in enumerate(jobs, start=1):
         past = references[job.past]
@@ -319,7 +370,7 @@ def run_jobs(
                 key = (job.past, job.future, qp)
                 if key not in field_cache:
                     start = time.perf_counter()
-                    fl = estimate(past, future, past_time=float(job.past), future_time=float(job.future), qp=qp)
+                    fl = sources[qp].fields_for(past, future, past_time=float(job.past), future_time=float(job.future))
                     field_cache[key] = list(fl)
                     pairs.append(
                         {
@@ -336,14 +387,21 @@ def run_jobs(
                     )
                 fields_by_qp[qp] = field_cache[key]
         predictions: dict[str, Prediction] = {}
-        for p in preds:
-            for qp in qps if p.needs_fields else [None]:
-                label = method_label(p, qp, several)
-                pred = p(past, future, t=job.t, fields=fields_by_qp.get(qp) if qp is not None else None)
+        for m in makers:
+            for qp in qps if m.needs_vectors else [None]:
+                label = method_label(m, qp, several)
+                pkey = (job.past, job.future, label)
+                if pkey not in prepared:
+                    prepared[pkey] = m.prepare(
+                        past, future, fields=fields_by_qp.get(qp) if qp is not None else None, params=params,
+                        past_time=float(job.past), future_time=float(job.future),
+                    )
+                pair = prepared[pkey]
+                pred = pair.at(job.t)
                 predictions[label] = pred
                 if on_prediction is not None:
                     on_prediction(job, label, pred)
-                m = picture_metrics(pred.picture, truth)
+                met = picture_metrics(pred.picture, truth)
                 rec = dict(job.tags)
                 rec.update(
                     target=job.target,
@@ -351,13 +409,13 @@ def run_jobs(
                     future=job.future,
                     t=job.t,
                     method=label,
-                    predictor=p.name,
+                    predictor=m.name,
                     vector_qp=qp,
                 )
                 for k in METRIC_KEYS:
-                    if k in m:
-                        rec[k] = finite_or_none(m[k]) if k.startswith("psnr") else float(m[k])
-                rec["seconds"] = float(pred.seconds)
+                    if k in met:
+                        rec[k] = finite_or_none(met[k]) if k.startswith("psnr") else float(met[k])
+                rec["seconds"] = float(pred.seconds) + pair.prepare_seconds / per_pair[(job.past, job.future)]
                 records.append(rec)
         if keep_highlights:
             value = next(r["psnr_yuv"] for r in records[-len(predictions):] if r["method"] == key_method)
@@ -369,10 +427,12 @@ def run_jobs(
                 best = Highlight("best", job, key_method, value, truth, past, future, predictions, fields0)
         if progress is not None:
             progress(done, total, f"picture {job.target}")
-        # Field cache: keep only pairs that later jobs still need.
+        # Caches: keep only the pairs later jobs still need.
         remaining = {(j.past, j.future) for j in jobs[done:]}
         for key in [k for k in field_cache if (k[0], k[1]) not in remaining]:
             del field_cache[key]
+        for key in [k for k in prepared if (k[0], k[1]) not in remaining]:
+            del prepared[key]
     highlights = [h for h in (worst, best) if h is not None]
     return methods, records, pairs, highlights
 

@@ -14,7 +14,8 @@ import math
 from dataclasses import dataclass, field
 from typing import Any
 
-from synth.study.jobs import Job, jsonable
+from synth.io.jsonout import dumps_strict
+from synth.study.jobs import Job
 from synth.study.kinds import CLIP_OPTIONS, get_kind
 
 __all__ = ["StudyTables", "aggregate", "setting_label", "varying_parameters", "to_csv", "to_json"]
@@ -47,6 +48,8 @@ def varying_parameters(jobs: list[Job]) -> tuple[dict[str, list[str]], dict[str,
 
 
 def _number(value: Any) -> float | None:
+    """A metric value as a float; None for a missing one (null: a non-finite number in a record).
+    The strings 'inf', '-inf', 'nan' of records written before the strict JSON policy still count."""
     if isinstance(value, bool):
         return None
     if isinstance(value, (int, float)):
@@ -155,11 +158,13 @@ def aggregate(jobs: list[Job], records: dict[str, dict]) -> StudyTables:
                 if name in kind.group_by:
                     continue
                 is_metric = name in kind.metrics if kind.metrics is not None else isinstance(value, float) or value in ("inf", "-inf", "nan")
-                if is_metric and _number(value) is not None:
+                if is_metric and (_number(value) is not None or value is None and kind.metrics is not None):
                     ms = tables.metrics.setdefault(job.kind, [])
                     if name not in ms:
                         ms.append(name)
-                    group["sums"].setdefault(name, []).append(_number(value))
+                    values = group["sums"].setdefault(name, [])
+                    if _number(value) is not None:  # null (a non-finite number) is left out of the means
+                        values.append(_number(value))
             group["n"] += 1
             tables.rows.append(out)
     tables.columns = list(columns) + [c for c in result_columns if c not in columns]
@@ -199,7 +204,8 @@ def _csv_value(v: Any) -> Any:
 def to_json(tables: StudyTables, *, header: dict) -> str:
     """``study.json``: `header` (title, code version, job counts...) plus the tables.
 
-    Non-finite numbers are written as the strings ``"inf"``, ``"-inf"``, ``"nan"``.
+    Non-finite numbers (a mean over no value, the PSNR of equal pictures) are written as ``null``
+    (`synth.io.jsonout.strict_json`, the one JSON policy).
     """
     doc = dict(header)
     doc.update(
@@ -210,4 +216,4 @@ def to_json(tables: StudyTables, *, header: dict) -> str:
         failures=tables.failures,
         rows=tables.rows,
     )
-    return json.dumps(jsonable(doc), indent=1, allow_nan=False) + "\n"
+    return dumps_strict(doc, indent=1) + "\n"

@@ -6,8 +6,9 @@
     measured against the true picture. It needs nothing but the clip, runs in milliseconds on small
     clips, and is what the study machinery is tested with.
 ``synthesise``
-    The product on the clip: vectors estimated between the references, the LMMSE synthesiser
-    (optionally in stripes), measured against the true in-between pictures.
+    A maker of the registry (`synth.makers`, default ``lmmse``, the product) on the clip: vectors
+    from the job's vector source between the references, the picture at every in-between time
+    (vector-based makers optionally in stripes), measured against the true in-between pictures.
 ``rd``
     The encoder-in-the-loop measurement (`synth.codec.rdmeasure.measure_clip`): rows per target picture,
     configuration and QP, with each configuration's BD-rate against the real references.
@@ -25,8 +26,6 @@ from __future__ import annotations
 
 import importlib
 from typing import Any, Callable
-
-import numpy as np
 
 from synth.errors import ParameterError
 from synth.metrics import mean_squared_error, picture_psnr
@@ -61,16 +60,15 @@ def _with_defaults(kind: str, params: dict) -> dict:
     return out
 
 
-def _blend(past: Picture, future: Picture, *, t: float, method: str) -> Picture:
-    if method == "past" or (method == "nearest" and t <= 0.5):
-        return past
-    if method == "nearest":
-        return future
-    planes = [
-        (1.0 - np.float32(t)) * a.astype(np.float32) + np.float32(t) * b.astype(np.float32)
-        for a, b in zip(past.planes, future.planes)
-    ]
-    return Picture.from_float(planes, chroma_format=past.chroma_format, bit_depth=past.bit_depth)
+def _blend_predictor(past: Picture, future: Picture, method: str):
+    """``t -> Picture`` of a ``blend`` method: 'linear' is the registry's ``average`` maker
+    (`synth.makers.temporal_blend`, rounded half up); 'nearest' and 'past' copy a reference."""
+    if method == "linear":
+        from synth.makers import get_maker
+
+        pair = get_maker("average").prepare(past, future)
+        return lambda t: pair.at(t).picture
+    return lambda t: past if method == "past" or t <= 0.5 else future
 
 
 def blend_rows(clip_path, params: dict, *, progress=None) -> list[dict]:
@@ -104,7 +102,7 @@ def blend_rows(clip_path, params: dict, *, progress=None) -> list[dict]:
     gap, method = int(params["gap"]), params["method"]
 
     def predictor(a, past, future):
-        return lambda t: _blend(past, future, t=t, method=method)
+        return _blend_predictor(past, future, method)
 
     with open_job_clip(clip_path, params) as clip:
         return _in_between_rows(clip, gap, predictor, progress)
@@ -159,20 +157,39 @@ register_kind(
 # --- synthesis with the product's estimator ------------------------------------------------------
 
 
-def synthesise_rows(clip_path, params: dict, *, progress=None) -> list[dict]:
-    """Run the ``synthesise`` kind: the LMMSE synthesiser on every in-between picture.
+def _source_and_params(params: dict, *, qp: int | None):
+    """The job's `VectorSource` (``vectors``, at `qp`) and synthesis parameters (``params`` file)."""
+    from synth.motion.sources import DEFAULT_VECTOR_QP, parse_vector_source
 
-    For each pair of references `gap` apart, a codec-like vector field of the future reference
-    against the past one is estimated at QP `qp` (`synth.estimate_field`), and every picture between
-    them is synthesised (`synth.study.stripes.synthesise_striped` with `stripe_rows` rows per stripe,
-    or the whole picture at once when `stripe_rows` is 0) and measured against the true picture.
+    source = parse_vector_source(params.get("vectors"), qp=DEFAULT_VECTOR_QP if qp is None else qp, name="vectors")
+    syn = None
+    if params.get("params"):
+        from synth.synthesis.params import SynthParams
+
+        syn = SynthParams.load(params["params"])
+    return source, syn
+
+
+#: Core-synthesis method of each vector-based maker that can run in stripes.
+_STRIPED_METHODS = {"lmmse": "lmmse", "projection": "nearest", "weighted": "distance_weighted"}
+
+
+def synthesise_rows(clip_path, params: dict, *, progress=None) -> list[dict]:
+    """Run the ``synthesise`` kind: a maker of the registry on every in-between picture.
+
+    For each pair of references `gap` apart, the fields between them come from the job's vector
+    source (``vectors``: the built-in estimator at ``vector_qp``, or a field file whose times are
+    the job's picture numbers), the maker is prepared once (`synth.makers.Maker.prepare`) and every
+    picture between them is made and measured against the true picture. With ``stripe_rows`` > 0,
+    vector-based makers run in stripes (`synth.study.stripes.synthesise_striped`; bit-identical).
 
     Parameters
     ----------
     clip_path : path-like
     params : dict
-        ``gap`` (int >= 2), ``qp`` (int 0..51, the vector field's rate constraint), ``method``
-        ('lmmse', 'distance_weighted', 'nearest'), ``stripe_rows`` (int >= 0) and the clip options.
+        ``gap`` (int >= 2), ``maker`` (a registry name, default 'lmmse'), ``vectors``
+        ('estimate' or a field file), ``vector_qp`` (int 0..51), ``params`` (synthesis parameter
+        file, '' for the built-in values), ``stripe_rows`` (int >= 0) and the clip options.
     progress : callable, optional
         ``progress(done, total)`` after each synthesised picture.
 
@@ -182,28 +199,35 @@ def synthesise_rows(clip_path, params: dict, *, progress=None) -> list[dict]:
         ``past``, ``future``, ``target``, ``t``, ``psnr_y``/``psnr_cb``/``psnr_cr``, ``mse_y`` per
         synthesised picture.
     """
-    from synth.motion.estimator import estimate_field
-    from synth.synthesis.params import SynthParams
-    from synth.synthesis.synthesiser import synthesise
+    from synth.codec.export import prepare_pair
+    from synth.makers import get_maker
 
     from synth.study.stripes import synthesise_striped
 
     params = _with_defaults("synthesise", params)
-    gap, qp, stripe_rows = int(params["gap"]), int(params["qp"]), int(params["stripe_rows"])
-    sp = SynthParams().with_changes(method=params["method"])
+    gap, stripe_rows = int(params["gap"]), int(params["stripe_rows"])
+    maker = get_maker(params["maker"], option="maker")
+    if stripe_rows and maker.name not in _STRIPED_METHODS:
+        raise ParameterError(
+            f"stripe_rows: maker {maker.name!r} does not run in stripes (only {', '.join(_STRIPED_METHODS)}); use 0"
+        )
+    source, syn = _source_and_params(params, qp=int(params["vector_qp"]))
 
     def predictor(a, past, future):
-        field = estimate_field(future, past, coded_time=a + gap, reference_time=a, qp=qp)
+        pair, _ = prepare_pair(maker, past, future, past_time=a, future_time=a + gap, source=source, params=syn)
         if stripe_rows:
-            return lambda t: synthesise_striped(past, future, [field], t=t, params=sp, stripe_rows=stripe_rows)
-        return lambda t: synthesise(past, future, [field], t=t, params=sp)
+            from synth.synthesis.params import SynthParams
+
+            sp = (syn or SynthParams()).with_changes(method=_STRIPED_METHODS[maker.name])
+            return lambda t: synthesise_striped(past, future, pair.fields, t=t, params=sp, stripe_rows=stripe_rows)
+        return lambda t: pair.at(t).picture
 
     with open_job_clip(clip_path, params) as clip:
         return _in_between_rows(clip, gap, predictor, progress)
 
 
 def _synthesis_available() -> str | None:
-    for module, name in (("synth.motion.estimator", "estimate_field"), ("synth.synthesis.synthesiser", "synthesise"), ("synth.synthesis.params", "SynthParams")):
+    for module, name in (("synth.makers", "get_maker"), ("synth.study.stripes", "synthesise_striped")):
         if _library_function(module, name) is None:
             return f"job kind 'synthesise' is not available: {module}.{name} is not in this installation"
     return None
@@ -227,9 +251,10 @@ def rd_rows(clip_path, params: dict, *, progress=None) -> list[dict]:
     ----------
     clip_path : path-like
     params : dict
-        ``gap``, ``qps`` (text such as ``"22,27,32,37"``), ``codec``, ``synthesiser``, ``refs``,
-        ``extra_qp``, ``preset``, ``offsets`` (with ``offset_block`` and ``offset_window``), ``limit``
-        (0: all targets), as for ``synth rd``; and the clip options.
+        ``gap``, ``qps`` (text such as ``"22,27,32,37"``), ``codec``, ``makers`` (comma-separated;
+        the first is the synthetic one), ``vectors``, ``vector_qp`` (absent: each point's encoder
+        QP), ``params``, ``refs``, ``extra_qp``, ``preset``, ``offsets`` (with ``offset_block`` and
+        ``offset_window``), ``limit`` (0: all targets), as for ``synth rd``; and the clip options.
 
     Returns
     -------
@@ -239,15 +264,18 @@ def rd_rows(clip_path, params: dict, *, progress=None) -> list[dict]:
         two real references (VCEG-M33; empty for the anchor itself).
     """
     from synth.codec.rdmeasure import measure_clip, parse_qps
-    from synth.makers.reference_makers import maker_by_name
+    from synth.makers import resolve_makers
 
     params = _with_defaults("rd", params)
+    vector_qp = params.get("vector_qp")
+    source, syn = _source_and_params(params, qp=vector_qp)
     with open_job_clip(clip_path, params) as clip:
         result = measure_clip(
             clip.read, len(clip), clip=str(clip_path), gap=int(params["gap"]),
-            qps=parse_qps(params["qps"], bit_depth=clip.info.bit_depth), codec=params["codec"],
-            maker=maker_by_name(params["synthesiser"]), refs=params["refs"], extra_qp=int(params["extra_qp"]),
-            preset=params["preset"],
+            qps=parse_qps(params["qps"], bit_depth=clip.info.bit_depth, option="qps"), codec=params["codec"],
+            makers=resolve_makers(params["makers"], option="makers"), source=source, params=syn,
+            vector_qp=None if vector_qp is None else int(vector_qp), refs=params["refs"],
+            extra_qp=int(params["extra_qp"]), preset=params["preset"],
             offsets={"block": int(params["offset_block"]), "window": int(params["offset_window"])} if params["offsets"] else None,
             limit=int(params["limit"]) or None, progress=progress,
         )
@@ -298,7 +326,7 @@ def _adapter(kind: str, module: str, name: str, issue: int, *, params: dict[str,
 
 
 def _rd_available() -> str | None:
-    for module, name in (("synth.codec.rdmeasure", "measure_clip"), ("synth.makers.reference_makers", "maker_by_name")):
+    for module, name in (("synth.codec.rdmeasure", "measure_clip"), ("synth.makers", "resolve_makers")):
         if _library_function(module, name) is None:
             return f"job kind 'rd' is not available yet: {module}.{name} is not in this installation (issue 5)"
     return None
@@ -308,19 +336,62 @@ def _int_range(lo: int, hi: int) -> Callable[[Any], str | None]:
     return lambda v: None if lo <= v <= hi else f"must be in {lo}..{hi}"
 
 
+def _maker_names(*, several: bool) -> Callable[[Any], str | None]:
+    """Check of a ``maker`` / ``makers`` value against the registry (`synth.makers`)."""
+
+    def check(v) -> str | None:
+        from synth.makers import MAKERS, resolve_makers
+
+        names = [n.strip() for n in str(v).split(",") if n.strip()] if several else [v]
+        if not several and "," in str(v):
+            return f"must be one maker: {', '.join(MAKERS)}"
+        try:
+            resolve_makers(names)
+        except ParameterError:
+            return f"must be {'comma-separated names' if several else 'one'} of {', '.join(MAKERS)}, without repeats"
+        return None
+
+    return check
+
+
+def _vector_source(v) -> str | None:
+    from synth.motion.sources import parse_vector_source
+
+    try:
+        parse_vector_source(v, name="vectors")
+    except ParameterError as exc:
+        return str(exc)
+    return None
+
+
+def _params_file(v) -> str | None:
+    import os
+
+    return None if v == "" or os.path.isfile(v) else "must name an existing synthesis parameter file (JSON)"
+
+
+def _vector_params(*, qp_default) -> dict[str, Param]:
+    """The ``vectors``, ``vector_qp`` and ``params`` parameters of the kinds that synthesise."""
+    return {
+        "vectors": Param((str,), "estimate", _vector_source, "'estimate' or a vector-field file (.json/.npz)"),
+        "vector_qp": Param((int,), qp_default, _int_range(0, 51), "QP of the estimated vectors"),
+        "params": Param((str,), "", _params_file, "synthesis parameter file ('': built-in values)"),
+    }
+
+
 register_kind(
     JobKind(
         name="synthesise",
         run=synthesise_rows,
         params={
             "gap": Param((int,), 2, _at_least(2), "distance between the two references, in pictures"),
-            "qp": Param((int,), 27, _int_range(0, 51), "QP of the estimated vector field (rate constraint)"),
-            "method": Param((str,), "lmmse", _one_of(("lmmse", "distance_weighted", "nearest")), "weights of the candidates"),
+            "maker": Param((str,), "lmmse", _maker_names(several=False), "maker of the picture (synth.makers)"),
+            **_vector_params(qp_default=27),
             "stripe_rows": Param((int,), 0, lambda v: None if v >= 0 else "must be >= 0", "rows per stripe (0: whole picture)"),
         },
         headline=("psnr_y",),
         metrics=("psnr_y", "psnr_cb", "psnr_cr", "mse_y"),
-        summary="the LMMSE synthesiser from estimated coded vectors, measured against the true in-between pictures",
+        summary="a maker (default the LMMSE estimator) on every in-between picture, measured against the true pictures",
         available=_synthesis_available,
     )
 )
@@ -332,7 +403,9 @@ register_kind(
             "gap": Param((int,), 8, _at_least(2), "distance between the two references"),
             "qps": Param((str,), "22,27,32,37", None, "comma-separated QPs, four or more"),
             "codec": Param((str,), "h264", _one_of(("h264", "hevc")), "h264 (x264) or hevc (x265)"),
-            "synthesiser": Param((str,), "estimator", _one_of(("estimator", "blend")), "maker of the synthetic reference"),
+            "makers": Param((str,), "lmmse,dis-medium", _maker_names(several=True),
+                            "comma-separated makers, one extra reference each; the first is the synthetic one"),
+            **_vector_params(qp_default=None),
             "refs": Param((str,), "decoded", _one_of(("decoded", "source")), "synthesise from decoded or source references"),
             "extra_qp": Param((int,), 4, _int_range(0, 51), "QP of the extra reference picture"),
             "preset": Param((str,), "medium", None, "encoder speed preset"),
@@ -369,12 +442,15 @@ register_kind(
         "compare", "synth.evaluation.compare", "compare", 6,
         params={
             "gap": Param((int,), 8, _at_least(2), "distance between the two references"),
-            "predictors": Param((str,), None, None, "comma-separated predictor names (default: all)"),
+            "makers": Param((str,), None, _maker_names(several=True), "comma-separated makers (default: all)"),
+            "predictors": Param((str,), None, None, "former name of makers"),
+            "vectors": Param((str,), None, _vector_source, "'estimate' or a vector-field file (.json/.npz)"),
             "vector_qp": Param((int, str), None, _qp_list, "QP(s) of the estimated vectors"),
+            "params": Param((str,), None, _params_file, "synthesis parameter file"),
             "frames": Param((int,), None, _positive, "use only the first N pictures"),
         },
         headline=("psnr_yuv",), metrics=_WORKBENCH_METRICS, group_by=("method",),
-        summary="every predictor on every in-between picture (workbench)",
+        summary="every maker on every in-between picture (workbench)",
     )
 )
 register_kind(
@@ -384,8 +460,11 @@ register_kind(
             "size": Param((int,), 16, _one_of((2, 4, 8, 16, 32, 64)), "GOP size"),
             "flat": Param((bool,), None, None, "synthesise every picture straight from the anchors"),
             "decoded_refs": Param((int,), None, _int_range(0, 51), "references after an H.264 encode at this QP"),
-            "predictors": Param((str,), None, None, "comma-separated predictor names (default: all)"),
+            "makers": Param((str,), None, _maker_names(several=True), "comma-separated makers (default: all)"),
+            "predictors": Param((str,), None, None, "former name of makers"),
+            "vectors": Param((str,), None, _vector_source, "'estimate' or a vector-field file (.json/.npz)"),
             "vector_qp": Param((int, str), None, _qp_list, "QP(s) of the estimated vectors"),
+            "params": Param((str,), None, _params_file, "synthesis parameter file"),
             "frames": Param((int,), None, _positive, "use only the first N pictures"),
         },
         headline=("psnr_yuv",), metrics=_WORKBENCH_METRICS, group_by=("method", "layer"),

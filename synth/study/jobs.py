@@ -15,13 +15,13 @@ from __future__ import annotations
 import functools
 import hashlib
 import json
-import math
 import os
 from dataclasses import asdict, dataclass
 from pathlib import Path
 from typing import Any, Iterable
 
 from synth.errors import FormatError
+from synth.io.jsonout import dumps_strict
 from synth.io import atomic_write_text
 
 __all__ = [
@@ -31,7 +31,6 @@ __all__ = [
     "code_version",
     "job_id",
     "make_jobs",
-    "jsonable",
     "read_record",
     "write_record",
     "records_dir",
@@ -41,23 +40,6 @@ __all__ = [
 def canonical_json(obj: Any) -> str:
     """JSON with sorted keys and no spaces: equal inputs give equal text (used for hashing)."""
     return json.dumps(obj, sort_keys=True, separators=(",", ":"), ensure_ascii=True, allow_nan=False)
-
-
-def jsonable(value: Any) -> Any:
-    """`value` with non-finite floats replaced by the strings ``'inf'``, ``'-inf'``, ``'nan'`` and numpy
-    scalars by Python ones, so it is valid JSON (PSNR of identical pictures is +inf)."""
-    if isinstance(value, dict):
-        return {str(k): jsonable(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [jsonable(v) for v in value]
-    if hasattr(value, "item") and not isinstance(value, (str, bytes)):
-        try:
-            value = value.item()
-        except (TypeError, ValueError):
-            pass
-    if isinstance(value, float) and not math.isfinite(value):
-        return "nan" if math.isnan(value) else ("inf" if value > 0 else "-inf")
-    return value
 
 
 def _source_roots() -> list[tuple[str, Path]]:
@@ -184,7 +166,7 @@ def records_dir(out_dir: str | os.PathLike) -> Path:
 def write_record(out_dir: str | os.PathLike, record: dict) -> Path:
     """Write a job record atomically as ``jobs/<id>.json``; returns its path."""
     path = records_dir(out_dir) / f"{record['id']}.json"
-    atomic_write_text(path, json.dumps(jsonable(record), indent=1, sort_keys=False, allow_nan=False) + "\n")
+    atomic_write_text(path, dumps_strict(record, indent=1, sort_keys=False) + "\n")
     return path
 
 

@@ -22,6 +22,8 @@ __all__ = ["write_report", "format_table"]
 
 
 def _fmt(value) -> str:
+    if value is None:
+        return "-"
     if isinstance(value, float):
         if math.isnan(value):
             return "-"

@@ -13,7 +13,8 @@ import time
 import traceback
 from datetime import datetime, timezone
 
-from synth.study.jobs import code_version, jsonable
+from synth.io.jsonout import strict_json
+from synth.study.jobs import code_version
 from synth.study.kinds import get_kind
 
 __all__ = ["execute_job"]
@@ -58,7 +59,7 @@ def execute_job(job: dict, *, run_id: str = "", progress=None) -> dict:
         rows = kind.run(job["clip_path"], dict(job["params"]), progress=progress)
         if not isinstance(rows, list) or not all(isinstance(r, dict) for r in rows):
             raise TypeError(f"job kind {job['kind']!r} returned {type(rows).__name__}, not a list of row dicts")
-        record["rows"] = jsonable(rows)
+        record["rows"] = strict_json(rows)  # non-finite numbers (PSNR of equal pictures) -> null
         record["status"] = "ok"
     except Exception as exc:  # noqa: BLE001 - a failing job is recorded, never fatal to the study
         record["error"] = f"{type(exc).__name__}: {exc}".splitlines()[0] if str(exc) else type(exc).__name__

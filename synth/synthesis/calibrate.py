@@ -491,11 +491,14 @@ class CalibrationResult:
     record: dict = field(default_factory=dict)
 
     def to_json(self) -> str:
+        """The parameter file with the fit record under "fit" (strict JSON: non-finite figures null)."""
         import json
+
+        from synth.io.jsonout import dumps_strict
 
         doc = json.loads(self.params.to_json())
         doc["fit"] = self.record
-        return json.dumps(doc, indent=2) + "\n"
+        return dumps_strict(doc, indent=2) + "\n"
 
 
 def calibrate(
@@ -504,7 +507,7 @@ def calibrate(
     params: SynthParams | None = None,
     refine: bool = True,
     evaluations: int = 24,
-    progress: Callable[[str], None] | None = None,
+    progress: Callable[[int, int, str], None] | None = None,
 ) -> CalibrationResult:
     """Fit the parameters on training cases: measured statistics, PSNR refinement, learned reliability.
 
@@ -518,7 +521,8 @@ def calibrate(
     evaluations : int
         Largest number of parameter sets the refinement tries.
     progress : callable, optional
-        Called with a short message before each step.
+        ``progress(done, total, label)``: called before each step (label: what starts) and once at
+        the end; the library prints nothing.
 
     Returns
     -------
@@ -531,7 +535,13 @@ def calibrate(
     """
     if not cases:
         raise ParameterError("calibration needs at least one training case, got none")
-    say = progress or (lambda msg: None)
+    steps = ["measuring candidate error statistics"] + (["refining by prediction PSNR"] if refine else []) + [
+        "fitting the learned reliability", "measuring before and after"]
+
+    def say(label: str) -> None:
+        if progress is not None:
+            progress(steps.index(label), len(steps), label)
+
     params = SynthParams() if params is None else params
     start = params
     say("measuring candidate error statistics")
@@ -562,4 +572,6 @@ def calibrate(
         name: {"before": float(np.mean([v[0] for v in vals])), "after": float(np.mean([v[1] for v in vals])), "cases": len(vals)}
         for name, vals in per_clip.items()
     }
+    if progress is not None:
+        progress(len(steps), len(steps), "done")
     return CalibrationResult(result, record)

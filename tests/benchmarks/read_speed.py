@@ -109,7 +109,8 @@ def main() -> None:
                         "cache": "cold-ish" if cold else "warm",
                         "seconds": round(sec, 4),
                         "MB_per_s": round(size / sec / 1e6, 1),
-                        "frames_per_s": round(args.frames / sec, 1) if fn is not raw_read
+                        "frames_per_s": round(args.frames / sec, 1)
+                        if fn is not raw_read
                         else round(size / frame_bytes / sec, 1),
                     }
                 )

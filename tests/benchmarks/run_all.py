@@ -12,10 +12,16 @@ import time
 from pathlib import Path
 
 HERE = Path(__file__).resolve().parent
+#: Helper scripts other benchmarks run as child processes (they need arguments).
+HELPERS = {"dis_interpolate"}
 
 
 def main(argv: list[str]) -> int:
-    scripts = sorted(p for p in HERE.glob("*.py") if p.name != Path(__file__).name and not p.name.startswith("_"))
+    scripts = sorted(
+        p
+        for p in HERE.glob("*.py")
+        if p.name != Path(__file__).name and not p.name.startswith("_") and p.stem not in HELPERS
+    )
     if argv:
         wanted = set(argv)
         unknown = wanted - {p.stem for p in scripts}

@@ -112,15 +112,20 @@ def main() -> int:
         path = os.path.join(tmp, "refs.y4m")
         subprocess.run([sys.executable, __file__, "--make-inputs", path, str(w), str(h)], check=True)
         for mode, rows in runs:
-            out = subprocess.run([sys.executable, __file__, "--child", mode, path, str(rows)], capture_output=True, text=True)
+            out = subprocess.run(
+                [sys.executable, __file__, "--child", mode, path, str(rows)], capture_output=True, text=True
+            )
             if out.returncode:
                 print(out.stderr, file=sys.stderr)
                 return out.returncode
             results.append(json.loads(out.stdout.strip().splitlines()[-1]))
     print(f"synthesis of one {w}x{h} 4:2:0 8-bit picture (16x16 field, t = 0.5)")
     for r in results:
-        print(f"{r['mode']:<22} {r['seconds']:7.2f} s   peak RSS {r['peak_rss_mb']:8.1f} MB (before synthesis {r['rss_before_mb']:.1f})"
-              f"   traced peak {r['traced_peak_mb']:8.1f} MB   output {r['sha256']}")
+        print(
+            f"{r['mode']:<22} {r['seconds']:7.2f} s   peak RSS {r['peak_rss_mb']:8.1f} MB "
+            f"(before synthesis {r['rss_before_mb']:.1f})"
+            f"   traced peak {r['traced_peak_mb']:8.1f} MB   output {r['sha256']}"
+        )
     digests = {r["sha256"] for r in results}
     print("outputs identical:", len(digests) == 1)
     return 0 if len(digests) == 1 else 1

@@ -45,7 +45,11 @@ def main() -> int:
         for c in clips:
             lines += ["[[clips]]", f"path = {json.dumps(os.path.abspath(c))}"]
         if args.kind == "blend":
-            lines += ["[[tasks]]", 'kind = "blend"', 'grid = { gap = [2, 4, 8, 16], method = ["linear", "nearest", "past"] }']
+            lines += [
+                "[[tasks]]",
+                'kind = "blend"',
+                'grid = { gap = [2, 4, 8, 16], method = ["linear", "nearest", "past"] }',
+            ]
         else:
             lines += ["[[tasks]]", 'kind = "synthesise"', "grid = { gap = [2, 4, 8] }"]
         (tmp / "study.toml").write_text("\n".join(lines) + "\n")
@@ -60,15 +64,23 @@ def main() -> int:
             from distributed import LocalCluster
 
             for trim, label in (("default", "Dask's worker environment"), (None, "MALLOC_TRIM_THRESHOLD_ unset")):
-                settings = {} if trim == "default" else {"distributed.nanny.pre-spawn-environ.MALLOC_TRIM_THRESHOLD_": None}
+                settings = (
+                    {} if trim == "default" else {"distributed.nanny.pre-spawn-environ.MALLOC_TRIM_THRESHOLD_": None}
+                )
                 t0 = time.perf_counter()
-                with dask.config.set(settings), LocalCluster(n_workers=2, processes=True, threads_per_worker=1, dashboard_address=None) as cluster:
+                with (
+                    dask.config.set(settings),
+                    LocalCluster(n_workers=2, processes=True, threads_per_worker=1, dashboard_address=None) as cluster,
+                ):
                     start = time.perf_counter() - t0
                     with DaskExecutor(cluster.scheduler_address) as ex:
                         out = tmp / f"dask-{trim}"
                         o = run_study(manifest, out, executor=ex)
                         results[f"dask LocalCluster, 2 workers, {label} (start-up {start:.1f} s not counted)"] = (
-                            o.ran, o.seconds, (out / "study.json").read_bytes())
+                            o.ran,
+                            o.seconds,
+                            (out / "study.json").read_bytes(),
+                        )
         ref = next(iter(results.values()))[2]
         print(f"kind {args.kind}: {len(clips)} clips, {next(iter(results.values()))[0]} jobs")
         for name, (ran, sec, doc) in results.items():

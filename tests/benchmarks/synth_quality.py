@@ -27,13 +27,13 @@ import sys
 import time
 from pathlib import Path
 
-import cv2
 import numpy as np
 
 from synth import SynthParams, synthesise
+from synth.io import open_clip
+from synth.makers import get_maker
 from synth.metrics import plane_psnr
 from synth.picture import Picture
-from synth.io import open_clip
 
 REPO = Path(__file__).resolve().parents[2]
 
@@ -51,27 +51,10 @@ def field_between(coded: Picture, reference: Picture, coded_time: float, referen
 
 
 def dis_interpolate(past: Picture, future: Picture, t: float) -> Picture:
-    """Optical-flow interpolation with DIS (medium): both flows, each side warped to t, averaged."""
-    dis = cv2.DISOpticalFlow_create(cv2.DISOPTICAL_FLOW_PRESET_MEDIUM)
-    a, b = past.y, future.y
-    f01 = dis.calc(a, b, None)
-    f10 = dis.calc(b, a, None)
-    ft0 = -(1 - t) * t * f01 + t * t * f10
-    ft1 = (1 - t) ** 2 * f01 - t * (1 - t) * f10
-    out = []
-    fx, fy = past.chroma_factors
-    for i, (p, q) in enumerate(zip(past.planes, future.planes)):
-        if i == 0:
-            g0, g1 = ft0, ft1
-        else:
-            g0 = np.stack([ft0[::fy, ::fx, 0] / fx, ft0[::fy, ::fx, 1] / fy], -1)
-            g1 = np.stack([ft1[::fy, ::fx, 0] / fx, ft1[::fy, ::fx, 1] / fy], -1)
-        h, w = p.shape
-        gx, gy = np.meshgrid(np.arange(w, dtype=np.float32), np.arange(h, dtype=np.float32))
-        wp = cv2.remap(p.astype(np.float32), gx + g0[..., 0], gy + g0[..., 1], cv2.INTER_LINEAR, borderMode=cv2.BORDER_REPLICATE)
-        wf = cv2.remap(q.astype(np.float32), gx + g1[..., 0], gy + g1[..., 1], cv2.INTER_LINEAR, borderMode=cv2.BORDER_REPLICATE)
-        out.append(0.5 * (wp + wf))
-    return Picture.from_float(out, chroma_format=past.chroma_format, bit_depth=past.bit_depth)
+    """Optical-flow interpolation with DIS (medium): synth's ``dis-medium`` maker."""
+    from synth.makers import get_maker
+
+    return get_maker("dis-medium")(past, future, t=t).picture
 
 
 def default_clips(real: tuple[str, ...] = ("carphone_pristine.mp4",)) -> list[Path]:
@@ -90,7 +73,7 @@ def run(clips, gaps, per_gap, variants, params: SynthParams, max_frames: int | N
         n = len(reader) if max_frames is None else min(len(reader), max_frames)
         cache = {}
 
-        def pic(i):
+        def pic(i, cache=cache, reader=reader):
             if i not in cache:
                 cache[i] = reader.read(i)
             return cache[i]
@@ -113,22 +96,31 @@ def run(clips, gaps, per_gap, variants, params: SynthParams, max_frames: int | N
                 for v in variants:
                     t0 = time.perf_counter()
                     if v == "average":
-                        out = Picture.from_float(
-                            [0.5 * (a.astype(np.float32) + b.astype(np.float32)) for a, b in zip(past.planes, future.planes)],
-                            chroma_format=past.chroma_format,
-                            bit_depth=past.bit_depth,
-                        )
+                        out = get_maker("average")(past, future, t=0.5).picture
                     elif v == "dis":
                         out = dis_interpolate(past, future, 0.5)
                     else:
                         if v == "lmmse2":
                             out = synthesise(
-                                past, future, [fields[0], fields[1]], t=0.5, params=params, method="lmmse",
-                                past_time=c - h, future_time=c + h,
+                                past,
+                                future,
+                                [fields[0], fields[1]],
+                                t=0.5,
+                                params=params,
+                                method="lmmse",
+                                past_time=c - h,
+                                future_time=c + h,
                             )
                         else:
                             out = synthesise(
-                                past, future, fields[0], t=0.5, params=params, method=v, past_time=c - h, future_time=c + h
+                                past,
+                                future,
+                                fields[0],
+                                t=0.5,
+                                params=params,
+                                method=v,
+                                past_time=c - h,
+                                future_time=c + h,
                             )
                     row[v] = plane_psnr(out.y, truth.y, bit_depth=truth.bit_depth)
                     row[v + "_s"] = time.perf_counter() - t0
@@ -144,14 +136,25 @@ def summarise(rows, variants):
         table.setdefault(key, []).append(r)
     out = []
     for (clip, gap), rs in table.items():
-        out.append({"clip": clip, "gap": gap, "n": len(rs), **{v: float(np.mean([r[v] for r in rs])) for v in variants}})
+        out.append(
+            {"clip": clip, "gap": gap, "n": len(rs), **{v: float(np.mean([r[v] for r in rs])) for v in variants}}
+        )
     cells = list(out)
     groups = {"MEAN demo clips": lambda c: c.endswith(".y4m"), "MEAN real footage": lambda c: not c.endswith(".y4m")}
     for name, sel in groups.items():
         part = [o for o in cells if sel(o["clip"])]
         if part and len(part) < len(cells):
-            out.append({"clip": name, "gap": "-", "n": sum(o["n"] for o in part), **{v: float(np.mean([o[v] for o in part])) for v in variants}})
-    out.append({"clip": "MEAN", "gap": "-", "n": len(rows), **{v: float(np.mean([o[v] for o in cells])) for v in variants}})
+            out.append(
+                {
+                    "clip": name,
+                    "gap": "-",
+                    "n": sum(o["n"] for o in part),
+                    **{v: float(np.mean([o[v] for o in part])) for v in variants},
+                }
+            )
+    out.append(
+        {"clip": "MEAN", "gap": "-", "n": len(rows), **{v: float(np.mean([o[v] for o in cells])) for v in variants}}
+    )
     return out
 
 
@@ -178,13 +181,22 @@ def main(argv=None):
     clips = a.clips or default_clips(
         ("carphone_pristine.mp4", "bikes.mp4", "bigbuckbunny.mp4") if a.more_real else ("carphone_pristine.mp4",)
     )
-    rows = run(clips, a.gaps, a.per_gap, a.variants, params, a.max_frames, log=lambda s: print(s, file=sys.stderr), qp=a.vector_qp)
+    rows = run(
+        clips,
+        a.gaps,
+        a.per_gap,
+        a.variants,
+        params,
+        a.max_frames,
+        log=lambda s: print(s, file=sys.stderr),
+        qp=a.vector_qp,
+    )
     summary = summarise(rows, a.variants)
     head = f"{'clip':<26}{'gap':>4}{'n':>4}" + "".join(f"{v[:9]:>10}" for v in a.variants)
     print(head)
     for s in summary:
         print(f"{s['clip'][:26]:<26}{s['gap']:>4}{s['n']:>4}" + "".join(f"{s[v]:10.2f}" for v in a.variants))
-    times = {v: float(np.mean([r[v + '_s'] for r in rows])) for v in a.variants}
+    times = {v: float(np.mean([r[v + "_s"] for r in rows])) for v in a.variants}
     print("mean seconds per picture (vectors given): " + ", ".join(f"{v} {t:.3f}" for v, t in times.items()))
     if a.json:
         a.json.write_text(json.dumps({"params": params.to_dict(), "rows": rows, "summary": summary}, indent=1))

@@ -30,7 +30,7 @@ def test_vectors_writes_field_overlay_and_summary(pan_clip, tmp_path):
     out, png = tmp_path / "f.json", tmp_path / "o.png"
     res = CliRunner().invoke(
         app, ["vectors", str(pan_clip), "--coded", "3", "--ref", "0", "-o", str(out), "--overlay", str(png),
-              "--range", "16", "--blocks", "32,16,8", "--qp", "30", "--json"],
+              "--range", "16", "--blocks", "32,16,8", "--vector-qp", "30", "--json"],
     )  # fmt: skip
     assert res.exit_code == 0, res.output
     summary = json.loads(res.output)
@@ -50,7 +50,9 @@ def test_vectors_writes_field_overlay_and_summary(pan_clip, tmp_path):
         (["--coded", "9", "--ref", "0"], "--coded must be a picture number in 0..3"),
         (["--coded", "1", "--ref", "1"], "must name different pictures"),
         (["--coded", "1", "--ref", "0", "--blocks", "48"], "--blocks must list powers of two"),
-        (["--coded", "1", "--ref", "0", "--qp", "70"], "qp must be an integer in 0..51"),
+        (["--coded", "1", "--ref", "0", "--vector-qp", "70"], "--vector-qp must be an integer in 0..51"),
+        (["--coded", "1", "--ref", "0", "--range", "0"], "--range must be an integer in 1..1024"),
+        (["--coded", "1", "--ref", "0", "--vectors", "nofile.json"], "--vectors 'nofile.json': no such file"),
     ],
 )
 def test_vectors_errors_are_one_line(pan_clip, tmp_path, args, message):
@@ -59,3 +61,28 @@ def test_vectors_errors_are_one_line(pan_clip, tmp_path, args, message):
     assert res.exit_code == 2
     assert message in res.output and res.output.count("\n") == 1 and "Traceback" not in res.output
     assert not out.exists()
+
+
+def test_vectors_converts_a_field_file_and_refuses_a_missing_field(pan_clip, tmp_path):
+    js = tmp_path / "f.json"
+    res = CliRunner().invoke(app, ["vectors", str(pan_clip), "--coded", "2", "--ref", "0", "-o", str(js),
+                                   "--range", "16", "--json"])  # fmt: skip
+    assert res.exit_code == 0, res.output
+    first = json.loads(res.output)
+    npz = tmp_path / "f.npz"
+    res = CliRunner().invoke(app, ["vectors", str(pan_clip), "--coded", "2", "--ref", "0", "-o", str(npz),
+                                   "--vectors", str(js), "--json"])  # fmt: skip
+    assert res.exit_code == 0, res.output
+    again = json.loads(res.output)
+    (a,) = read_fields(js)
+    (b,) = read_fields(npz)
+    for k in ("x", "y", "w", "h", "dx", "dy", "intra"):
+        np.testing.assert_array_equal(getattr(a, k), getattr(b, k))
+    # the same field gives the same description (the summary depends on the field and pictures only)
+    for k in ("blocks", "vector_bits", "mc_psnr_y", "intra_share"):
+        assert again[k] == first[k]
+    assert again["vectors"] == str(js) and again["vector_qp"] is None
+    res = CliRunner().invoke(app, ["vectors", str(pan_clip), "--coded", "0", "--ref", "2", "-o", str(npz),
+                                   "--vectors", str(js)])  # fmt: skip
+    assert res.exit_code == 2 and "no field coded at picture 0 against picture 2" in res.output
+    assert "2->0" in res.output

@@ -38,8 +38,8 @@ window.addEventListener('load', function () {
 def report_dir(carphone_crop, tmp_path_factory):
     pics = carphone_crop(9)
     runs = [
-        compare_clip(pics, gaps=[2, 4], predictors="lmmse,average,dis-fast", vector_qps="22,37", clip_name="crop"),
-        run_gop(pics, size=4, predictors="average,dis-fast", clip_name="crop"),
+        compare_clip(pics, gaps=[2, 4], makers="lmmse,average,dis-fast", vector_qps="22,37", clip_name="crop"),
+        run_gop(pics, size=4, makers="average,dis-fast", clip_name="crop"),
     ]
     out = tmp_path_factory.mktemp("report")
     write_report(runs, out)
@@ -54,8 +54,11 @@ def _lookup(doc, path):
 
 
 def test_json_csv_and_html_agree(report_dir):
-    doc = json.loads((report_dir / "results.json").read_text())
-    assert doc["format"] == "synth-results" and [r["kind"] for r in doc["runs"]] == ["compare", "gop"]
+    text = (report_dir / "results.json").read_text()
+    # Strict JSON (RFC 8259): no Infinity / NaN constants, whatever the pictures measured.
+    doc = json.loads(text, parse_constant=lambda token: pytest.fail(f"non-standard JSON constant {token}"))
+    assert doc["format"] == "synth-results" and doc["schema_version"] == 1
+    assert [r["kind"] for r in doc["runs"]] == ["compare", "gop"]
     rows = list(csv.DictReader((report_dir / "results.csv").open()))
     assert tuple(rows[0]) == CSV_COLUMNS
     pictures = [p for r in doc["runs"] for p in r["pictures"]]
@@ -102,3 +105,17 @@ def test_report_renders_in_headless_chromium(report_dir, tmp_path):
         assert float(value) == want
         decimals = len(text.split(".")[1]) if "." in text else 0
         assert abs(float(text) - want) <= 0.5 * 10 ** -decimals + 1e-12
+
+
+def test_identical_pictures_give_null_not_infinity(carphone_crop, tmp_path):
+    # A still clip: the average of two equal references is the target itself, PSNR = +inf by its
+    # definition (10 log10(peak^2 / 0)); results.json must hold null (RFC 8259 has no Infinity).
+    still = [carphone_crop(1)[0]] * 3
+    run = compare_clip(still, gaps=[2], makers="average", clip_name="still")
+    assert run.records[0]["psnr_yuv"] is None
+    paths = write_report([run], tmp_path)
+    text = paths["json"].read_text()
+    assert "Infinity" not in text and "NaN" not in text
+    doc = json.loads(text)
+    assert doc["runs"][0]["pictures"][0]["psnr_y"] is None and doc["runs"][0]["summary"][0]["psnr_yuv"] is None
+    assert next(csv.DictReader(paths["csv"].open()))["psnr_yuv"] == ""

@@ -9,10 +9,11 @@ import pytest
 from scipy import ndimage
 
 from synth.codec.dctif import quarter_pel_phases
+from synth.codec.offsets import motion_lagrangian, refine_with_offsets
 from synth.errors import FormatError, ParameterError
-from synth.io.offsets_file import read_offsets, write_offsets
 from synth.io import rgb_to_ycbcr420
-from synth.codec.offsets import OffsetField, motion_lagrangian, offsets_document, refine_with_offsets
+from synth.io.offsets_file import read_offsets, write_offsets
+from synth.offset_field import OffsetField, offsets_document
 from synth.picture import Picture
 
 skdata = pytest.importorskip("skimage.data")
@@ -90,8 +91,9 @@ def test_offsets_field_document_and_determinism():
     assert isinstance(a.field, OffsetField)
     assert a.field.coded_time == a.field.reference_time == 5.0
     assert np.all(np.abs(a.field.dx) <= 4) and np.all(np.abs(a.field.dy) <= 4)
-    doc = offsets_document(a, extra={"past": 0})
-    assert doc["reference"] == "synthetic" and doc["past"] == 0
+    doc = offsets_document(a.field, statistics=a.stats, extra={"past": 0})
+    assert doc["reference"] == "synthetic" and doc["past"] == 0 and doc["time"] == 5.0
+    assert doc["search"] == {"block": 16, "window": 1, "metric": "satd", "lambda": a.stats.lagrangian}
     assert len(doc["blocks"]) == a.stats.blocks == (120 // 16) ** 2
     assert doc["statistics"]["bits_total"] == a.stats.bits_total
 
@@ -100,7 +102,7 @@ def test_offsets_file_round_trip_and_malformed_files(tmp_path):
     synthetic, target = _camera_pair(-3, 2)
     res = refine_with_offsets(target, synthetic, block=8, window=1, time=3)
     path = tmp_path / "off.json"
-    write_offsets(path, res, extra={"source": "camera"})
+    write_offsets(path, res.field, statistics=res.stats, extra={"source": "camera"})
     field, doc = read_offsets(path)
     for k in ("x", "y", "w", "h", "dx", "dy", "intra"):
         np.testing.assert_array_equal(getattr(field, k), getattr(res.field, k))
@@ -118,6 +120,42 @@ def test_offsets_file_round_trip_and_malformed_files(tmp_path):
     (tmp_path / "cut.json").write_text(path.read_text()[:200])
     with pytest.raises(FormatError, match="not a JSON offsets file"):
         read_offsets(tmp_path / "cut.json")
+    # files of the older version key are still read
+    old = json.loads(path.read_text())
+    old["version"] = old.pop("schema_version")
+    (tmp_path / "old.json").write_text(json.dumps(old))
+    assert read_offsets(tmp_path / "old.json")[0].time == 3.0
+    # the one time must be a finite number (RFC 8259 JSON has no NaN; Python's reader accepts it)
+    bad = json.loads(path.read_text())
+    bad["time"] = float("nan")
+    (tmp_path / "nan.json").write_text(json.dumps(bad))
+    with pytest.raises(FormatError, match="time must be a finite number"):
+        read_offsets(tmp_path / "nan.json")
+    # a block outside the picture is named
+    bad = json.loads(path.read_text())
+    bad["blocks"][-1][0] = 2000
+    (tmp_path / "out.json").write_text(json.dumps(bad))
+    with pytest.raises(FormatError, match=f"block {len(bad['blocks']) - 1} .*outside"):
+        read_offsets(tmp_path / "out.json")
+
+
+def test_identical_pictures_write_strict_json(tmp_path):
+    # RFC 8259 has no Infinity: the infinite PSNR of identical pictures is written as null
+    synthetic, _ = _camera_pair(0, 0)
+    res = refine_with_offsets(synthetic, synthetic, block=16, window=1)
+    path = tmp_path / "same.json"
+    write_offsets(path, res.field, statistics=res.stats)
+    doc = json.loads(path.read_text(), parse_constant=lambda c: pytest.fail(f"non-strict JSON constant {c}"))
+    assert doc["statistics"]["psnr_before"]["Y"] is None
+
+
+def test_offset_field_has_one_time():
+    f = OffsetField.from_blocks(width=16, height=16, time=2.0, x=[0], y=[0], w=16, h=16, dx=[1], dy=[0])
+    assert f.time == f.coded_time == f.reference_time == 2.0
+    with pytest.raises(ParameterError, match="one time"):
+        OffsetField.from_arrays(
+            width=16, height=16, coded_time=2, reference_time=3, x=[0], y=[0], w=16, h=16, dx=[0], dy=[0]
+        )
 
 
 def test_picture_not_a_multiple_of_the_block_keeps_its_rim():
@@ -162,3 +200,64 @@ def test_bad_parameters_raise_parameter_errors():
     small = Picture.blank(64, 64)
     with pytest.raises(ParameterError, match="differ"):
         refine_with_offsets(small, synthetic)
+
+
+@pytest.fixture(scope="module")
+def shifted_clip(tmp_path_factory):
+    """Five pictures of the band-limited 'camera' photograph, 1 sample right per picture."""
+    from synth.io import write_clip
+
+    img = ndimage.gaussian_filter(skdata.camera().astype(np.float32), 1.0)
+    flat = np.full((32, 64), 128.0)
+    pics = [Picture.from_float([img[100:164, 100 + k : 228 + k], flat, flat], chroma_format="420", bit_depth=8)
+            for k in range(5)]  # fmt: skip
+    path = tmp_path_factory.mktemp("clip") / "shift.y4m"
+    write_clip(path, pics)
+    return path
+
+
+def test_offsets_command_writes_the_file_and_the_prediction(shifted_clip, tmp_path):
+    from typer.testing import CliRunner
+
+    from synth.cli import app
+    from synth.expgolomb import se_codeword
+    from synth.io import open_clip
+
+    out, pred = tmp_path / "off.json", tmp_path / "pred.y4m"
+    res = CliRunner().invoke(app, [
+        "offsets", str(shifted_clip), "--past", "0", "--future", "4", "--at", "2", "-o", str(out), "--maker", "average",
+        "--offset-block", "8", "--offset-window", "1", "--metric", "sad", "--prediction", str(pred), "--json",
+    ])  # fmt: skip
+    assert res.exit_code == 0, res.output
+    summary = json.loads(res.output)
+    field, doc = read_offsets(out)
+    assert doc["maker"] == "average" and doc["past"] == 0 and field.time == 2.0
+    assert len(field) == summary["blocks"] == (64 // 8) * (128 // 8)
+    # the bit count is the length of the se(v) code words (H.264 clause 9.1.1) of every component
+    assert summary["bits_total"] == sum(len(se_codeword(v)) for v in field.dx.tolist() + field.dy.tolist())
+    with open_clip(pred) as r:
+        assert len(r) == 1
+    # the references' average of a pan is blurred; the offsets only correct it
+    assert summary["psnr_after"]["Y"] >= summary["psnr_before"]["Y"]
+
+
+@pytest.mark.parametrize(
+    "args, message",
+    [
+        (["--at", "7"], "--at must be a picture number in 0..4"),
+        (["--at", "4"], "--at 4 must lie strictly between"),
+        (["--at", "2", "--offset-window", "9"], "--offset-window must be an integer in 0..8"),
+        (["--at", "2", "--metric", "ssd"], "--metric must be one of"),
+        (["--at", "2", "--maker", "estimator"], "--maker must be one of"),
+        (["--at", "2", "--prediction", "p.png"], "--prediction must end in .y4m"),
+    ],
+)
+def test_offsets_command_errors_are_one_line(shifted_clip, tmp_path, args, message):
+    from typer.testing import CliRunner
+
+    from synth.cli import app
+
+    out = tmp_path / "off.json"
+    res = CliRunner().invoke(app, ["offsets", str(shifted_clip), "--past", "0", "--future", "4", "-o", str(out), *args])
+    assert res.exit_code == 2 and message in res.output, res.output
+    assert len(res.output.strip().splitlines()) == 1 and not out.exists()

@@ -18,7 +18,7 @@ from synth.io import (
     write_yuv,
 )
 
-from test_y4m import PIX_FMT, av_planes, random_picture
+from test_io_y4m import PIX_FMT, av_planes, random_picture
 
 av = pytest.importorskip("av")
 

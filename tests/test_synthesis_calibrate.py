@@ -199,8 +199,9 @@ def pan_clip(tmp_path_factory, pan_pictures):
 def test_calibrate_cli_writes_a_loadable_parameter_file(pan_clip, tmp_path):
     out = tmp_path / "params.json"
     res = CliRunner().invoke(
-        app, ["calibrate", str(pan_clip), "-o", str(out), "--gaps", "2,4", "--frames", "6", "--per-gap", "1", "--evaluations", "2"]
-    )
+        app, ["calibrate", str(pan_clip), "-o", str(out), "--gaps", "2,4", "--pictures", "0:5", "--per-gap", "1",
+              "--evaluations", "2"]
+    )  # fmt: skip
     assert res.exit_code == 0, res.output
     p = SynthParams.load(out)
     assert p.reliability == "learned" and len(p.reliability_coefficients) == n_coefficients()
@@ -208,15 +209,39 @@ def test_calibrate_cli_writes_a_loadable_parameter_file(pan_clip, tmp_path):
     doc = json.loads(out.read_text())
     assert set(doc["fit"]) >= {"measured", "refinement", "learned", "psnr"}
     assert "written" in res.stdout and "PSNR-Y" in res.stdout
+    # the same run as strict JSON (RFC 8259: no bare Infinity / NaN), without refinement
+    res = CliRunner().invoke(
+        app, ["calibrate", str(pan_clip), "-o", str(out), "--gaps", "2", "--pictures", ":4", "--per-gap", "1",
+              "--no-refine", "--json"]
+    )  # fmt: skip
+    assert res.exit_code == 0, res.output
+    summary = json.loads(res.stdout, parse_constant=lambda c: pytest.fail(f"non-strict JSON constant {c}"))
+    assert summary["cases"] == 1 and summary["settings"]["pictures"] == [0, 4]
+    assert "refinement" not in summary["fit"] and summary["params"]["reliability_coefficients"] == n_coefficients()
+
+
+def test_calibrate_reports_progress_as_done_total_label(pan_pictures):
+    from synth.synthesis.calibrate import TrainingCase, calibrate
+
+    rng = np.random.default_rng(5)
+    fl = _fields(64, 32, noise=(rng.integers(-12, 13, (6, 8)), rng.integers(-12, 13, (6, 8))))
+    case = TrainingCase("pan", 4, 2, pan_pictures[0], pan_pictures[4], pan_pictures[2], fl)
+    seen = []
+    calibrate([case], refine=False, progress=lambda done, total, label: seen.append((done, total, label)))
+    assert [s[0] for s in seen] == list(range(len(seen))) and seen[-1][0] == seen[-1][1] == len(seen) - 1
 
 
 @pytest.mark.parametrize(
     "args, message",
     [
-        (["--gaps", "3"], "gaps must be even integers"),
+        (["--gaps", "3"], "--gaps must be even integers"),
         (["--gaps", "a,b"], "--gaps must be comma-separated"),
-        (["--frames", "2"], "--frames must be at least 3"),
-        (["--gaps", "8", "--frames", "6"], "too few for reference distance 8"),
+        (["--pictures", "0:1"], "--pictures must span at least 3 pictures"),
+        (["--pictures", "5:2"], "--pictures must have 0 <= FIRST <= LAST"),
+        (["--pictures", "4"], "--pictures must be FIRST:LAST"),
+        (["--gaps", "8", "--pictures", "0:5"], "too few for reference distance 8"),
+        (["--per-gap", "0"], "--per-gap must be an integer >= 1"),
+        (["--vector-qp", "60"], "--vector-qp must be an integer in 0..51"),
     ],
 )
 def test_calibrate_cli_errors_are_one_line(pan_clip, tmp_path, args, message):
