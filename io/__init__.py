@@ -20,20 +20,20 @@ CSV export with `fields_to_csv` (see :mod:`synth.io.fields`). Corrective block o
 from __future__ import annotations
 
 import os
+from collections.abc import Iterable
 from pathlib import Path
-from typing import Iterable, Protocol
+from typing import Protocol
 
 from synth.errors import FormatError, ParameterError
-from synth.picture import ClipInfo, Picture
-
 from synth.io.atomic import atomic_output, atomic_write_bytes, atomic_write_text
 from synth.io.colour import MATRICES, picture_to_rgb, rgb_to_picture, rgb_to_ycbcr420
 from synth.io.fields import fields_to_csv, read_fields, write_fields
-from synth.io.offsets_file import read_offsets, write_offsets
 from synth.io.images import ImageSequenceReader, is_image_pattern, write_images
+from synth.io.offsets_file import read_offsets, write_offsets
 from synth.io.rawyuv import RawYUVReader, geometry_from_name, parse_size, write_yuv
 from synth.io.video import VideoReader
 from synth.io.y4m import Y4MReader, format_y4m_header, parse_y4m_header, write_y4m
+from synth.picture import ClipInfo, Picture
 
 __all__ = [
     "ClipReader",
@@ -142,9 +142,7 @@ def open_clip(path: str | os.PathLike, **options) -> ClipReader:
     kind = clip_kind(path)
     unknown = sorted(set(options) - _OPTIONS[kind])
     if unknown:
-        raise ParameterError(
-            f"{path}: {', '.join(unknown)} does not apply to a {_DESCRIPTIONS[kind]} file"
-        )
+        raise ParameterError(f"{path}: {', '.join(unknown)} does not apply to a {_DESCRIPTIONS[kind]} file")
     if kind == "images":
         return ImageSequenceReader(path, **options)
     p = Path(path)
@@ -172,7 +170,9 @@ def write_clip(path: str | os.PathLike, pictures: Iterable[Picture], info: ClipI
     if kind == "images":
         return write_images(path, pictures, info, **options)
     if options:
-        raise ParameterError(f"{path}: writing {_DESCRIPTIONS.get(kind, kind)} takes no options, got {', '.join(options)}")
+        raise ParameterError(
+            f"{path}: writing {_DESCRIPTIONS.get(kind, kind)} takes no options, got {', '.join(options)}"
+        )
     if kind == "y4m":
         return write_y4m(path, pictures, info)
     if kind == "yuv":

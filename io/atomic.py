@@ -8,8 +8,9 @@ from __future__ import annotations
 import contextlib
 import os
 import tempfile
+from collections.abc import Iterator
 from pathlib import Path
-from typing import IO, Iterator
+from typing import IO
 
 __all__ = ["atomic_output", "atomic_write_bytes", "atomic_write_text"]
 

@@ -37,9 +37,7 @@ def _subsample(c: np.ndarray, fx: int, fy: int) -> np.ndarray:
     return c.reshape(h // fy, fy, w // fx, fx).mean(axis=(1, 3))
 
 
-def rgb_to_picture(
-    rgb: np.ndarray, *, matrix: str = "601", chroma_format: str = "420", bit_depth: int = 8
-) -> Picture:
+def rgb_to_picture(rgb: np.ndarray, *, matrix: str = "601", chroma_format: str = "420", bit_depth: int = 8) -> Picture:
     """Convert full-range R'G'B' in [0, 1] to a studio-range Y'CbCr picture.
 
     Parameters

@@ -36,15 +36,14 @@ import io as _stdio
 import json
 import os
 import zipfile
+from collections.abc import Iterable
 from pathlib import Path
-from typing import Iterable
 
 import numpy as np
 
 from synth.errors import FormatError, ParameterError
 from synth.field import VectorField
 from synth.field_checks import COLUMNS, check_picture_size, field_from_columns, validate_field
-
 from synth.io.atomic import atomic_output, atomic_write_text
 
 __all__ = ["FORMAT_NAME", "SCHEMA_VERSION", "write_fields", "read_fields", "fields_to_csv"]
@@ -106,9 +105,7 @@ def _json_text(fields: list[VectorField]) -> str:
         lines.append(f'      "reference_time": {json.dumps(_number(f.reference_time))},')
         lines.append(f'      "gaps_allowed": {json.dumps(bool(f.gaps_allowed))},')
         lines.append(f'      "columns": {json.dumps(list(COLUMNS))},')
-        rows = np.stack(
-            [f.x, f.y, f.w, f.h, f.dx, f.dy, f.intra.astype(np.int32)], axis=1
-        ).tolist() if len(f) else []
+        rows = np.stack([f.x, f.y, f.w, f.h, f.dx, f.dy, f.intra.astype(np.int32)], axis=1).tolist() if len(f) else []
         if rows:
             lines.append('      "blocks": [')
             body = [f"        [{', '.join(str(v) for v in r)}]" for r in rows]
@@ -157,9 +154,11 @@ def write_fields(path: str | os.PathLike, fields: VectorField | Iterable[VectorF
     for k, f in enumerate(fields):
         arrays[f"field{k}_times"] = np.array([f.coded_time, f.reference_time], dtype=np.float64)
         arrays[f"field{k}_gaps_allowed"] = np.array(bool(f.gaps_allowed))
-        arrays[f"field{k}_blocks"] = np.stack(
-            [f.x, f.y, f.w, f.h, f.dx, f.dy, f.intra.astype(np.int32)], axis=1
-        ).astype(np.int32).reshape(len(f), len(COLUMNS))
+        arrays[f"field{k}_blocks"] = (
+            np.stack([f.x, f.y, f.w, f.h, f.dx, f.dy, f.intra.astype(np.int32)], axis=1)
+            .astype(np.int32)
+            .reshape(len(f), len(COLUMNS))
+        )
     buf = _stdio.BytesIO()
     np.savez_compressed(buf, **arrays)
     with atomic_output(path, "wb") as fh:
@@ -219,8 +218,13 @@ def _read_json(path: Path) -> list[VectorField]:
         columns = {c: [row[j] for row in blocks] for j, c in enumerate(cols)}
         out.append(
             field_from_columns(
-                columns, width=width, height=height, coded_time=fd["coded_time"],
-                reference_time=fd["reference_time"], gaps_allowed=fd.get("gaps_allowed", False), label=label,
+                columns,
+                width=width,
+                height=height,
+                coded_time=fd["coded_time"],
+                reference_time=fd["reference_time"],
+                gaps_allowed=fd.get("gaps_allowed", False),
+                label=label,
             )  # fmt: skip
         )
     return out
@@ -268,8 +272,13 @@ def _read_npz(path: Path) -> list[VectorField]:
         gaps = get(f"field{k}_gaps_allowed")
         out.append(
             field_from_columns(
-                columns, width=width, height=height, coded_time=times[0].item(), reference_time=times[1].item(),
-                gaps_allowed=gaps.item() if gaps.dtype == bool and gaps.shape == () else gaps, label=label,
+                columns,
+                width=width,
+                height=height,
+                coded_time=times[0].item(),
+                reference_time=times[1].item(),
+                gaps_allowed=gaps.item() if gaps.dtype == bool and gaps.shape == () else gaps,
+                label=label,
             )  # fmt: skip
         )
     return out

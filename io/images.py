@@ -16,19 +16,18 @@ from __future__ import annotations
 
 import os
 import re
+from collections.abc import Iterable
 from fractions import Fraction
 from pathlib import Path
-from typing import Iterable
 
 import cv2
 import numpy as np
 
 from synth.errors import FormatError, ParameterError
-from synth.picture import ClipInfo, Picture, chroma_factors
-
 from synth.io.atomic import atomic_write_bytes
 from synth.io.colour import check_matrix, picture_to_rgb, rgb_to_picture
 from synth.io.planar import ReaderMixin, frame_index
+from synth.picture import ClipInfo, Picture, chroma_factors
 
 __all__ = ["ImageSequenceReader", "write_images", "is_image_pattern", "IMAGE_SUFFIXES"]
 
@@ -196,7 +195,11 @@ class ImageSequenceReader(ReaderMixin):
 
 
 def write_images(
-    pattern: str | os.PathLike, pictures: Iterable[Picture], info: ClipInfo | None = None, *, matrix: str = "601",
+    pattern: str | os.PathLike,
+    pictures: Iterable[Picture],
+    info: ClipInfo | None = None,
+    *,
+    matrix: str = "601",
     start: int = 0,
 ) -> int:
     """Write pictures as numbered PNG files, each atomically; returns the number written.

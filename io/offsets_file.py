@@ -38,8 +38,14 @@ _VERSION_KEYS = ("schema_version", "version", "format_version")
 _MIN_BLOCK, _MAX_BLOCK = 4, 128
 
 
-def write_offsets(path: str | os.PathLike, field: OffsetField, *, statistics: OffsetStatistics | dict | None = None,
-                  settings: dict | None = None, extra: dict | None = None) -> dict:
+def write_offsets(
+    path: str | os.PathLike,
+    field: OffsetField,
+    *,
+    statistics: OffsetStatistics | dict | None = None,
+    settings: dict | None = None,
+    extra: dict | None = None,
+) -> dict:
     """Write offsets as a ``synth-offsets`` JSON file, atomically.
 
     Parameters

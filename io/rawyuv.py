@@ -13,13 +13,11 @@ from __future__ import annotations
 
 import os
 import re
+from collections.abc import Iterable
 from fractions import Fraction
 from pathlib import Path
-from typing import Iterable
 
 from synth.errors import FormatError, ParameterError
-from synth.picture import ClipInfo, Picture
-
 from synth.io.atomic import atomic_output
 from synth.io.planar import (
     PositionalFile,
@@ -30,12 +28,15 @@ from synth.io.planar import (
     pack_picture,
     unpack_frame,
 )
+from synth.picture import ClipInfo, Picture
 
 __all__ = ["RawYUVReader", "write_yuv", "parse_size", "geometry_from_name"]
 
 _SIZE_IN_NAME = re.compile(r"(?<![0-9])([1-9][0-9]{0,5})[xX]([1-9][0-9]{0,5})(?![0-9])")
 _RATE_AFTER_SIZE = re.compile(r"[_\-.]([0-9]{1,3}(?:\.[0-9]{1,3})?)(?:fps|hz)?(?=[_\-.]|$)", re.I)
-_DEPTH_IN_NAME = re.compile(r"(?:(?<![0-9])(8|9|10|12|14|16)[_\-]?bits?(?![a-z])|p(9|10|12|14|16)(?:le)?(?![0-9]))", re.I)
+_DEPTH_IN_NAME = re.compile(
+    r"(?:(?<![0-9])(8|9|10|12|14|16)[_\-]?bits?(?![a-z])|p(9|10|12|14|16)(?:le)?(?![0-9]))", re.I
+)
 _CHROMA_IN_NAME = re.compile(r"(?:^|[_\-.])(?:yuv)?(420|422|444|400|mono|gray)p?(?=[_\-.]|p[0-9]|$)", re.I)
 
 

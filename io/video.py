@@ -14,17 +14,16 @@ from __future__ import annotations
 import operator
 import os
 from collections import OrderedDict
+from collections.abc import Iterator
 from fractions import Fraction
 from pathlib import Path
-from typing import Iterator
 
 import cv2
 
 from synth.errors import FormatError, ParameterError
-from synth.picture import ClipInfo, Picture
-
 from synth.io.colour import MATRICES, check_matrix, rgb_to_ycbcr420
 from synth.io.planar import ReaderMixin, frame_index
+from synth.picture import ClipInfo, Picture
 
 __all__ = ["VideoReader", "rgb_to_ycbcr420", "MATRICES"]
 

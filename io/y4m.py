@@ -24,13 +24,11 @@ from __future__ import annotations
 
 import os
 import re
+from collections.abc import Iterable
 from fractions import Fraction
 from pathlib import Path
-from typing import Iterable
 
 from synth.errors import FormatError
-from synth.picture import ClipInfo, Picture
-
 from synth.io.atomic import atomic_output
 from synth.io.planar import (
     PositionalFile,
@@ -41,6 +39,7 @@ from synth.io.planar import (
     pack_picture,
     unpack_frame,
 )
+from synth.picture import ClipInfo, Picture
 
 __all__ = ["Y4MReader", "write_y4m", "parse_y4m_header", "format_y4m_header", "pack_picture", "C_TAGS"]
 
@@ -348,7 +347,9 @@ class Y4MReader(ReaderMixin):
             self.info.frame_count = len(self._offsets)
             return self.read(index)
         if len(raw) != self._frame_bytes + skip:
-            raise FormatError(f"{src}: frame {i} is truncated: expected {self._frame_bytes} bytes, got {len(raw) - skip}")
+            raise FormatError(
+                f"{src}: frame {i} is truncated: expected {self._frame_bytes} bytes, got {len(raw) - skip}"
+            )
         pic = unpack_frame(raw, self.info, offset=skip)
         if self.check_range:
             check_sample_range(pic, source=src, index=i)

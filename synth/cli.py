@@ -10,7 +10,6 @@ from __future__ import annotations
 import os
 import sys
 from pathlib import Path
-from typing import Optional
 
 import typer
 from typer.core import TyperGroup
@@ -80,13 +79,19 @@ def info(
     clip: Path = typer.Argument(
         ..., help="Clip: .y4m, raw .yuv, image pattern (frame_%03d.png) or any video OpenCV decodes."
     ),
-    frame: int = typer.Option(0, "--frame", "-f", help="Frame whose plane statistics are shown (negative: from the end)."),
+    frame: int = typer.Option(
+        0, "--frame", "-f", help="Frame whose plane statistics are shown (negative: from the end)."
+    ),
     as_json: bool = typer.Option(False, "--json", help="Print the description as strict JSON."),
-    size: Optional[str] = typer.Option(None, "--size", help="Raw .yuv only: WIDTHxHEIGHT (else taken from the file name)."),
-    chroma: Optional[str] = typer.Option(None, "--chroma", help="Raw .yuv / images: 420, 422, 444 or mono."),
-    bit_depth: Optional[int] = typer.Option(None, "--bit-depth", help="Raw .yuv / images: bits per sample, 8..16."),
-    fps: Optional[float] = typer.Option(None, "--fps", help="Raw .yuv / images: frame rate to report."),
-    matrix: Optional[str] = typer.Option(None, "--matrix", help="Images / compressed video: R'G'B' to Y'CbCr matrix, 601 (default) or 709."),
+    size: str | None = typer.Option(
+        None, "--size", help="Raw .yuv only: WIDTHxHEIGHT (else taken from the file name)."
+    ),
+    chroma: str | None = typer.Option(None, "--chroma", help="Raw .yuv / images: 420, 422, 444 or mono."),
+    bit_depth: int | None = typer.Option(None, "--bit-depth", help="Raw .yuv / images: bits per sample, 8..16."),
+    fps: float | None = typer.Option(None, "--fps", help="Raw .yuv / images: frame rate to report."),
+    matrix: str | None = typer.Option(
+        None, "--matrix", help="Images / compressed video: R'G'B' to Y'CbCr matrix, 601 (default) or 709."
+    ),
 ) -> None:
     """Show a clip's format, size, frame count, sample format, frame rate and one frame's plane statistics."""
     from synth.commands.info import describe_clip, format_info
@@ -106,11 +111,19 @@ def vectors(
     coded: int = typer.Option(..., "--coded", help="Picture number whose blocks get vectors."),
     ref: int = typer.Option(..., "--ref", help="Picture number the vectors point to."),
     output: Path = typer.Option(..., "--output", "-o", help="Field file: .json, .npz, or .csv (export)."),
-    vectors: Optional[str] = typer.Option(None, "--vectors", help="Vector input: 'estimate' (default) or a field file (.json/.npz) to re-summarise or convert."),
-    vector_qp: int = typer.Option(27, "--vector-qp", help="QP of the estimated vectors, 0..51: higher = cheaper, smoother field."),
+    vectors: str | None = typer.Option(
+        None,
+        "--vectors",
+        help="Vector input: 'estimate' (default) or a field file (.json/.npz) to re-summarise or convert.",
+    ),
+    vector_qp: int = typer.Option(
+        27, "--vector-qp", help="QP of the estimated vectors, 0..51: higher = cheaper, smoother field."
+    ),
     search_range: int = typer.Option(64, "--range", help="Largest vector component of the estimator, luma samples."),
-    blocks: str = typer.Option("64,32,16,8", "--blocks", help="Block sizes the estimator's quadtree may use, comma-separated."),
-    overlay: Optional[Path] = typer.Option(None, "--overlay", help="PNG with block outlines and arrows."),
+    blocks: str = typer.Option(
+        "64,32,16,8", "--blocks", help="Block sizes the estimator's quadtree may use, comma-separated."
+    ),
+    overlay: Path | None = typer.Option(None, "--overlay", help="PNG with block outlines and arrows."),
     as_json: bool = typer.Option(False, "--json", help="Print the summary as strict JSON."),
 ) -> None:
     """Block vectors from one picture of a clip to another: estimated (or read from a field file), written and described."""
@@ -131,19 +144,33 @@ def frame(
     clip: Path = typer.Argument(..., help="Clip file (.y4m, or any video OpenCV decodes)."),
     past: int = typer.Option(..., "--past", help="Picture number of the past reference."),
     future: int = typer.Option(..., "--future", help="Picture number of the future reference."),
-    at: Optional[int] = typer.Option(None, "--at", help="Picture number to make (its true picture is measured against)."),
-    t: Optional[float] = typer.Option(None, "--t", help="Fraction strictly in (0, 1) from past to future, when no true picture exists."),
+    at: int | None = typer.Option(None, "--at", help="Picture number to make (its true picture is measured against)."),
+    t: float | None = typer.Option(
+        None, "--t", help="Fraction strictly in (0, 1) from past to future, when no true picture exists."
+    ),
     output: Path = typer.Option(..., "--output", "-o", help="The picture made, 1-frame .y4m."),
-    vectors: Optional[str] = typer.Option(None, "--vectors", help="Vector input: 'estimate' (default) or a field file (.json/.npz)."),
-    vector_qp: int = typer.Option(27, "--vector-qp", help="QP of the estimated vectors, 0..51 (also sets the offsets' lambda)."),
+    vectors: str | None = typer.Option(
+        None, "--vectors", help="Vector input: 'estimate' (default) or a field file (.json/.npz)."
+    ),
+    vector_qp: int = typer.Option(
+        27, "--vector-qp", help="QP of the estimated vectors, 0..51 (also sets the offsets' lambda)."
+    ),
     two_way: bool = typer.Option(False, "--two-way", help="Estimate vectors in both coding directions."),
-    params: Optional[Path] = typer.Option(None, "--params", help="Synthesis parameter file (JSON)."),
-    maker: str = typer.Option("lmmse", "--maker", help="Picture maker: lmmse, projection, weighted, obmc, average, dis-fast, dis-medium, farneback."),
-    maps: Optional[Path] = typer.Option(None, "--maps", help="Directory for PNG maps (created when missing)."),
+    params: Path | None = typer.Option(None, "--params", help="Synthesis parameter file (JSON)."),
+    maker: str = typer.Option(
+        "lmmse",
+        "--maker",
+        help="Picture maker: lmmse, projection, weighted, obmc, average, dis-fast, dis-medium, farneback.",
+    ),
+    maps: Path | None = typer.Option(None, "--maps", help="Directory for PNG maps (created when missing)."),
     as_json: bool = typer.Option(False, "--json", help="Print the summary as strict JSON."),
-    offsets: Optional[Path] = typer.Option(None, "--offsets", help="Also search corrective block offsets against picture --at and write them (.json)."),
+    offsets: Path | None = typer.Option(
+        None, "--offsets", help="Also search corrective block offsets against picture --at and write them (.json)."
+    ),
     offset_block: int = typer.Option(16, "--offset-block", help="Offset block size in luma samples (with --offsets)."),
-    offset_window: int = typer.Option(2, "--offset-window", help="Offset search range in luma samples, quarter-pel steps (with --offsets)."),
+    offset_window: int = typer.Option(
+        2, "--offset-window", help="Offset search range in luma samples, quarter-pel steps (with --offsets)."
+    ),
 ) -> None:
     """Make one picture between two pictures of a clip (default: from the vectors coded between them)."""
     from synth.commands.frame import format_frame, run_frame
@@ -164,10 +191,16 @@ def calibrate(
     clips: list[Path] = typer.Argument(..., help="Training clips (.y4m, or any video OpenCV decodes)."),
     output: Path = typer.Option(..., "--output", "-o", help="Parameter file to write (.json)."),
     gaps: str = typer.Option("2,4,8", "--gaps", help="Reference gaps, comma-separated even integers."),
-    pictures: str = typer.Option("0:32", "--pictures", help="Pictures of each clip used, FIRST:LAST (display numbers, both included; ':32', '8:')."),
+    pictures: str = typer.Option(
+        "0:32",
+        "--pictures",
+        help="Pictures of each clip used, FIRST:LAST (display numbers, both included; ':32', '8:').",
+    ),
     per_gap: int = typer.Option(3, "--per-gap", help="Target pictures per clip and reference gap."),
     vector_qp: int = typer.Option(27, "--vector-qp", help="QP of the estimated vectors, 0..51."),
-    params: Optional[Path] = typer.Option(None, "--params", help="Starting synthesis parameter file (default: built-in values)."),
+    params: Path | None = typer.Option(
+        None, "--params", help="Starting synthesis parameter file (default: built-in values)."
+    ),
     refine: bool = typer.Option(True, "--refine/--no-refine", help="Refine by maximising prediction PSNR."),
     evaluations: int = typer.Option(24, "--evaluations", help="Most parameter sets the refinement tries."),
     as_json: bool = typer.Option(False, "--json", help="Print the fit record as strict JSON."),
@@ -193,14 +226,26 @@ def offsets(
     future: int = typer.Option(..., "--future", help="Picture number of the future reference."),
     at: int = typer.Option(..., "--at", help="Picture number of the target (strictly between)."),
     output: Path = typer.Option(..., "--output", "-o", help="Offsets file to write (.json)."),
-    vectors: Optional[str] = typer.Option(None, "--vectors", help="Vector input: 'estimate' (default) or a field file (.json/.npz)."),
-    maker: str = typer.Option("lmmse", "--maker", help="Picture maker: lmmse, projection, weighted, obmc, average, dis-fast, dis-medium, farneback."),
-    vector_qp: int = typer.Option(27, "--vector-qp", help="QP of the estimated vectors, 0..51, and of the offsets' lambda."),
-    params: Optional[Path] = typer.Option(None, "--params", help="Synthesis parameter file (JSON)."),
-    offset_block: int = typer.Option(16, "--offset-block", help="Offset block size in luma samples (4, 8, 16, 32 or 64)."),
-    offset_window: int = typer.Option(2, "--offset-window", help="Offset search range in luma samples each way, 0..8 (quarter-pel steps)."),
+    vectors: str | None = typer.Option(
+        None, "--vectors", help="Vector input: 'estimate' (default) or a field file (.json/.npz)."
+    ),
+    maker: str = typer.Option(
+        "lmmse",
+        "--maker",
+        help="Picture maker: lmmse, projection, weighted, obmc, average, dis-fast, dis-medium, farneback.",
+    ),
+    vector_qp: int = typer.Option(
+        27, "--vector-qp", help="QP of the estimated vectors, 0..51, and of the offsets' lambda."
+    ),
+    params: Path | None = typer.Option(None, "--params", help="Synthesis parameter file (JSON)."),
+    offset_block: int = typer.Option(
+        16, "--offset-block", help="Offset block size in luma samples (4, 8, 16, 32 or 64)."
+    ),
+    offset_window: int = typer.Option(
+        2, "--offset-window", help="Offset search range in luma samples each way, 0..8 (quarter-pel steps)."
+    ),
     metric: str = typer.Option("satd", "--metric", help="Distortion: satd or sad."),
-    prediction: Optional[Path] = typer.Option(None, "--prediction", help="Also write the corrected prediction (.y4m)."),
+    prediction: Path | None = typer.Option(None, "--prediction", help="Also write the corrected prediction (.y4m)."),
     as_json: bool = typer.Option(False, "--json", help="Print the statistics as strict JSON."),
 ) -> None:
     """Corrective block offsets of a target picture on the picture a maker makes for it, and their bit cost."""
@@ -222,11 +267,15 @@ def export(
     gop_size: int = typer.Option(8, "--gop-size", help="Dyadic hierarchical GOP size: a power of two from 2 to 64."),
     output: Path = typer.Option(..., "-o", "--output", help="Output file: .y4m, or raw planar with --raw."),
     raw: bool = typer.Option(False, "--raw", help="Write raw planar samples (no header) instead of Y4M."),
-    sidecar: Optional[Path] = typer.Option(None, "--sidecar", help="Sidecar JSON path (default: OUTPUT + .json)."),
-    maker: str = typer.Option("lmmse", "--maker", help="Maker: lmmse, projection, weighted, obmc, average, dis-fast, dis-medium, farneback."),
-    vectors: Optional[str] = typer.Option(None, "--vectors", help="Vector input: 'estimate' (default) or a field file (.json/.npz)."),
-    vector_qp: Optional[int] = typer.Option(None, "--vector-qp", help="QP of the estimated vectors, 0..51 (default: 27)."),
-    params: Optional[Path] = typer.Option(None, "--params", help="Synthesis parameter file (JSON)."),
+    sidecar: Path | None = typer.Option(None, "--sidecar", help="Sidecar JSON path (default: OUTPUT + .json)."),
+    maker: str = typer.Option(
+        "lmmse", "--maker", help="Maker: lmmse, projection, weighted, obmc, average, dis-fast, dis-medium, farneback."
+    ),
+    vectors: str | None = typer.Option(
+        None, "--vectors", help="Vector input: 'estimate' (default) or a field file (.json/.npz)."
+    ),
+    vector_qp: int | None = typer.Option(None, "--vector-qp", help="QP of the estimated vectors, 0..51 (default: 27)."),
+    params: Path | None = typer.Option(None, "--params", help="Synthesis parameter file (JSON)."),
     as_json: bool = typer.Option(False, "--json", help="Print the summary as strict JSON."),
 ) -> None:
     """Synthetic reference pictures for every non-anchor picture of a hierarchical GOP, in display order."""
@@ -249,18 +298,32 @@ def rd(
     gaps: str = typer.Option("8", "--gaps", help="Comma-separated distances between the two references, e.g. 4,8."),
     qps: str = typer.Option("22,27,32,37", "--qps", help="Comma-separated encoder QPs (four or more)."),
     codec: str = typer.Option("h264", "--codec", help="h264 (x264) or hevc (x265)."),
-    makers: str = typer.Option("lmmse,dis-medium", "--makers", help="Comma-separated makers, one extra-reference configuration each; the first is the synthetic one (b, c, offsets): lmmse, projection, weighted, obmc, average, dis-fast, dis-medium, farneback."),
-    vectors: Optional[str] = typer.Option(None, "--vectors", help="Vector input: 'estimate' (default) or a field file (.json/.npz)."),
-    vector_qp: Optional[int] = typer.Option(None, "--vector-qp", help="QP of the estimated vectors, 0..51 (default: each point's encoder QP)."),
-    params: Optional[Path] = typer.Option(None, "--params", help="Synthesis parameter file (JSON)."),
+    makers: str = typer.Option(
+        "lmmse,dis-medium",
+        "--makers",
+        help="Comma-separated makers, one extra-reference configuration each; the first is the synthetic one (b, c, offsets): lmmse, projection, weighted, obmc, average, dis-fast, dis-medium, farneback.",
+    ),
+    vectors: str | None = typer.Option(
+        None, "--vectors", help="Vector input: 'estimate' (default) or a field file (.json/.npz)."
+    ),
+    vector_qp: int | None = typer.Option(
+        None, "--vector-qp", help="QP of the estimated vectors, 0..51 (default: each point's encoder QP)."
+    ),
+    params: Path | None = typer.Option(None, "--params", help="Synthesis parameter file (JSON)."),
     refs: str = typer.Option("decoded", "--refs", help="Make the extra references from decoded or source references."),
-    extra_qp: int = typer.Option(4, "--extra-qp", help="QP at which the extra reference picture is coded (bits not charged)."),
+    extra_qp: int = typer.Option(
+        4, "--extra-qp", help="QP at which the extra reference picture is coded (bits not charged)."
+    ),
     preset: str = typer.Option("medium", "--preset", help="Encoder speed preset."),
-    offsets: bool = typer.Option(False, "--offsets", help="Also run the offset search and measure its corrected picture."),
+    offsets: bool = typer.Option(
+        False, "--offsets", help="Also run the offset search and measure its corrected picture."
+    ),
     offset_block: int = typer.Option(16, "--offset-block", help="Offset block size in luma samples (with --offsets)."),
-    offset_window: int = typer.Option(2, "--offset-window", help="Offset search range in luma samples (with --offsets)."),
-    limit: Optional[int] = typer.Option(None, "--limit", help="Only the first N target pictures per clip and gap."),
-    report: Optional[Path] = typer.Option(None, "--report", help="Folder for rd.json, rd.csv and RD-curve PNGs."),
+    offset_window: int = typer.Option(
+        2, "--offset-window", help="Offset search range in luma samples (with --offsets)."
+    ),
+    limit: int | None = typer.Option(None, "--limit", help="Only the first N target pictures per clip and gap."),
+    report: Path | None = typer.Option(None, "--report", help="Folder for rd.json, rd.csv and RD-curve PNGs."),
     as_json: bool = typer.Option(False, "--json", help="Print the summary as strict JSON."),
 ) -> None:
     """Bits an extra reference saves a real encoder: BD-rate against the two real references."""
@@ -281,14 +344,28 @@ def rd(
 @app.command()
 def compare(
     clip: Path = typer.Argument(..., help="Clip file (.y4m, or any video OpenCV decodes)."),
-    gaps: Optional[str] = typer.Option(None, "--gaps", help="Comma-separated reference gaps, even integers (default: 8)."),
-    makers: Optional[str] = typer.Option(None, "--makers", help="Comma-separated makers: lmmse, projection, weighted, obmc, average, dis-fast, dis-medium, farneback (default: every maker)."),
-    vectors: Optional[str] = typer.Option(None, "--vectors", help="Vector input: 'estimate' (default) or a field file (.json/.npz)."),
-    vector_qp: Optional[str] = typer.Option(None, "--vector-qp", help="QP of the estimated vectors, 0..51, or a comma list for a sweep, e.g. 22,32,42 (default: 27)."),
+    gaps: str | None = typer.Option(None, "--gaps", help="Comma-separated reference gaps, even integers (default: 8)."),
+    makers: str | None = typer.Option(
+        None,
+        "--makers",
+        help="Comma-separated makers: lmmse, projection, weighted, obmc, average, dis-fast, dis-medium, farneback (default: every maker).",
+    ),
+    vectors: str | None = typer.Option(
+        None, "--vectors", help="Vector input: 'estimate' (default) or a field file (.json/.npz)."
+    ),
+    vector_qp: str | None = typer.Option(
+        None,
+        "--vector-qp",
+        help="QP of the estimated vectors, 0..51, or a comma list for a sweep, e.g. 22,32,42 (default: 27).",
+    ),
     two_way: bool = typer.Option(False, "--two-way", help="Estimate vectors in both coding directions."),
-    params: Optional[Path] = typer.Option(None, "--params", help="Synthesis parameter file (JSON)."),
-    pictures: Optional[str] = typer.Option(None, "--pictures", help="Pictures used, FIRST:LAST (display numbers, both included; ':32', '8:'). Default: the whole clip."),
-    report: Optional[Path] = typer.Option(None, "--report", help="Folder for report.html, results.json and results.csv."),
+    params: Path | None = typer.Option(None, "--params", help="Synthesis parameter file (JSON)."),
+    pictures: str | None = typer.Option(
+        None,
+        "--pictures",
+        help="Pictures used, FIRST:LAST (display numbers, both included; ':32', '8:'). Default: the whole clip.",
+    ),
+    report: Path | None = typer.Option(None, "--report", help="Folder for report.html, results.json and results.csv."),
     as_json: bool = typer.Option(False, "--json", help="Print the summary as strict JSON."),
 ) -> None:
     """Make every picture between references a gap apart with every maker and compare them."""
@@ -310,16 +387,40 @@ def gop(
     clip: Path = typer.Argument(..., help="Clip file (.y4m, or any video OpenCV decodes)."),
     gop_size: int = typer.Option(8, "--gop-size", help="GOP size: a power of two from 2 to 64."),
     flat: bool = typer.Option(False, "--flat", help="Make every picture straight from the two anchors (t = k/size)."),
-    decoded_refs: Optional[int] = typer.Option(None, "--decoded-refs", help="Take references from an H.264 encode/decode at this QP (0..51)."),
-    makers: Optional[str] = typer.Option(None, "--makers", help="Comma-separated makers: lmmse, projection, weighted, obmc, average, dis-fast, dis-medium, farneback (default: every maker)."),
-    vectors: Optional[str] = typer.Option(None, "--vectors", help="Vector input: 'estimate' (default) or a field file (.json/.npz)."),
-    vector_qp: Optional[str] = typer.Option(None, "--vector-qp", help="QP of the estimated vectors, 0..51, or a comma list for a sweep, e.g. 22,32,42 (default: 27)."),
+    decoded_refs: int | None = typer.Option(
+        None, "--decoded-refs", help="Take references from an H.264 encode/decode at this QP (0..51)."
+    ),
+    makers: str | None = typer.Option(
+        None,
+        "--makers",
+        help="Comma-separated makers: lmmse, projection, weighted, obmc, average, dis-fast, dis-medium, farneback (default: every maker).",
+    ),
+    vectors: str | None = typer.Option(
+        None, "--vectors", help="Vector input: 'estimate' (default) or a field file (.json/.npz)."
+    ),
+    vector_qp: str | None = typer.Option(
+        None,
+        "--vector-qp",
+        help="QP of the estimated vectors, 0..51, or a comma list for a sweep, e.g. 22,32,42 (default: 27).",
+    ),
     two_way: bool = typer.Option(False, "--two-way", help="Estimate vectors in both coding directions."),
-    params: Optional[Path] = typer.Option(None, "--params", help="Synthesis parameter file (JSON)."),
-    pictures: Optional[str] = typer.Option(None, "--pictures", help="Pictures used, FIRST:LAST (display numbers, both included; ':32', '8:'). Default: the whole clip."),
-    report: Optional[Path] = typer.Option(None, "--report", help="Folder for report.html, results.json and results.csv."),
-    export: Optional[Path] = typer.Option(None, "--export", help="Write the synthetic pictures (display order, no anchors) to this .y4m file, with a JSON sidecar."),
-    export_maker: Optional[str] = typer.Option(None, "--export-maker", help="Maker whose pictures --export writes (default: lmmse when run, else the first maker)."),
+    params: Path | None = typer.Option(None, "--params", help="Synthesis parameter file (JSON)."),
+    pictures: str | None = typer.Option(
+        None,
+        "--pictures",
+        help="Pictures used, FIRST:LAST (display numbers, both included; ':32', '8:'). Default: the whole clip.",
+    ),
+    report: Path | None = typer.Option(None, "--report", help="Folder for report.html, results.json and results.csv."),
+    export: Path | None = typer.Option(
+        None,
+        "--export",
+        help="Write the synthetic pictures (display order, no anchors) to this .y4m file, with a JSON sidecar.",
+    ),
+    export_maker: str | None = typer.Option(
+        None,
+        "--export-maker",
+        help="Maker whose pictures --export writes (default: lmmse when run, else the first maker).",
+    ),
     as_json: bool = typer.Option(False, "--json", help="Print the summary as strict JSON."),
 ) -> None:
     """Synthesise every B picture of a dyadic hierarchical GOP from its references; statistics per layer."""
@@ -339,7 +440,9 @@ def gop(
 
 @app.command()
 def demo(
-    report: Path = typer.Option(Path("synth-demo"), "--report", "-o", help="Folder for report.html, results.json and results.csv."),
+    report: Path = typer.Option(
+        Path("synth-demo"), "--report", "-o", help="Folder for report.html, results.json and results.csv."
+    ),
     as_json: bool = typer.Option(False, "--json", help="Print the summary as strict JSON."),
 ) -> None:
     """Run the main job on the bundled demo clips: GOP runs and comparisons, with a report."""
@@ -356,9 +459,15 @@ def demo(
 @app.command()
 def study(
     manifest: Path = typer.Argument(..., help="Study manifest (TOML; see README 'Studies')."),
-    output: Path = typer.Option(..., "--output", "-o", help="Study folder: job records, study.csv/json, report/. Reuse it to resume."),
-    workers: Optional[int] = typer.Option(None, "--workers", "-w", help="Local worker processes (default: CPU count; 1 runs in this process)."),
-    cluster: Optional[str] = typer.Option(None, "--cluster", help="Run on a Dask distributed scheduler, e.g. tcp://HOST:8786 (extra 'cluster')."),
+    output: Path = typer.Option(
+        ..., "--output", "-o", help="Study folder: job records, study.csv/json, report/. Reuse it to resume."
+    ),
+    workers: int | None = typer.Option(
+        None, "--workers", "-w", help="Local worker processes (default: CPU count; 1 runs in this process)."
+    ),
+    cluster: str | None = typer.Option(
+        None, "--cluster", help="Run on a Dask distributed scheduler, e.g. tcp://HOST:8786 (extra 'cluster')."
+    ),
     keep_failed: bool = typer.Option(False, "--keep-failed", help="Do not retry jobs recorded as failed."),
     plan: bool = typer.Option(False, "--plan", help="Validate, list the jobs and how many are done; run nothing."),
     as_json: bool = typer.Option(False, "--json", help="Print the summary as strict JSON."),
@@ -371,7 +480,9 @@ def study(
     if plan:
         summary = plan_rows(manifest, output)
     else:
-        summary = run_study_command(manifest, output, workers=workers, cluster=cluster, keep_failed=keep_failed, progress=Progress)
+        summary = run_study_command(
+            manifest, output, workers=workers, cluster=cluster, keep_failed=keep_failed, progress=Progress
+        )
         for note in summary["notes"]:
             typer.echo(f"synth: note: {note}", err=True)
         for f in summary["failures"]:

@@ -86,7 +86,7 @@ class VectorField:
         dy,
         intra=None,
         gaps_allowed: bool = False,
-    ) -> "VectorField":
+    ) -> VectorField:
         """Build a field from array-likes, broadcasting scalar sizes and casting dtypes."""
         x = np.asarray(x, dtype=np.int32).ravel()
         n = len(x)
@@ -112,7 +112,7 @@ class VectorField:
     @classmethod
     def uniform_grid(
         cls, width: int, height: int, *, block: int, coded_time: float, reference_time: float, dx=0, dy=0
-    ) -> "VectorField":
+    ) -> VectorField:
         """A regular grid of square `block`-sized blocks covering the picture exactly.
 
         The picture size must be a multiple of `block`. ``dx``/``dy`` may be scalars or arrays of

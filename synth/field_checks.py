@@ -15,7 +15,7 @@ Rules (each failure raises :class:`synth.errors.FormatError` naming the field an
 
 from __future__ import annotations
 
-from typing import Mapping, Sequence
+from collections.abc import Mapping, Sequence
 
 import numpy as np
 
@@ -157,7 +157,9 @@ def field_from_columns(
     ints = {c: _integer_column(label, c, columns[c], xs, ys) for c in COLUMNS[:-1]}
     for c, a in ints.items():
         if a.dtype.kind == "f":
-            raise FormatError(f"{label}: column {c} is stored as floating point ({a.dtype}); block values must be integers")
+            raise FormatError(
+                f"{label}: column {c} is stored as floating point ({a.dtype}); block values must be integers"
+            )
     intra = _intra_column(label, columns["intra"], n)
     field = VectorField(
         width, height, ct, rt,
@@ -206,7 +208,9 @@ def validate_field(field: VectorField, *, label: str = "field") -> None:
         bad = (s < MIN_BLOCK) | (s > MAX_BLOCK) | ((s & (s - 1)) != 0)
         if bad.any():
             i = first(bad)
-            raise FormatError(f"{where(i)}: block {name} must be a power of two from {MIN_BLOCK} to {MAX_BLOCK}, got {s[i]}")
+            raise FormatError(
+                f"{where(i)}: block {name} must be a power of two from {MIN_BLOCK} to {MAX_BLOCK}, got {s[i]}"
+            )
     outside = (x < 0) | (y < 0) | (x + w > W) | (y + h > H)
     if outside.any():
         i = first(outside)

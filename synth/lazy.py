@@ -7,7 +7,7 @@ access only, so ``import synth`` (and ``synth --help``) does not load OpenCV, Sc
 from __future__ import annotations
 
 import importlib
-from typing import Callable
+from collections.abc import Callable
 
 __all__ = ["lazy_exports"]
 

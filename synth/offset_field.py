@@ -83,8 +83,9 @@ class OffsetField(VectorField):
         return float(self.coded_time)
 
     @classmethod
-    def from_blocks(cls, *, width: int, height: int, time: float, x, y, w, h, dx, dy, intra=None,
-                    gaps_allowed: bool = False) -> OffsetField:
+    def from_blocks(
+        cls, *, width: int, height: int, time: float, x, y, w, h, dx, dy, intra=None, gaps_allowed: bool = False
+    ) -> OffsetField:
         """Build an offset field from array-likes at one `time` (scalar sizes are broadcast)."""
         return cls.from_arrays(
             width=width, height=height, coded_time=time, reference_time=time, x=x, y=y, w=w, h=h, dx=dx, dy=dy,
@@ -138,8 +139,13 @@ class OffsetStatistics:
         return {"block": self.block, "window": self.window, "metric": self.metric, "lambda": self.lagrangian}
 
 
-def offsets_document(field: OffsetField, *, statistics: OffsetStatistics | Mapping | None = None,
-                     settings: Mapping | None = None, extra: Mapping | None = None) -> dict:
+def offsets_document(
+    field: OffsetField,
+    *,
+    statistics: OffsetStatistics | Mapping | None = None,
+    settings: Mapping | None = None,
+    extra: Mapping | None = None,
+) -> dict:
     """The offsets document of an offset field (layout in the module docstring), strict-JSON ready.
 
     Parameters

@@ -92,7 +92,9 @@ class Picture:
                         f"must have shape {expected}, got {got}"
                     )
             if plane.dtype != dtype:
-                raise ParameterError(f"{name} plane of a {self.bit_depth}-bit picture must be {dtype}, got {plane.dtype}")
+                raise ParameterError(
+                    f"{name} plane of a {self.bit_depth}-bit picture must be {dtype}, got {plane.dtype}"
+                )
 
     # -- geometry -----------------------------------------------------------------------------
     @property
@@ -118,7 +120,7 @@ class Picture:
     def chroma_factors(self) -> tuple[int, int]:
         return chroma_factors(self.chroma_format)
 
-    def same_format(self, other: "Picture") -> bool:
+    def same_format(self, other: Picture) -> bool:
         """True when `other` has the same size, chroma format and bit depth."""
         return (
             self.y.shape == other.y.shape
@@ -134,7 +136,7 @@ class Picture:
     @classmethod
     def from_float(
         cls, planes: tuple[np.ndarray, ...] | list[np.ndarray], *, chroma_format: str, bit_depth: int
-    ) -> "Picture":
+    ) -> Picture:
         """Build a picture from float planes: round half up, clip to the sample range.
 
         NaN never reaches a picture: it raises `ParameterError`.
@@ -154,7 +156,7 @@ class Picture:
         return cls(out[0], out[1], out[2], chroma_format, bit_depth)
 
     @classmethod
-    def blank(cls, width: int, height: int, *, chroma_format: str = "420", bit_depth: int = 8) -> "Picture":
+    def blank(cls, width: int, height: int, *, chroma_format: str = "420", bit_depth: int = 8) -> Picture:
         """A mid-grey picture."""
         dtype = _sample_dtype(bit_depth)
         mid = 1 << (bit_depth - 1)

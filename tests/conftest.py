@@ -57,7 +57,9 @@ def carphone_crop():
             pics = []
             for i in range(n):
                 p = reader.read(i)
-                pics.append(Picture(p.y[40:104, 40:136].copy(), p.cb[20:52, 20:68].copy(), p.cr[20:52, 20:68].copy(), "420", 8))
+                pics.append(
+                    Picture(p.y[40:104, 40:136].copy(), p.cb[20:52, 20:68].copy(), p.cr[20:52, 20:68].copy(), "420", 8)
+                )
             cache[n] = pics
         return cache[n]
 

@@ -22,7 +22,9 @@ def crop(picture: Picture, *, x: int, y: int, width: int, height: int) -> Pictur
     return Picture(fy.copy(), cb.copy(), cr.copy(), "420", picture.bit_depth)
 
 
-def real_pictures(path: Path, indices, *, width: int = 128, height: int = 128, x: int = 24, y: int = 8) -> list[Picture]:
+def real_pictures(
+    path: Path, indices, *, width: int = 128, height: int = 128, x: int = 24, y: int = 8
+) -> list[Picture]:
     """Crops of the given pictures of a real clip."""
     reader = open_clip(path)
     try:
@@ -35,7 +37,9 @@ def write_real_crop(path: Path, out: Path, *, frames: int, width: int = 64, heig
     """Write the first `frames` pictures of a real clip, cropped, as a Y4M file."""
     reader = open_clip(path)
     try:
-        write_y4m(out, (crop(reader.read(i), x=48, y=32, width=width, height=height) for i in range(frames)), reader.info)
+        write_y4m(
+            out, (crop(reader.read(i), x=48, y=32, width=width, height=height) for i in range(frames)), reader.info
+        )
     finally:
         reader.close()
     return out

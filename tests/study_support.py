@@ -42,7 +42,11 @@ def study_clip_files(folder: Path) -> list[Path]:
     folder.mkdir(parents=True, exist_ok=True)
     out = []
     reader = open_clip(src)
-    for name, first, window in (("phone_a", 0, [0, 0, 176, 144]), ("phone_b", 40, [0, 0, 176, 144]), ("phone_c", 80, [0, 0, 176, 144])):
+    for name, first, window in (
+        ("phone_a", 0, [0, 0, 176, 144]),
+        ("phone_b", 40, [0, 0, 176, 144]),
+        ("phone_c", 80, [0, 0, 176, 144]),
+    ):
         path = folder / f"{name}.y4m"
         if not path.exists():
             view = ClipView(reader, pictures=[first, first + 16], window=window)
@@ -52,7 +56,15 @@ def study_clip_files(folder: Path) -> list[Path]:
     return out
 
 
-def write_manifest(path: Path, clips: list[Path], *, grid: str, window: str = "[0, 0, 64, 48]", pictures: str = "[0, 8]", extra: str = "") -> Path:
+def write_manifest(
+    path: Path,
+    clips: list[Path],
+    *,
+    grid: str,
+    window: str = "[0, 0, 64, 48]",
+    pictures: str = "[0, 8]",
+    extra: str = "",
+) -> Path:
     """A manifest running the cheap `blend` kind on `clips` (absolute paths)."""
     lines = ['title = "study test"']
     for c in clips:
@@ -88,4 +100,7 @@ def records(out: Path) -> dict[str, dict]:
 
 def run_logs(out: Path) -> list[list[dict]]:
     """Events of each run of a study folder, in run order."""
-    return [[json.loads(line) for line in p.read_text().splitlines() if line.strip()] for p in sorted((out / "runs").glob("*.jsonl"))]
+    return [
+        [json.loads(line) for line in p.read_text().splitlines() if line.strip()]
+        for p in sorted((out / "runs").glob("*.jsonl"))
+    ]

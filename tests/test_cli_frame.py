@@ -13,8 +13,8 @@ from typer.testing import CliRunner
 
 from synth import VectorField
 from synth.cli import app
-from synth.makers import MAKERS
 from synth.io import open_clip, rgb_to_ycbcr420, write_clip, write_fields
+from synth.makers import MAKERS
 
 
 @pytest.fixture(scope="module")
@@ -23,7 +23,10 @@ def pan_clip(tmp_path_factory):
 
     bgr = cv2.cvtColor(data.astronaut(), cv2.COLOR_RGB2BGR)
     # 4 samples right and 2 down per picture (even offsets keep 4:2:0 chroma exact)
-    pics = [rgb_to_ycbcr420(np.ascontiguousarray(bgr[150 - 2 * k : 246 - 2 * k, 200 - 4 * k : 328 - 4 * k])) for k in range(5)]
+    pics = [
+        rgb_to_ycbcr420(np.ascontiguousarray(bgr[150 - 2 * k : 246 - 2 * k, 200 - 4 * k : 328 - 4 * k]))
+        for k in range(5)
+    ]
     path = tmp_path_factory.mktemp("clip") / "pan.y4m"
     write_clip(path, pics)
     return path
@@ -61,7 +64,9 @@ def test_frame_estimates_vectors_and_prints_metrics(pan_clip, tmp_path):
     assert "PSNR           Y" in res.output and "SSIM (Y)" in res.output
     psnr_y = float(res.output.split("PSNR           Y ")[1].split(" dB")[0])
     assert psnr_y > 35
-    res = CliRunner().invoke(app, ["frame", str(pan_clip), "--past", "1", "--future", "3", "--t", "0.3", "-o", str(out)])
+    res = CliRunner().invoke(
+        app, ["frame", str(pan_clip), "--past", "1", "--future", "3", "--t", "0.3", "-o", str(out)]
+    )
     assert res.exit_code == 0, res.output
     assert "PSNR" not in res.output and "t = 0.3" in res.output
 
@@ -79,8 +84,10 @@ def test_frame_estimates_vectors_and_prints_metrics(pan_clip, tmp_path):
         (["--past", "0", "--future", "4", "--at", "2", "--vectors", "f.txt"], "--vectors must be 'estimate'"),
         (["--past", "0", "--future", "4", "--at", "2", "--offsets", "o.txt"], "--offsets must end in .json"),
         (["--past", "0", "--future", "4", "--t", "0.5", "--offsets", "o.json"], "--offsets needs --at"),
-        (["--past", "0", "--future", "4", "--at", "2", "--offsets", "o.json", "--offset-block", "12"],
-         "--offset-block must be one of"),
+        (
+            ["--past", "0", "--future", "4", "--at", "2", "--offsets", "o.json", "--offset-block", "12"],
+            "--offset-block must be one of",
+        ),
     ],
 )
 def test_frame_errors_are_one_line(pan_clip, tmp_path, args, message):
@@ -159,8 +166,10 @@ def test_json_is_strict_when_the_picture_is_exact(tmp_path):
 def test_outputs_are_checked_before_computing(pan_clip, tmp_path):
     a_file = tmp_path / "maps.txt"
     a_file.write_text("not a directory")
-    for extra, message in ((["-o", str(tmp_path / "x.png")], "--output must end in .y4m"),
-                           (["-o", str(tmp_path / "x.y4m"), "--maps", str(a_file)], "--maps must be a directory")):
+    for extra, message in (
+        (["-o", str(tmp_path / "x.png")], "--output must end in .y4m"),
+        (["-o", str(tmp_path / "x.y4m"), "--maps", str(a_file)], "--maps must be a directory"),
+    ):
         res = CliRunner().invoke(app, ["frame", str(pan_clip), "--past", "0", "--future", "4", "--at", "2", *extra])
         assert res.exit_code == 2 and message in res.output, res.output
         assert not (tmp_path / "x.y4m").exists()

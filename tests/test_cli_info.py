@@ -6,13 +6,12 @@ import json
 
 import numpy as np
 import pytest
+from conftest import DEMO_CLIPS
+from test_io_y4m import random_picture
 from typer.testing import CliRunner
 
 from synth.cli import app
 from synth.io import open_clip, write_yuv
-
-from conftest import DEMO_CLIPS
-from test_io_y4m import random_picture
 
 runner = CliRunner()
 

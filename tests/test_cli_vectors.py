@@ -20,7 +20,10 @@ def pan_clip(tmp_path_factory):
     from skimage import data
 
     bgr = cv2.cvtColor(data.astronaut(), cv2.COLOR_RGB2BGR)
-    pics = [rgb_to_ycbcr420(np.ascontiguousarray(bgr[100 + 2 * k : 196 + 2 * k, 80 + 3 * k : 208 + 3 * k])) for k in range(4)]
+    pics = [
+        rgb_to_ycbcr420(np.ascontiguousarray(bgr[100 + 2 * k : 196 + 2 * k, 80 + 3 * k : 208 + 3 * k]))
+        for k in range(4)
+    ]
     path = tmp_path_factory.mktemp("clip") / "pan.y4m"
     write_clip(path, pics)
     return path

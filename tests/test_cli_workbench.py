@@ -24,7 +24,18 @@ def small_y4m(carphone_crop, tmp_path_factory):
 
 
 def test_compare_writes_report_and_table(small_y4m, tmp_path):
-    proc = _synth("compare", small_y4m, "--gaps", "4,2", "--pictures", ":4", "--makers", "average,dis-fast", "--report", tmp_path / "rep")
+    proc = _synth(
+        "compare",
+        small_y4m,
+        "--gaps",
+        "4,2",
+        "--pictures",
+        ":4",
+        "--makers",
+        "average,dis-fast",
+        "--report",
+        tmp_path / "rep",
+    )
     assert proc.returncode == 0, proc.stderr
     assert "PSNR-YUV" in proc.stdout and "dis-fast" in proc.stdout and "report:" in proc.stdout
     doc = json.loads((tmp_path / "rep" / "results.json").read_text())
@@ -34,7 +45,19 @@ def test_compare_writes_report_and_table(small_y4m, tmp_path):
 
 
 def test_compare_json_is_strict_and_matches_the_report(small_y4m, tmp_path):
-    proc = _synth("compare", small_y4m, "--gaps", "2", "--pictures", "2:6", "--makers", "average", "--report", tmp_path / "rep", "--json")
+    proc = _synth(
+        "compare",
+        small_y4m,
+        "--gaps",
+        "2",
+        "--pictures",
+        "2:6",
+        "--makers",
+        "average",
+        "--report",
+        tmp_path / "rep",
+        "--json",
+    )
     assert proc.returncode == 0, proc.stderr
 
     def refuse(token):  # RFC 8259 has no Infinity / NaN
@@ -48,7 +71,9 @@ def test_compare_json_is_strict_and_matches_the_report(small_y4m, tmp_path):
 
 def test_gop_export_writes_a_clip(small_y4m, tmp_path):
     out = tmp_path / "synthetic.y4m"
-    proc = _synth("gop", small_y4m, "--gop-size", 4, "--makers", "average,obmc", "--export", out, "--export-maker", "obmc")
+    proc = _synth(
+        "gop", small_y4m, "--gop-size", 4, "--makers", "average,obmc", "--export", out, "--export-maker", "obmc"
+    )
     assert proc.returncode == 0, proc.stderr
     assert "layer" in proc.stdout and f"exported 6 synthetic pictures (obmc) to {out}" in proc.stdout
     assert len(open_clip(out)) == 6
@@ -83,9 +108,14 @@ def test_gop_export_writes_a_clip(small_y4m, tmp_path):
         (["compare", "missing.y4m"], "missing.y4m: no such file"),
         (["gop", "{clip}", "--gop-size", "4", "--export", "out.mp4"], "--export must name a .y4m file"),
         (["gop", "{clip}", "--gop-size", "4", "--export-maker", "obmc"], "--export-maker needs --export"),
-        (["gop", "{clip}", "--gop-size", "4", "--makers", "average", "--export", "o.y4m", "--export-maker", "lmmse"],
-         "--export-maker 'lmmse' is not among this run's methods: average"),
-        (["gop", "{clip}", "--gop-size", "4", "--decoded-refs", "60", "--makers", "average"], "--decoded-refs QP must be an integer 0..51, got 60"),
+        (
+            ["gop", "{clip}", "--gop-size", "4", "--makers", "average", "--export", "o.y4m", "--export-maker", "lmmse"],
+            "--export-maker 'lmmse' is not among this run's methods: average",
+        ),
+        (
+            ["gop", "{clip}", "--gop-size", "4", "--decoded-refs", "60", "--makers", "average"],
+            "--decoded-refs QP must be an integer 0..51, got 60",
+        ),
     ],
 )
 def test_errors_are_one_line(small_y4m, tmp_path, monkeypatch, args, message):
@@ -113,7 +143,9 @@ def test_demo_plan_and_a_reduced_demo_run(tmp_path):
     small[0].options.update(size=4, limit=5)
     small[1].options.update(gaps=[2], limit=5)
     seen = []
-    results, paths = run_demo(small, out=tmp_path / "demo", makers="average,dis-fast", progress=lambda d, t, label: seen.append((d, t)))
+    results, paths = run_demo(
+        small, out=tmp_path / "demo", makers="average,dis-fast", progress=lambda d, t, label: seen.append((d, t))
+    )
     assert [r.kind for r in results] == ["gop", "compare"]
     assert seen[-1] == (3 + 2, 3 + 2)  # one progress count over both runs
     doc = json.loads(paths["json"].read_text())

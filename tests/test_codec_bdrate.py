@@ -8,8 +8,8 @@ import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
-
 from realcrops import real_pictures
+
 from synth.codec.bdrate import bd_psnr, bd_rate
 from synth.codec.encode import encode_pictures
 from synth.errors import ParameterError
@@ -23,7 +23,9 @@ def _curve(pictures, **options):
     for qp in QPS:
         s = encode_pictures(pictures, qp=qp, **options)
         rates.append(sum(p.bits for p in s.pictures[1:]))
-        psnrs.append(float(np.mean([picture_psnr(p.reconstruction, q)["Y"] for p, q in zip(s.pictures[1:], pictures[1:])])))
+        psnrs.append(
+            float(np.mean([picture_psnr(p.reconstruction, q)["Y"] for p, q in zip(s.pictures[1:], pictures[1:])]))
+        )
     return np.array(rates, float), np.array(psnrs)
 
 

@@ -6,14 +6,23 @@ import numpy as np
 import pytest
 from scipy.linalg import hadamard
 
-from synth.errors import ParameterError
-from synth.expgolomb import se_codeword, se_length, ue_codeword, ue_length
 from synth.codec.offsets import offset_bits
 from synth.codec.satd import SATD_SCALE, block_sad, block_satd, hadamard_tiles, satd_tiles
-
+from synth.errors import ParameterError
+from synth.expgolomb import se_codeword, se_length, ue_codeword, ue_length
 
 # ITU-T H.264 (clause 9.1, Table 9-2): bit strings of the first ue(v) code numbers.
-H264_TABLE_9_2 = {0: "1", 1: "010", 2: "011", 3: "00100", 4: "00101", 5: "00110", 6: "00111", 7: "0001000", 8: "0001001"}
+H264_TABLE_9_2 = {
+    0: "1",
+    1: "010",
+    2: "011",
+    3: "00100",
+    4: "00101",
+    5: "00110",
+    6: "00111",
+    7: "0001000",
+    8: "0001001",
+}
 # ITU-T H.264 (clause 9.1.1, Table 9-3): se(v) value for code numbers 0, 1, 2, 3, 4, 5, 6.
 H264_TABLE_9_3 = {0: 0, 1: 1, 2: -1, 3: 2, 4: -2, 5: 3, 6: -3}
 

@@ -5,15 +5,13 @@ from __future__ import annotations
 import cv2
 import numpy as np
 import pytest
+from conftest import DEMO_CLIPS
 
 from synth import ParameterError
 from synth.demo.scenes import SCENES, render_scene, true_motion
 from synth.flow import sample_with_flow
 from synth.io import open_clip, write_clip
 from synth.picture import ClipInfo
-
-from conftest import DEMO_CLIPS
-
 
 #: Lowest PSNR-Y (dB) of a picture rendered by another OpenCV release against the committed one.
 #: OpenCV's anti-aliased text and line drawing changes between releases: measured for clips rendered
@@ -57,7 +55,9 @@ def _valid_pixels(flow: np.ndarray, back: np.ndarray) -> np.ndarray:
     h, w = flow.shape[:2]
     back_at = np.stack([sample_with_flow(back[..., c], flow, interpolation="nearest") for c in (0, 1)], axis=-1)
     ok = np.all(np.abs(flow + back_at) < 0.05, axis=-1)
-    grad = np.abs(np.diff(flow, axis=0, prepend=flow[:1])).sum(-1) + np.abs(np.diff(flow, axis=1, prepend=flow[:, :1])).sum(-1)
+    grad = np.abs(np.diff(flow, axis=0, prepend=flow[:1])).sum(-1) + np.abs(
+        np.diff(flow, axis=1, prepend=flow[:, :1])
+    ).sum(-1)
     ok &= ~(cv2.dilate((grad > 0.3).astype(np.uint8), np.ones((7, 7), np.uint8)) > 0)
     gx = np.arange(w) + flow[..., 0]
     gy = np.arange(h)[:, None] + flow[..., 1]

@@ -7,12 +7,12 @@ import io
 import av
 import numpy as np
 import pytest
-
 from realcrops import real_pictures, to_high_depth_422
+
 from synth.codec.encode import encode_pictures
+from synth.codec.rdmeasure import code_target
 from synth.errors import ParameterError
 from synth.metrics import picture_psnr
-from synth.codec.rdmeasure import code_target
 
 
 @pytest.fixture

@@ -7,8 +7,6 @@ import os
 import re
 import shutil
 import subprocess
-import sys
-from pathlib import Path
 
 import pytest
 
@@ -79,14 +77,26 @@ def test_json_csv_and_html_agree(report_dir):
         assert (value == "" and want is None) or float(value) == want
 
 
-@pytest.mark.skipif(CHROMIUM is None, reason="chromium is not installed (Debian package `chromium`; .ci/run installs it)")
+@pytest.mark.skipif(
+    CHROMIUM is None, reason="chromium is not installed (Debian package `chromium`; .ci/run installs it)"
+)
 def test_report_renders_in_headless_chromium(report_dir, tmp_path):
     page = tmp_path / "page.html"
     page.write_text((report_dir / "report.html").read_text().replace("</body>", CHECK_SCRIPT + "</body>"))
     cmd = [
-        CHROMIUM, "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
-        "--disable-background-networking", "--disable-component-update", "--disable-sync",
-        f"--user-data-dir={tmp_path / 'profile'}", "--virtual-time-budget=5000", "--dump-dom", page.as_uri(),
+        CHROMIUM,
+        "--headless",
+        "--no-sandbox",
+        "--disable-gpu",
+        "--disable-quic",
+        "--no-first-run",
+        "--disable-background-networking",
+        "--disable-component-update",
+        "--disable-sync",
+        f"--user-data-dir={tmp_path / 'profile'}",
+        "--virtual-time-budget=5000",
+        "--dump-dom",
+        page.as_uri(),
     ]
     proc = subprocess.run(cmd, capture_output=True, text=True, timeout=120)
     found = re.search(r'<pre id="synth-check">(.*?)</pre>', proc.stdout, re.S)
@@ -104,7 +114,7 @@ def test_report_renders_in_headless_chromium(report_dir, tmp_path):
             continue
         assert float(value) == want
         decimals = len(text.split(".")[1]) if "." in text else 0
-        assert abs(float(text) - want) <= 0.5 * 10 ** -decimals + 1e-12
+        assert abs(float(text) - want) <= 0.5 * 10**-decimals + 1e-12
 
 
 def test_identical_pictures_give_null_not_infinity(carphone_crop, tmp_path):

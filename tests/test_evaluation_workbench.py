@@ -7,9 +7,9 @@ import pytest
 from synth import ParameterError, VectorField
 from synth.evaluation.compare import compare_clip, compare_jobs
 from synth.evaluation.gop import export_maker_label, gop_jobs, run_gop
-from synth.metrics import picture_psnr
-from synth.makers.optical_flow import dis_flow
 from synth.evaluation.workbench import parse_vector_qps, summarise
+from synth.makers.optical_flow import dis_flow
+from synth.metrics import picture_psnr
 
 
 class BlockVectorsFromFlow:
@@ -36,7 +36,9 @@ class BlockVectorsFromFlow:
             blocks = flow.reshape(h // 16, 16, w // 16, 16, 2)
             med = np.median(blocks, axis=(1, 3))
             q = np.round(med * 4).astype(int) + (qp // 40)  # a coarser QP nudges the vectors
-            out.append(VectorField.uniform_grid(w, h, block=16, coded_time=tc, reference_time=tr, dx=q[..., 0], dy=q[..., 1]))
+            out.append(
+                VectorField.uniform_grid(w, h, block=16, coded_time=tc, reference_time=tr, dx=q[..., 0], dy=q[..., 1])
+            )
         return out
 
 
@@ -51,7 +53,11 @@ def test_compare_jobs_cover_every_picture_between_references():
         with pytest.raises(ParameterError, match=f"--gaps must be even integers of at least 2, got {bad}"):
             compare_jobs(10, [bad])
     # A picture range: display numbers start at `first`.
-    assert [(j.target, j.past, j.future) for j in compare_jobs(5, [4], first=8)] == [(9, 8, 12), (10, 8, 12), (11, 8, 12)]
+    assert [(j.target, j.past, j.future) for j in compare_jobs(5, [4], first=8)] == [
+        (9, 8, 12),
+        (10, 8, 12),
+        (11, 8, 12),
+    ]
 
 
 def test_compare_shares_vectors_and_repeats_vector_qps(carphone_crop):
@@ -178,4 +184,6 @@ def test_vector_file_and_picture_range(carphone_crop, tmp_path):
     assert [r["target"] for r in from_file.records] == [5, 6, 7]
     assert [r["psnr_yuv"] for r in from_file.records] == [r["psnr_yuv"] for r in estimated.records]
     with pytest.raises(ParameterError, match="--vector-qp takes one value"):
-        compare_clip(pics, gaps=[4], makers="obmc", vectors=parse_vector_source(str(path)), vector_qps="22,32", pictures=(4, 8))
+        compare_clip(
+            pics, gaps=[4], makers="obmc", vectors=parse_vector_source(str(path)), vector_qps="22,32", pictures=(4, 8)
+        )

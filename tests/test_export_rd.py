@@ -8,9 +8,9 @@ import json
 import matplotlib.image as mpimg
 import numpy as np
 import pytest
+from realcrops import to_high_depth_422, write_real_crop
 from typer.testing import CliRunner
 
-from realcrops import to_high_depth_422, write_real_crop
 from synth.cli import app
 from synth.codec.export import export_plan, hierarchy, write_reference_export
 from synth.codec.rdmeasure import measure_clip, parse_gaps, parse_qps, rd_targets, summarise_clips
@@ -34,7 +34,13 @@ def test_dyadic_hierarchy_of_a_gop_of_8():
     # conditions, common practice): 4 from (0, 8); 2, 6 from their halves; then the odd pictures.
     h = hierarchy(8)
     assert [(e.time, e.past, e.future, e.layer) for e in h] == [
-        (4, 0, 8, 1), (2, 0, 4, 2), (6, 4, 8, 2), (1, 0, 2, 3), (3, 2, 4, 3), (5, 4, 6, 3), (7, 6, 8, 3)
+        (4, 0, 8, 1),
+        (2, 0, 4, 2),
+        (6, 4, 8, 2),
+        (1, 0, 2, 3),
+        (3, 2, 4, 3),
+        (5, 4, 6, 3),
+        (7, 6, 8, 3),
     ]
     entries, uncovered = export_plan(20, 8)
     assert [e.time for e in entries] == [t for t in range(1, 17) if t % 8]
@@ -108,7 +114,9 @@ def test_export_command_line(crop_clip, tmp_path):
     r = runner.invoke(app, ["export", str(crop_clip), "--gop-size", "16", "-o", str(out), "--maker", "average"])
     assert r.exit_code == 2 and "needs 17 pictures" in r.output
     assert list(tmp_path.iterdir()) == [crop_clip]
-    r = runner.invoke(app, ["export", str(crop_clip), "--gop-size", "4", "-o", str(out), "--maker", "average", "--json"])
+    r = runner.invoke(
+        app, ["export", str(crop_clip), "--gop-size", "4", "-o", str(out), "--maker", "average", "--json"]
+    )
     assert r.exit_code == 0, r.output
     assert json.loads(r.stdout)["pictures"] == 6
 
@@ -148,8 +156,14 @@ def test_export_from_a_field_file_equals_export_from_the_same_estimated_fields(c
 def test_rd_measurement_rows_curves_and_bd(crop_clip):
     with open_clip(crop_clip) as reader:
         res = measure_clip(
-            reader.read, len(reader), clip="crop", gap=8, qps=[24, 30, 36, 42], makers=resolve_makers("average"),
-            offsets={"block": 16, "window": 1}, limit=2,
+            reader.read,
+            len(reader),
+            clip="crop",
+            gap=8,
+            qps=[24, 30, 36, 42],
+            makers=resolve_makers("average"),
+            offsets={"block": 16, "window": 1},
+            limit=2,
         )
     assert res.reference_mismatches == 0  # the decoded references of every stream are the same
     configs = {r["config"] for r in res.rows}
@@ -171,8 +185,17 @@ def test_rd_measurement_rows_curves_and_bd(crop_clip):
 
 def test_rd_records_the_fields_of_vector_makers(crop_clip):
     with open_clip(crop_clip) as reader:
-        res = measure_clip(reader.read, len(reader), clip="crop", gap=8, qps=[24, 30, 36, 42],
-                           makers=resolve_makers("lmmse"), refs="source", limit=1, only_extra=False)
+        res = measure_clip(
+            reader.read,
+            len(reader),
+            clip="crop",
+            gap=8,
+            qps=[24, 30, 36, 42],
+            makers=resolve_makers("lmmse"),
+            refs="source",
+            limit=1,
+            only_extra=False,
+        )
     assert {r["config"] for r in res.rows} == {"real", "real+lmmse"}
     # vectors estimated at each point's encoder QP (no --vector-qp), future coded against past
     assert [(f["qp"], f["fields"][0]["qp"]) for f in res.fields] == [(q, q) for q in (24, 30, 36, 42)]
@@ -192,7 +215,12 @@ def test_rd_command_writes_json_csv_and_plots(crop_clip, tmp_path):
     with open(rep / "rd.csv") as fh:
         rows = list(csv.DictReader(fh))
     # (d): optical-flow interpolation (OpenCV DIS, medium preset) as the third reference
-    assert len(rows) == 4 * 4 and {r["config"] for r in rows} == {"real", "real+average", "average-only", "real+dis-medium"}
+    assert len(rows) == 4 * 4 and {r["config"] for r in rows} == {
+        "real",
+        "real+average",
+        "average-only",
+        "real+dis-medium",
+    }
     img = mpimg.imread(rep / "rd_crop.png")
     assert img.shape[0] > 100 and img.shape[1] > 100
 
@@ -200,8 +228,15 @@ def test_rd_command_writes_json_csv_and_plots(crop_clip, tmp_path):
 def test_rd_over_several_gaps(crop_clip, tmp_path):
     calls = []
     rep = tmp_path / "rep"
-    summary = run_rd([crop_clip], gaps="2,4", qps="24,30,36,42", makers="average", limit=1, report=rep,
-                     progress=lambda d, t, label: calls.append((d, t)))
+    summary = run_rd(
+        [crop_clip],
+        gaps="2,4",
+        qps="24,30,36,42",
+        makers="average",
+        limit=1,
+        report=rep,
+        progress=lambda d, t, label: calls.append((d, t)),
+    )
     assert [(c["gap"], c["targets"]) for c in summary["clips"]] == [(2, 1), (4, 1)]
     assert set(summary["gaps"]) == {"2", "4"}
     assert calls[-1] == (8, 8)  # 2 gaps x 1 target x 4 QPs, counted over the whole run
@@ -211,8 +246,10 @@ def test_rd_over_several_gaps(crop_clip, tmp_path):
 
 def test_rd_command_line(crop_clip, tmp_path):
     _cli_has("rd", "--makers")
-    r = runner.invoke(app, ["rd", str(crop_clip), "--gaps", "8", "--qps", "24,30,36,42", "--makers", "average",
-                            "--limit", "1", "--json"])
+    r = runner.invoke(
+        app,
+        ["rd", str(crop_clip), "--gaps", "8", "--qps", "24,30,36,42", "--makers", "average", "--limit", "1", "--json"],
+    )
     assert r.exit_code == 0, r.output
     doc = json.loads(r.stdout)
     assert doc["settings"]["makers"] == ["average"] and "real+average" in doc["average"]

@@ -96,7 +96,11 @@ MALFORMED = [
     ("fractional vector", _mutate_block(1, 4, 1.5), r"block 1 \(x=16, y=0\): dx must be an integer, got 1.5"),
     ("NaN vector", _mutate_block(3, 5, float("nan")), r"block 3 \(x=16, y=8\): dy must be a finite integer, got nan"),
     ("text vector", _mutate_block(0, 4, "7"), r"block 0 \(x=0, y=0\): dx must be an integer, got '7'"),
-    ("far vector", _mutate_block(1, 4, 4 * 17 + 1), r"block 1 \(x=16, y=0, 8x8\): vector \(dx=69, dy=7\) .*further than"),
+    (
+        "far vector",
+        _mutate_block(1, 4, 4 * 17 + 1),
+        r"block 1 \(x=16, y=0, 8x8\): vector \(dx=69, dy=7\) .*further than",
+    ),
     ("far up", _mutate_block(0, 5, -4 * 16 - 1), r"block 0 .*vector \(dx=5, dy=-65\) quarter samples points further"),
 ]
 

@@ -6,6 +6,7 @@ from fractions import Fraction
 
 import numpy as np
 import pytest
+from test_io_y4m import PIX_FMT, av_planes, random_picture
 
 from synth import FormatError, ParameterError, Picture
 from synth.io import (
@@ -17,8 +18,6 @@ from synth.io import (
     write_y4m,
     write_yuv,
 )
-
-from test_io_y4m import PIX_FMT, av_planes, random_picture
 
 av = pytest.importorskip("av")
 
@@ -56,8 +55,10 @@ def test_raw_file_holds_the_y4m_samples_without_headers(tmp_path):
     "name,expected",
     [
         ("foo_1920x1080_50.yuv", {"width": 1920, "height": 1080, "frame_rate": Fraction(50)}),
-        ("Hall_1920x1080_50_10bit_422.yuv", {"width": 1920, "height": 1080, "frame_rate": Fraction(50), "bit_depth": 10,
-                                              "chroma_format": "422"}),
+        (
+            "Hall_1920x1080_50_10bit_422.yuv",
+            {"width": 1920, "height": 1080, "frame_rate": Fraction(50), "bit_depth": 10, "chroma_format": "422"},
+        ),
         ("belt_416x240_29.97fps.yuv", {"width": 416, "height": 240, "frame_rate": Fraction(30000, 1001)}),
         ("cam_yuv420p10le_352x288.yuv", {"width": 352, "height": 288, "bit_depth": 10, "chroma_format": "420"}),
         ("depth_64x48_gray.yuv", {"width": 64, "height": 48, "chroma_format": "mono"}),
@@ -97,7 +98,12 @@ def test_parse_size():
     "name,content,options,match",
     [
         ("c_8x4.yuv", b"", {}, "file is empty"),
-        ("c_8x4.yuv", bytes(48 * 3 - 5), {}, r"file size 139 bytes is not a multiple of the frame size 48 bytes .*2 whole frames and 43 bytes left over"),
+        (
+            "c_8x4.yuv",
+            bytes(48 * 3 - 5),
+            {},
+            r"file size 139 bytes is not a multiple of the frame size 48 bytes .*2 whole frames and 43 bytes left over",
+        ),
         ("nosize.yuv", bytes(48), {}, "needs its size"),
         ("c_7x4.yuv", bytes(48), {}, "4:2:0 needs an even width and height, got 7x4"),
         ("c_8x4.yuv", bytes(48), {"chroma_format": "411"}, "chroma format must be one of"),

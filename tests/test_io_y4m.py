@@ -39,7 +39,9 @@ def random_picture(rng, width, height, chroma_format="420", bit_depth=8) -> Pict
     cs = chroma_shape(height, width, chroma_format)
     if cs is None:
         return Picture(y, None, None, "mono", bit_depth)
-    return Picture(y, rng.integers(0, top, cs).astype(dtype), rng.integers(0, top, cs).astype(dtype), chroma_format, bit_depth)
+    return Picture(
+        y, rng.integers(0, top, cs).astype(dtype), rng.integers(0, top, cs).astype(dtype), chroma_format, bit_depth
+    )
 
 
 def av_planes(frame) -> list[np.ndarray]:
@@ -101,7 +103,9 @@ def test_pyav_decodes_our_y4m_to_identical_planes(tmp_path, chroma_format, bit_d
         assert c.streams.video[0].average_rate == Fraction(30000, 1001)
 
 
-@pytest.mark.parametrize("chroma_format,bit_depth", [("420", 8), ("422", 8), ("444", 8), ("420", 10), ("444", 12), ("mono", 10)])
+@pytest.mark.parametrize(
+    "chroma_format,bit_depth", [("420", 8), ("422", 8), ("444", 8), ("420", 10), ("444", 12), ("mono", 10)]
+)
 def test_y4m_written_by_pyav_reads_back_identically(tmp_path, chroma_format, bit_depth):
     # Reference: FFmpeg's YUV4MPEG2 muxer (yuv4mpegenc.c), through PyAV.
     rng = np.random.default_rng(2)
@@ -123,7 +127,9 @@ def test_y4m_written_by_pyav_reads_back_identically(tmp_path, chroma_format, bit
 
 
 def test_header_grammar_all_tags():
-    info = parse_y4m_header(b"YUV4MPEG2 W720 H576 F30000:1001 Ib A128:117 C420mpeg2 XYSCSS=420MPEG2 XCOLORRANGE=LIMITED Xflag")
+    info = parse_y4m_header(
+        b"YUV4MPEG2 W720 H576 F30000:1001 Ib A128:117 C420mpeg2 XYSCSS=420MPEG2 XCOLORRANGE=LIMITED Xflag"
+    )
     assert (info.width, info.height) == (720, 576)
     assert info.frame_rate == Fraction(30000, 1001)
     assert info.interlacing == "b"
@@ -133,7 +139,12 @@ def test_header_grammar_all_tags():
     # writing the header back gives the same tags
     again = parse_y4m_header(format_y4m_header(info).rstrip(b"\n"))
     assert (again.frame_rate, again.interlacing, again.pixel_aspect, again.chroma_siting, again.extra) == (
-        info.frame_rate, info.interlacing, info.pixel_aspect, info.chroma_siting, info.extra)
+        info.frame_rate,
+        info.interlacing,
+        info.pixel_aspect,
+        info.chroma_siting,
+        info.extra,
+    )
 
 
 def test_header_defaults_and_unknown_values():
@@ -146,17 +157,29 @@ def test_header_defaults_and_unknown_values():
 
 @pytest.mark.parametrize(
     "tag,fmt,depth",
-    [("C420", "420", 8), ("C420paldv", "420", 8), ("C422", "422", 8), ("C444", "444", 8), ("Cmono", "mono", 8),
-     ("C420p9", "420", 9), ("C420p10", "420", 10), ("C422p12", "422", 12), ("C444p14", "444", 14),
-     ("C444p16", "444", 16), ("Cmono16", "mono", 16)],
+    [
+        ("C420", "420", 8),
+        ("C420paldv", "420", 8),
+        ("C422", "422", 8),
+        ("C444", "444", 8),
+        ("Cmono", "mono", 8),
+        ("C420p9", "420", 9),
+        ("C420p10", "420", 10),
+        ("C422p12", "422", 12),
+        ("C444p14", "444", 14),
+        ("C444p16", "444", 16),
+        ("Cmono16", "mono", 16),
+    ],
 )
 def test_chroma_tags(tag, fmt, depth):
     info = parse_y4m_header(f"YUV4MPEG2 W16 H8 {tag}".encode())
     assert (info.chroma_format, info.bit_depth) == (fmt, depth)
 
 
-@pytest.mark.parametrize("chroma_format,bit_depth", [("420", 8), ("422", 8), ("444", 8), ("mono", 8), ("420", 10),
-                                                     ("422", 12), ("444", 16), ("mono", 10)])
+@pytest.mark.parametrize(
+    "chroma_format,bit_depth",
+    [("420", 8), ("422", 8), ("444", 8), ("mono", 8), ("420", 10), ("422", 12), ("444", 16), ("mono", 10)],
+)
 def test_round_trip_every_format(tmp_path, chroma_format, bit_depth):
     rng = np.random.default_rng(3)
     pics = [random_picture(rng, 20, 6, chroma_format, bit_depth) for _ in range(4)]
@@ -249,8 +272,15 @@ def test_pictures_own_their_samples(tmp_path):
 
 def test_writer_header_carries_clip_metadata(tmp_path):
     pic = Picture.blank(16, 8)
-    info = ClipInfo(16, 8, frame_rate=Fraction(50), interlacing="t", pixel_aspect=Fraction(16, 15),
-                    chroma_siting="420paldv", extra={"COLORRANGE": "LIMITED"})
+    info = ClipInfo(
+        16,
+        8,
+        frame_rate=Fraction(50),
+        interlacing="t",
+        pixel_aspect=Fraction(16, 15),
+        chroma_siting="420paldv",
+        extra={"COLORRANGE": "LIMITED"},
+    )
     path = tmp_path / "meta.y4m"
     write_y4m(path, [pic], info)
     assert path.read_bytes().split(b"\n")[0] == b"YUV4MPEG2 W16 H8 F50:1 It A16:15 C420paldv XCOLORRANGE=LIMITED"
@@ -360,7 +390,24 @@ def mutated_headers(draw):
         elif kind == "delete":
             del data[pos : pos + draw(st.integers(1, 6))]
         else:
-            token = draw(st.sampled_from([b" W", b" H0", b" C", b" F1:0", b" A:", b" I", b" X", b" C444p", b" W99999999999", b" F-1:2", b"  ", b" \xff"]))
+            token = draw(
+                st.sampled_from(
+                    [
+                        b" W",
+                        b" H0",
+                        b" C",
+                        b" F1:0",
+                        b" A:",
+                        b" I",
+                        b" X",
+                        b" C444p",
+                        b" W99999999999",
+                        b" F-1:2",
+                        b"  ",
+                        b" \xff",
+                    ]
+                )
+            )
             data[pos:pos] = token
     return bytes(data)
 

@@ -8,9 +8,9 @@ import scipy.ndimage
 import skimage.data
 
 from synth import ParameterError, Picture, VectorField
-from synth.metrics import plane_psnr
 from synth.makers import MAKERS, Prediction, get_maker, resolve_makers
 from synth.makers.optical_flow import dis_flow
+from synth.metrics import plane_psnr
 
 # Displacement of the content from the past to the future picture, luma samples (x, y).
 MOTION = (3.5, -2.25)
@@ -57,7 +57,10 @@ def test_dis_interpolates_a_subpixel_translation_of_a_photograph(translated_trip
     flow = dis_flow(past.y, future.y, preset="medium")
     assert np.median(flow[..., 0]) == pytest.approx(MOTION[0], abs=0.1)
     assert np.median(flow[..., 1]) == pytest.approx(MOTION[1], abs=0.1)
-    results = {n: _interior_psnr(get_maker(n)(past, future, t=0.5).picture, middle) for n in ("dis-fast", "dis-medium", "average")}
+    results = {
+        n: _interior_psnr(get_maker(n)(past, future, t=0.5).picture, middle)
+        for n in ("dis-fast", "dis-medium", "average")
+    }
     # Measured: dis-fast 40.9 dB, dis-medium 41.3 dB, average 21.1 dB; with the flow signs flipped
     # the interpolation falls to 17.6 dB, so 38 dB can only be reached with the right signs.
     assert results["dis-medium"] > 38.0
@@ -93,7 +96,11 @@ def test_obmc_with_true_vectors_reproduces_the_middle(translated_triplet):
 
 def test_average_and_input_checks():
     rng = np.random.default_rng(0)
-    a = Picture.from_float([rng.uniform(0, 255, (16, 16)), rng.uniform(0, 255, (8, 8)), rng.uniform(0, 255, (8, 8))], chroma_format="420", bit_depth=8)
+    a = Picture.from_float(
+        [rng.uniform(0, 255, (16, 16)), rng.uniform(0, 255, (8, 8)), rng.uniform(0, 255, (8, 8))],
+        chroma_format="420",
+        bit_depth=8,
+    )
     b = Picture.blank(16, 16)
     avg = get_maker("average")
     # (1 - t) past + t future (common practice): at t = 1/4 every sample is 3/4 a + 1/4 b, rounded.

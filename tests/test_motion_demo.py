@@ -11,14 +11,13 @@ used at every QP, so the block sizes the rate constraint chooses show up in the 
 import cv2
 import numpy as np
 import pytest
+from conftest import DEMO_CLIPS
 
 from synth import estimate_field
-from synth.motion.compensate import vector_maps
 from synth.demo.scenes import true_motion
-from synth.motion.rate import field_vector_bits
 from synth.io import open_clip
-
-from conftest import DEMO_CLIPS
+from synth.motion.compensate import vector_maps
+from synth.motion.rate import field_vector_bits
 
 
 def _cells(a: np.ndarray, s: int = 16) -> np.ndarray:

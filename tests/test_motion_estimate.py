@@ -37,7 +37,9 @@ def test_integer_translation_found_exactly(shift, sizes):
     sx, sy = shift
     ref = img[40:296, 60:380]
     cod = img[40 + sy : 296 + sy, 60 + sx : 380 + sx]  # content of cod at (x, y) is at (x+sx, y+sy) on ref
-    f = estimate_field(_mono(cod), _mono(ref), coded_time=1, reference_time=0, qp=22, search_range=16, block_sizes=sizes)
+    f = estimate_field(
+        _mono(cod), _mono(ref), coded_time=1, reference_time=0, qp=22, search_range=16, block_sizes=sizes
+    )
     tex = _textured(f, cod)
     # away from the picture edge, where the content left the reference
     inner = (f.x >= 16) & (f.y >= 16) & (f.x + f.w <= cod.shape[1] - 16) & (f.y + f.h <= cod.shape[0] - 16)

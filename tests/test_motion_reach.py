@@ -25,7 +25,9 @@ def test_translation_of_100_samples_is_found_on_textured_blocks():
     sx, sy = -100, 40  # content of cod at (x, y) is at (x + sx, y + sy) on ref
     ref = img[150:406, 150:450]
     cod = img[150 + sy : 406 + sy, 150 + sx : 450 + sx]
-    f = estimate_field(_mono(cod), _mono(ref), coded_time=8, reference_time=0, qp=22, search_range=128, block_sizes=(16,))
+    f = estimate_field(
+        _mono(cod), _mono(ref), coded_time=8, reference_time=0, qp=22, search_range=128, block_sizes=(16,)
+    )
     tex = np.array([cod[y : y + 16, x : x + 16].std() > 12 for x, y in zip(f.x, f.y)])
     # blocks whose content is inside the reference, away from its edge
     inner = (f.x + sx >= 8) & (f.y + sy + 16 <= ref.shape[0] - 8) & (f.x + sx + 16 <= ref.shape[1] - 8)

@@ -12,13 +12,12 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from study_support import study_clip_files
 
 from synth.errors import ParameterError
 from synth.io import open_clip
 from synth.study import get_kind, load_manifest, run_study
 from synth.study.clipsource import ClipView
-
-from study_support import study_clip_files
 
 
 @pytest.fixture(scope="module")
@@ -62,13 +61,26 @@ def test_rd_kind_passes_the_measurement_through(clip, tmp_path):
     assert not outcome.failed
     doc = json.loads((tmp_path / "out" / "study.json").read_text())
     view = ClipView(open_clip(clip), pictures=[0, 2], window=[0, 0, 64, 48])
-    direct = measure_clip(view.read, len(view), clip="x", gap=2, qps=[22, 27, 32, 37], makers=resolve_makers("average"),
-                          preset="ultrafast", limit=1)
+    direct = measure_clip(
+        view.read,
+        len(view),
+        clip="x",
+        gap=2,
+        qps=[22, 27, 32, 37],
+        makers=resolve_makers("average"),
+        preset="ultrafast",
+        limit=1,
+    )
     bd = direct.bd()
     assert {r["config"] for r in direct.rows} == {"real", "real+average", "average-only"}
     assert len(doc["rows"]) == len(direct.rows) > 0
     for got, want in zip(doc["rows"], direct.rows):
-        assert (got["config"], got["qp"], got["bits"], got["psnr_y"]) == (want["config"], want["qp"], want["bits"], want["psnr_y"])
+        assert (got["config"], got["qp"], got["bits"], got["psnr_y"]) == (
+            want["config"],
+            want["qp"],
+            want["bits"],
+            want["psnr_y"],
+        )
         if want["config"] != "real":
             assert got["bd_rate"] == pytest.approx(bd[want["config"]]["bd_rate"], abs=1e-12)
     # The tables split by configuration and QP: one mean per (config, qp).

@@ -10,13 +10,12 @@ import itertools
 from pathlib import Path
 
 import pytest
+from study_support import study_clip_files
 from typer.testing import CliRunner
 
 from synth.cli import app
 from synth.errors import FormatError, ParameterError
 from synth.study import load_manifest
-
-from study_support import study_clip_files
 
 
 @pytest.fixture(scope="module")
@@ -73,15 +72,21 @@ BAD = [
     ('[[tasks]]\nkind = "blend"\ngrid = { gap = [2, "four"] }\n', "tasks[0].grid.gap[1]: expected an integer"),
     ('[[tasks]]\nkind = "blend"\ngrid = { gap = 2 }\n', "tasks[0].grid.gap: expected a list of values"),
     ('[[tasks]]\nkind = "blend"\ngrid = { gap = [] }\n', "tasks[0].grid.gap: expected a non-empty list"),
-    ('[[tasks]]\nkind = "blend"\ngrid = { gap = [2, { a = 1 }] }\n', "tasks[0].grid.gap[1]: expected a string, number or true/false"),
+    (
+        '[[tasks]]\nkind = "blend"\ngrid = { gap = [2, { a = 1 }] }\n',
+        "tasks[0].grid.gap[1]: expected a string, number or true/false",
+    ),
     ('[[tasks]]\nkind = "blend"\ngrid = { gap = [1] }\n', "tasks[0].grid.gap[0]: must be at least 2"),
     ('[[tasks]]\nkind = "blend"\ngrid = { method = ["linear", "cubic"] }\n', "tasks[0].grid.method[1]: must be one of"),
     ('[[tasks]]\nkind = "blend"\ngrid = { gapp = [2] }\n', "tasks[0].grid.gapp: unknown parameter"),
     ('[[tasks]]\nkind = "blend"\nfixed = { gap = 2.5 }\n', "tasks[0].fixed.gap: expected an integer"),
-    ('[[tasks]]\nkind = "blend"\ngrid = { gap = [2] }\nfixed = { gap = 2 }\n', "tasks[0].fixed.gap: is also in the grid"),
+    (
+        '[[tasks]]\nkind = "blend"\ngrid = { gap = [2] }\nfixed = { gap = 2 }\n',
+        "tasks[0].fixed.gap: is also in the grid",
+    ),
     ('[[tasks]]\nkind = "interpolate"\n', "tasks[0].kind: unknown job kind 'interpolate'"),
     ('[[tasks]]\nkind = "blend"\nclips = ["nothing*"]\n', "tasks[0].clips[0]: 'nothing*' names no clip"),
-    ('[[tasks]]\ngrid = { gap = [2] }\n', "tasks[0].kind: missing"),
+    ("[[tasks]]\ngrid = { gap = [2] }\n", "tasks[0].kind: missing"),
 ]
 
 
@@ -110,9 +115,24 @@ def test_bad_clip_entries(tmp_path, clips):
     (tmp_path / "dock.yuv").write_bytes(bytes(64 * 48 * 3 // 2))
     cases.append(('[[clips]]\npath = "dock.yuv"\n', "clips[0].raw.width: missing"))
     cases.append(('[[clips]]\npath = "dock.yuv"\nraw = { width = 64 }\n', "clips[0].raw.height: missing"))
-    cases.append(('[[clips]]\npath = "dock.yuv"\nraw = { width = 64, height = 48, depth = 8 }\n', "clips[0].raw.depth: unknown key"))
-    cases.append(('[[clips]]\npath = "dock.yuv"\nraw = { width = 64, height = 48, chroma = "411" }\n', "clips[0].raw.chroma: expected one of"))
-    cases.append((f'[[clips]]\npath = "{clips[0]}"\nraw = {{ width = 64, height = 48 }}\n', "clips[0].raw: only for raw .yuv files"))
+    cases.append(
+        (
+            '[[clips]]\npath = "dock.yuv"\nraw = { width = 64, height = 48, depth = 8 }\n',
+            "clips[0].raw.depth: unknown key",
+        )
+    )
+    cases.append(
+        (
+            '[[clips]]\npath = "dock.yuv"\nraw = { width = 64, height = 48, chroma = "411" }\n',
+            "clips[0].raw.chroma: expected one of",
+        )
+    )
+    cases.append(
+        (
+            f'[[clips]]\npath = "{clips[0]}"\nraw = {{ width = 64, height = 48 }}\n',
+            "clips[0].raw: only for raw .yuv files",
+        )
+    )
     for body, key in cases:
         path = _write(tmp_path, body + task)
         with pytest.raises(ParameterError) as info:
@@ -134,7 +154,9 @@ def test_unavailable_kind_is_rejected_before_any_job(tmp_path, clips):
         raise AssertionError("an unavailable kind must not run")
 
     register_kind(
-        JobKind("unbuilt", never, available=lambda: "job kind 'unbuilt' is not available yet: synth.unbuilt is missing"),
+        JobKind(
+            "unbuilt", never, available=lambda: "job kind 'unbuilt' is not available yet: synth.unbuilt is missing"
+        ),
         replace=True,
     )
     path = _write(tmp_path, _clip_block(clips[:1]) + '[[tasks]]\nkind = "unbuilt"\n')
@@ -167,6 +189,8 @@ def test_cli_bad_manifest_one_line_exit_2_and_no_job(tmp_path, clips, body, key)
 def test_raw_geometry_is_completed_from_the_file_name(tmp_path):
     # WxH in the name, as raw YUV files are commonly named (common practice); the rest defaults.
     (tmp_path / "dock_64x48_10bit.yuv").write_bytes(bytes(64 * 48 * 3))
-    path = _write(tmp_path, '[[clips]]\npath = "dock_64x48_10bit.yuv"\nraw = { rate = "30/1" }\n[[tasks]]\nkind = "blend"\n')
+    path = _write(
+        tmp_path, '[[clips]]\npath = "dock_64x48_10bit.yuv"\nraw = { rate = "30/1" }\n[[tasks]]\nkind = "blend"\n'
+    )
     (clip,) = load_manifest(path).clips
     assert clip.options["raw"] == {"width": 64, "height": 48, "chroma": "420", "bit_depth": 10, "rate": "30/1"}

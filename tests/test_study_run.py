@@ -18,6 +18,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from study_support import records, run_logs, study_clip_files, synth_command, write_manifest
 from typer.testing import CliRunner
 
 from synth.cli import app
@@ -25,8 +26,6 @@ from synth.io import open_clip
 from synth.study import LocalExecutor, load_manifest, plan_study, run_study
 from synth.study.jobs import ClipHasher, code_version
 from synth.study.worker import execute_job
-
-from study_support import records, run_logs, study_clip_files, synth_command, write_manifest
 
 GRID = '{ gap = [2, 4], method = ["linear", "nearest", "past"] }'
 
@@ -159,13 +158,23 @@ def test_interrupted_run_resumes_without_rerunning(reference, tmp_path):
 
 @pytest.mark.slow  # a real process tree killed with SIGKILL, then resumed through the CLI
 def test_killed_run_resumes_through_cli(clips, tmp_path):
-    manifest = write_manifest(tmp_path / "study.toml", clips, grid='{ gap = [2, 3, 4], method = ["linear", "nearest", "past"] }', window="", pictures="[0, 8]")
+    manifest = write_manifest(
+        tmp_path / "study.toml",
+        clips,
+        grid='{ gap = [2, 3, 4], method = ["linear", "nearest", "past"] }',
+        window="",
+        pictures="[0, 8]",
+    )
     ref = tmp_path / "ref"
     run_study(load_manifest(manifest), ref, executor=LocalExecutor(1))
     total = len(records(ref))
     out = tmp_path / "killed"
-    proc = subprocess.Popen(synth_command("study", str(manifest), "-o", str(out), "--workers", "2"),
-                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, start_new_session=True)
+    proc = subprocess.Popen(
+        synth_command("study", str(manifest), "-o", str(out), "--workers", "2"),
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.DEVNULL,
+        start_new_session=True,
+    )
     deadline = time.monotonic() + 60
     try:
         while time.monotonic() < deadline and proc.poll() is None:
@@ -185,7 +194,7 @@ def test_killed_run_resumes_through_cli(clips, tmp_path):
 
 
 def test_failing_job_is_recorded_and_others_finish(clips, tmp_path):
-    manifest = write_manifest(tmp_path / "study.toml", clips[:2], grid='{ gap = [2, 16] }')
+    manifest = write_manifest(tmp_path / "study.toml", clips[:2], grid="{ gap = [2, 16] }")
     out = tmp_path / "out"
     result = CliRunner().invoke(app, ["study", str(manifest), "-o", str(out), "--workers", "1"])
     assert result.exit_code == 1
@@ -263,7 +272,9 @@ def test_cluster_option_errors_are_one_line(reference, monkeypatch):
     from synth.study import DaskExecutor
 
     manifest, out = reference
-    result = CliRunner().invoke(app, ["study", str(manifest), "-o", str(out), "--cluster", "tcp://h:1", "--workers", "2"])
+    result = CliRunner().invoke(
+        app, ["study", str(manifest), "-o", str(out), "--cluster", "tcp://h:1", "--workers", "2"]
+    )
     assert result.exit_code == 2 and "--workers applies to local runs" in result.stderr
     if "distributed" in sys.modules or __import__("importlib").util.find_spec("distributed"):
         with pytest.raises(ParameterError, match=r"cannot reach the Dask scheduler at tcp://127\.0\.0\.1:9"):

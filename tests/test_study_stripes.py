@@ -59,14 +59,18 @@ def test_striped_motion_compensated_sampling_is_bit_identical(photo):
     rng = np.random.default_rng(7)
     reach = 6
     # Smooth vertical and horizontal displacements, |dy| <= reach - 1 (bilinear taps reach one more row).
-    dy = cv2.resize(rng.uniform(-(reach - 1), reach - 1, (8, 8)).astype(np.float32), (w, h), interpolation=cv2.INTER_CUBIC)
+    dy = cv2.resize(
+        rng.uniform(-(reach - 1), reach - 1, (8, 8)).astype(np.float32), (w, h), interpolation=cv2.INTER_CUBIC
+    )
     dy = np.clip(dy, -(reach - 1), reach - 1)
     dx = cv2.resize(rng.uniform(-9, 9, (8, 8)).astype(np.float32), (w, h), interpolation=cv2.INTER_CUBIC)
     gx = np.arange(w, dtype=np.float32)[None, :] + dx
     gy = np.arange(h, dtype=np.float32)[:, None] + dy
 
     def sample(a0: int, a1: int) -> np.ndarray:
-        return cv2.remap(photo[a0:a1], gx[a0:a1], gy[a0:a1] - np.float32(a0), cv2.INTER_LINEAR, borderMode=cv2.BORDER_REPLICATE)
+        return cv2.remap(
+            photo[a0:a1], gx[a0:a1], gy[a0:a1] - np.float32(a0), cv2.INTER_LINEAR, borderMode=cv2.BORDER_REPLICATE
+        )
 
     whole = sample(0, h)
     for rows in (16, 50, 128):
@@ -79,11 +83,11 @@ def test_striped_motion_compensated_sampling_is_bit_identical(photo):
 @pytest.fixture(scope="module")
 def pair(tmp_path_factory):
     """Two pictures 4 apart of a demo clip (or of real footage), cropped, with an estimated field."""
+    from study_support import study_clip_files
+
     from synth import estimate_field
     from synth.io import open_clip
     from synth.study.clipsource import ClipView
-
-    from study_support import study_clip_files
 
     clip = study_clip_files(tmp_path_factory.mktemp("clips"))[0]
     view = ClipView(open_clip(clip), window=[0, 0, 160, 144])

@@ -18,11 +18,11 @@ import scipy.linalg
 from typer.testing import CliRunner
 
 from synth import SynthParams, VectorField, synthesise
-from synth.synthesis.calibrate import fit_exponential_decay, learned_estimate, stack_side_cues
-from synth.synthesis.candidate_stack import candidate_stack
 from synth.cli import app
 from synth.errors import ParameterError
 from synth.io import rgb_to_ycbcr420, write_clip
+from synth.synthesis.calibrate import fit_exponential_decay, learned_estimate, stack_side_cues
+from synth.synthesis.candidate_stack import candidate_stack
 from synth.synthesis.oracles import best_of_k, block_least_squares_stack
 from synth.synthesis.reliability import (
     CUE_NAMES,
@@ -126,7 +126,10 @@ def pan_pictures():
 
     bgr = cv2.cvtColor(data.astronaut(), cv2.COLOR_RGB2BGR)
     # 4 samples right and 2 down per picture
-    return [rgb_to_ycbcr420(np.ascontiguousarray(bgr[150 - 2 * k : 246 - 2 * k, 200 - 4 * k : 328 - 4 * k])) for k in range(9)]
+    return [
+        rgb_to_ycbcr420(np.ascontiguousarray(bgr[150 - 2 * k : 246 - 2 * k, 200 - 4 * k : 328 - 4 * k]))
+        for k in range(9)
+    ]
 
 
 def _fields(dx, dy, past_time=0, future_time=4, noise=None):
@@ -134,8 +137,24 @@ def _fields(dx, dy, past_time=0, future_time=4, noise=None):
     rows, cols = 96 // 16, 128 // 16
     ex = 0 if noise is None else noise[0]
     ey = 0 if noise is None else noise[1]
-    back = VectorField.uniform_grid(128, 96, block=16, coded_time=future_time, reference_time=past_time, dx=np.full((rows, cols), -dx) + ex, dy=np.full((rows, cols), -dy) + ey)
-    fwd = VectorField.uniform_grid(128, 96, block=16, coded_time=past_time, reference_time=future_time, dx=np.full((rows, cols), dx) - ex, dy=np.full((rows, cols), dy) - ey)
+    back = VectorField.uniform_grid(
+        128,
+        96,
+        block=16,
+        coded_time=future_time,
+        reference_time=past_time,
+        dx=np.full((rows, cols), -dx) + ex,
+        dy=np.full((rows, cols), -dy) + ey,
+    )
+    fwd = VectorField.uniform_grid(
+        128,
+        96,
+        block=16,
+        coded_time=past_time,
+        reference_time=future_time,
+        dx=np.full((rows, cols), dx) - ex,
+        dy=np.full((rows, cols), dy) - ey,
+    )
     return [back, fwd]
 
 
@@ -168,7 +187,7 @@ def test_learned_reliability_in_the_synthesiser(pan_pictures):
     rng = np.random.default_rng(2)
     noise = (rng.integers(-8, 9, (6, 8)), rng.integers(-8, 9, (6, 8)))
     fl = _fields(64, 32, noise=noise)
-    past, future, truth = pan_pictures[0], pan_pictures[4], pan_pictures[2]
+    past, future = pan_pictures[0], pan_pictures[4]
     theta = np.zeros(n_coefficients())
     theta[1 + CUE_NAMES.index("bilateral")] = 1.0  # trust observations whose endpoints agree
     learned = SynthParams(reliability="learned", learned_share=1.0, reliability_coefficients=tuple(theta.tolist()))

@@ -9,8 +9,17 @@ from synth.synthesis.project import project_fields, reference_times
 
 def _field(coded_time, reference_time, dx, dy, intra=None):
     return VectorField.from_arrays(
-        width=64, height=32, coded_time=coded_time, reference_time=reference_time,
-        x=[0, 16, 32, 48], y=[0, 0, 16, 16], w=16, h=16, dx=dx, dy=dy, intra=intra,
+        width=64,
+        height=32,
+        coded_time=coded_time,
+        reference_time=reference_time,
+        x=[0, 16, 32, 48],
+        y=[0, 0, 16, 16],
+        w=16,
+        h=16,
+        dx=dx,
+        dy=dy,
+        intra=intra,
     )
 
 
@@ -33,8 +42,16 @@ def test_both_coding_directions_agree_on_the_same_motion():
     # at x has vector +8 (content found at x + 8 on the future); coded future->past, -8.
     fwd = _field(0, 2, dx=32, dy=0)
     bwd = VectorField.from_arrays(
-        width=64, height=32, coded_time=2, reference_time=0, x=[8, 24, 40, 56], y=[0, 0, 16, 16], w=16, h=16,
-        dx=-32, dy=0,
+        width=64,
+        height=32,
+        coded_time=2,
+        reference_time=0,
+        x=[8, 24, 40, 56],
+        y=[0, 0, 16, 16],
+        w=16,
+        h=16,
+        dx=-32,
+        dy=0,
     )
     a = project_fields([fwd], past_time=0, future_time=2, t=0.5)
     b = project_fields([bwd], past_time=0, future_time=2, t=0.5)
@@ -68,7 +85,9 @@ def test_bad_times_are_rejected(kwargs, message):
 
 
 def test_fields_of_different_sizes_are_rejected():
-    other = VectorField.from_arrays(width=32, height=32, coded_time=4, reference_time=0, x=[0], y=[0], w=16, h=16, dx=0, dy=0)
+    other = VectorField.from_arrays(
+        width=32, height=32, coded_time=4, reference_time=0, x=[0], y=[0], w=16, h=16, dx=0, dy=0
+    )
     with pytest.raises(ParameterError, match="fields\\[1\\]"):
         project_fields([_field(4, 0, dx=0, dy=0), other], past_time=0, future_time=4, t=0.5)
     with pytest.raises(ParameterError, match="at least one"):

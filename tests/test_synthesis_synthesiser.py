@@ -73,8 +73,18 @@ def _busy_case():
     xs, ys = np.meshgrid(np.arange(0, 132, 16)[:-1], np.arange(0, 100, 16)[:-1])
     n = xs.size
     field = VectorField.from_arrays(
-        width=132, height=100, coded_time=3, reference_time=1, x=xs.ravel(), y=ys.ravel(), w=16, h=16,
-        dx=rng.integers(-40, 40, n), dy=rng.integers(-30, 30, n), intra=rng.random(n) < 0.1, gaps_allowed=True,
+        width=132,
+        height=100,
+        coded_time=3,
+        reference_time=1,
+        x=xs.ravel(),
+        y=ys.ravel(),
+        w=16,
+        h=16,
+        dx=rng.integers(-40, 40, n),
+        dy=rng.integers(-30, 30, n),
+        intra=rng.random(n) < 0.1,
+        gaps_allowed=True,
     )
     return past, future, field
 
@@ -108,8 +118,17 @@ def test_holes_fall_back_to_the_colocated_average():
     past, future, truth, _ = _translation(0.5)
     # vectors only on the left quarter: pixels beyond reach have no candidate
     field = VectorField.from_arrays(
-        width=W, height=H, coded_time=2, reference_time=0, x=[0, 0, 0], y=[0, 32, 64], w=32, h=32,
-        dx=-64, dy=-32, gaps_allowed=True,
+        width=W,
+        height=H,
+        coded_time=2,
+        reference_time=0,
+        x=[0, 0, 0],
+        y=[0, 32, 64],
+        w=32,
+        h=32,
+        dx=-64,
+        dy=-32,
+        gaps_allowed=True,
     )
     params = SynthParams(reach=24.0)
     res = synthesise_with_maps(past, future, field, t=0.5, params=params)
@@ -225,14 +244,32 @@ def test_odd_sizes_and_a_field_without_vectors():
     rng = np.random.default_rng(2)
     xs, ys = np.meshgrid(np.arange(0, 101, 8), np.arange(0, 77, 8))
     field = VectorField.from_arrays(
-        width=101, height=77, coded_time=1, reference_time=0, x=xs.ravel(), y=ys.ravel(),
-        w=np.minimum(8, 101 - xs.ravel()), h=np.minimum(8, 77 - ys.ravel()), dx=-12, dy=rng.integers(-2, 2, xs.size),
+        width=101,
+        height=77,
+        coded_time=1,
+        reference_time=0,
+        x=xs.ravel(),
+        y=ys.ravel(),
+        w=np.minimum(8, 101 - xs.ravel()),
+        h=np.minimum(8, 77 - ys.ravel()),
+        dx=-12,
+        dy=rng.integers(-2, 2, xs.size),
     )
     whole = synthesise(past, future, field, t=0.5)
     assert whole.y.shape == (77, 101)
     assert np.array_equal(synthesise(past, future, field, t=0.5, rows=(13, 77)).y, whole.y[13:])
     intra = VectorField.from_arrays(
-        width=101, height=77, coded_time=1, reference_time=0, x=[0], y=[0], w=101, h=77, dx=0, dy=0, intra=[True],
+        width=101,
+        height=77,
+        coded_time=1,
+        reference_time=0,
+        x=[0],
+        y=[0],
+        w=101,
+        h=77,
+        dx=0,
+        dy=0,
+        intra=[True],
         gaps_allowed=True,
     )
     res = synthesise_with_maps(past, future, intra, t=0.5)

@@ -7,8 +7,8 @@ pictures replace the source pictures as references in `synth gop --decoded-refs 
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from fractions import Fraction
-from typing import Sequence
 
 import numpy as np
 

@@ -26,9 +26,9 @@ Encoder settings (names are the encoders' own options, passed as ``x264-params``
 from __future__ import annotations
 
 import io as _stdio
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from fractions import Fraction
-from typing import Mapping, Sequence
 
 import av
 import numpy as np
@@ -124,15 +124,37 @@ def _params(codec: str, *, qp: int, refs: int, zones: dict[int, int], frames: in
         qp += bd_offset
         zones = {k: q + bd_offset for k, q in zones.items()}
         opts = [
-            f"qp={qp}", "ipratio=1.0", "pbratio=0.01", "bframes=0", f"ref={refs}", f"keyint={keyint}",
-            "scenecut=0", "weightp=0", "psy=0", "aq-mode=0", "threads=1",
+            f"qp={qp}",
+            "ipratio=1.0",
+            "pbratio=0.01",
+            "bframes=0",
+            f"ref={refs}",
+            f"keyint={keyint}",
+            "scenecut=0",
+            "weightp=0",
+            "psy=0",
+            "aq-mode=0",
+            "threads=1",
         ]
         zone_list = [f"{k},{k},q={q}" for k, q in sorted(zones.items())]
     else:
         opts = [
-            f"qp={qp}", "ipratio=1.0", "bframes=0", f"ref={refs}", f"keyint={keyint}", "scenecut=0",
-            "weightp=0", "psy-rd=0", "psy-rdoq=0", "aq-mode=0", "cutree=0", "limit-refs=0",
-            "frame-threads=1", "pools=none", "info=0", "log-level=error",
+            f"qp={qp}",
+            "ipratio=1.0",
+            "bframes=0",
+            f"ref={refs}",
+            f"keyint={keyint}",
+            "scenecut=0",
+            "weightp=0",
+            "psy-rd=0",
+            "psy-rdoq=0",
+            "aq-mode=0",
+            "cutree=0",
+            "limit-refs=0",
+            "frame-threads=1",
+            "pools=none",
+            "info=0",
+            "log-level=error",
         ]
         zone_list = [f"{k + 1},{k + 1},q={q}" for k, q in sorted(zones.items())]
     if zone_list:

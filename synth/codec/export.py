@@ -21,9 +21,9 @@ the last complete GOP, which have no future anchor). The layout is described in 
 from __future__ import annotations
 
 import os
+from collections.abc import Callable, Iterator
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Callable, Iterator
 
 from synth.errors import ParameterError
 from synth.makers import Maker
@@ -31,8 +31,14 @@ from synth.motion.sources import VectorSource
 from synth.picture import Picture
 
 __all__ = [
-    "GopEntry", "hierarchy", "export_plan", "describe_fields", "synthetic_references", "write_reference_export",
-    "sidecar_path", "SIDECAR_SCHEMA_VERSION",
+    "GopEntry",
+    "hierarchy",
+    "export_plan",
+    "describe_fields",
+    "synthetic_references",
+    "write_reference_export",
+    "sidecar_path",
+    "SIDECAR_SCHEMA_VERSION",
 ]
 
 #: ``schema_version`` of the sidecar this module writes.
@@ -119,8 +125,16 @@ def describe_fields(fields, source: VectorSource | None) -> list[dict]:
     ]
 
 
-def prepare_pair(maker: Maker, past: Picture, future: Picture, *, past_time: float, future_time: float,
-                 source: VectorSource | None, params=None):
+def prepare_pair(
+    maker: Maker,
+    past: Picture,
+    future: Picture,
+    *,
+    past_time: float,
+    future_time: float,
+    source: VectorSource | None,
+    params=None,
+):
     """``(PreparedPair, fields record)`` of `maker` for one reference pair.
 
     The fields come from `source` only when the maker needs vectors (`Maker.needs_vectors`).
@@ -170,8 +184,15 @@ def synthetic_references(
         if key not in cache:
             if len(cache) > 8:
                 cache.pop(next(iter(cache)))
-            cache[key] = prepare_pair(maker, read(e.past), read(e.future), past_time=e.past, future_time=e.future,
-                                      source=source, params=params)
+            cache[key] = prepare_pair(
+                maker,
+                read(e.past),
+                read(e.future),
+                past_time=e.past,
+                future_time=e.future,
+                source=source,
+                params=params,
+            )
         pair, fields = cache[key]
         yield e, pair.at_time(e.time).picture, fields
         if progress is not None:
@@ -239,11 +260,19 @@ def write_reference_export(
     records: list[dict] = []
 
     def pictures() -> Iterator[Picture]:
-        for pos, (e, pic, fields) in enumerate(synthetic_references(
-            reader.read, entries, maker=maker, source=source, params=params, progress=progress
-        )):
+        for pos, (e, pic, fields) in enumerate(
+            synthetic_references(reader.read, entries, maker=maker, source=source, params=params, progress=progress)
+        ):
             records.append(
-                {"position": pos, "time": e.time, "past": e.past, "future": e.future, "t": e.t, "layer": e.layer, "fields": fields}
+                {
+                    "position": pos,
+                    "time": e.time,
+                    "past": e.past,
+                    "future": e.future,
+                    "t": e.t,
+                    "layer": e.layer,
+                    "fields": fields,
+                }
             )
             yield pic
 

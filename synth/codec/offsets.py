@@ -37,13 +37,13 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from synth.codec.dctif import quarter_pel_phases, shifted_view
+from synth.codec.satd import block_sad, block_satd
 from synth.errors import ParameterError
 from synth.expgolomb import se_length
 from synth.flow import sample_with_flow, scale_flow_to_plane
 from synth.metrics import picture_psnr
 from synth.offset_field import OffsetField, OffsetStatistics
 from synth.picture import Picture
-from synth.codec.satd import block_sad, block_satd
 
 __all__ = [
     "METRICS",

@@ -29,23 +29,31 @@ targets. The Bjontegaard delta rate (:mod:`synth.codec.bdrate`, VCEG-M33) of eac
 
 from __future__ import annotations
 
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
-from typing import Callable, Sequence
 
 import numpy as np
 
 from synth.codec.bdrate import bd_psnr, bd_rate
 from synth.codec.encode import CODECS, encode_pictures, max_qp
-from synth.errors import ParameterError
-from synth.metrics import picture_psnr
 from synth.codec.offsets import refine_with_offsets
+from synth.errors import ParameterError
 from synth.makers import Maker
+from synth.metrics import picture_psnr
 from synth.motion.sources import VectorSource
 from synth.picture import Picture
 
 __all__ = [
-    "ANCHOR", "TargetCoding", "code_target", "measure_clip", "ClipRD", "rd_targets", "summarise_clips", "parse_qps",
-    "config_names", "parse_gaps",
+    "ANCHOR",
+    "TargetCoding",
+    "code_target",
+    "measure_clip",
+    "ClipRD",
+    "rd_targets",
+    "summarise_clips",
+    "parse_qps",
+    "config_names",
+    "parse_gaps",
 ]
 
 #: The anchor configuration every BD-rate is measured against.
@@ -212,7 +220,9 @@ class ClipRD:
         """Mean PSNR-Y of each configuration's extra picture against the target, before coding."""
         out = {}
         for c in sorted({r["config"] for r in self.rows if r.get("reference_psnr_y") is not None}):
-            vals = [r["reference_psnr_y"] for r in self.rows if r["config"] == c and r.get("reference_psnr_y") is not None]
+            vals = [
+                r["reference_psnr_y"] for r in self.rows if r["config"] == c and r.get("reference_psnr_y") is not None
+            ]
             out[c] = float(np.mean(vals))
         return out
 
@@ -360,7 +370,9 @@ def measure_clip(
             point_source = source.with_qp(qp if vector_qp is None else vector_qp)
             prepared = []
             for m in makers:
-                pair, used = prepare_pair(m, dpast, dfuture, past_time=p, future_time=f, source=point_source, params=params)
+                pair, used = prepare_pair(
+                    m, dpast, dfuture, past_time=p, future_time=f, source=point_source, params=params
+                )
                 prepared.append(pair)
                 if used:
                     result.fields.append({"past": p, "future": f, "qp": qp, "maker": m.name, "fields": used})
@@ -406,8 +418,15 @@ def measure_clip(
                     e = code_target(past, future, target, extra=search.prediction, **common)
                     result.rows.append(
                         _row(
-                            clip, p, f, n, names["corrected"], qp, e,
-                            side_bits=st.bits_total, reference_psnr=st.psnr_after["Y"],
+                            clip,
+                            p,
+                            f,
+                            n,
+                            names["corrected"],
+                            qp,
+                            e,
+                            side_bits=st.bits_total,
+                            reference_psnr=st.psnr_after["Y"],
                         )
                     )
                     codings.append(e)

@@ -15,20 +15,41 @@ import csv
 import io as _stdio
 import os
 import re
+from collections.abc import Sequence
 from pathlib import Path
-from typing import Sequence
 
 from synth.codec.rdmeasure import ANCHOR, ClipRD, config_names
 
-__all__ = ["CSV_COLUMNS", "RD_SCHEMA_VERSION", "config_order", "config_label", "format_rd_table", "write_rd_report",
-           "plot_rd_curves"]
+__all__ = [
+    "CSV_COLUMNS",
+    "RD_SCHEMA_VERSION",
+    "config_order",
+    "config_label",
+    "format_rd_table",
+    "write_rd_report",
+    "plot_rd_curves",
+]
 
 #: ``schema_version`` of the rd.json this module writes.
 RD_SCHEMA_VERSION = 1
 
 CSV_COLUMNS = (
-    "clip", "gap", "past", "future", "target", "t", "config", "qp", "bits", "target_bits", "side_bits",
-    "psnr_y", "psnr_cb", "psnr_cr", "reference_psnr_y", "extra_psnr_y",
+    "clip",
+    "gap",
+    "past",
+    "future",
+    "target",
+    "t",
+    "config",
+    "qp",
+    "bits",
+    "target_bits",
+    "side_bits",
+    "psnr_y",
+    "psnr_cb",
+    "psnr_cr",
+    "reference_psnr_y",
+    "extra_psnr_y",
 )
 
 _FLOW = ("dis-fast", "dis-medium", "farneback")
@@ -81,13 +102,20 @@ def format_rd_table(summary: dict) -> str:
         for k in sorted(c["bd"], key=order):
             bd = c["bd"][k]
             rows.append(
-                [name, config_label(k, syn), _fmt(bd.get("bd_rate"), "+.2f"), _fmt(bd.get("bd_psnr"), "+.3f"),
-                 _fmt(c["synthesis_psnr_y"].get(k), ".2f")]
+                [
+                    name,
+                    config_label(k, syn),
+                    _fmt(bd.get("bd_rate"), "+.2f"),
+                    _fmt(bd.get("bd_psnr"), "+.3f"),
+                    _fmt(c["synthesis_psnr_y"].get(k), ".2f"),
+                ]
             )
             name = ""
     means = [(f"mean of {len(summary['clips'])} clip(s)", summary["average"])]
     if len(gaps) > 1:
-        means = [(f"mean, gap {g}", avg) for g, avg in gaps.items()] + [(f"mean of all {len(summary['clips'])}", summary["average"])]
+        means = [(f"mean, gap {g}", avg) for g, avg in gaps.items()] + [
+            (f"mean of all {len(summary['clips'])}", summary["average"])
+        ]
     for name, avg in means:
         for k in sorted(avg, key=order):
             a = avg[k]
@@ -99,7 +127,9 @@ def format_rd_table(summary: dict) -> str:
         return "  ".join(v.ljust(w) if i < 2 else v.rjust(w) for i, (v, w) in enumerate(zip(vals, widths))).rstrip()
 
     out = [line(head), line(["-" * w for w in widths])] + [line(r) for r in rows]
-    out.append(f"BD-rate/BD-PSNR against {config_label(ANCHOR)!r} (VCEG-M33 cubic fit); negative BD-rate = fewer bits for the same PSNR-Y.")
+    out.append(
+        f"BD-rate/BD-PSNR against {config_label(ANCHOR)!r} (VCEG-M33 cubic fit); negative BD-rate = fewer bits for the same PSNR-Y."
+    )
     for c in summary["clips"]:
         gap = f" gap {c['gap']}" if len(gaps) > 1 and "gap" in c else ""
         for o in c.get("offsets", []):
@@ -126,11 +156,17 @@ def plot_rd_curves(clip: ClipRD, title: str | None = None) -> bytes:
     fig, ax = plt.subplots(figsize=(6.4, 4.4), dpi=100)
     markers = "osD^vx*"
     for i, (cfg, pts) in enumerate(sorted(curves.items(), key=lambda kv: config_order(kv[0], clip.synthetic))):
-        ax.plot([p["bits"] for p in pts], [p["psnr_y"] for p in pts], marker=markers[i % len(markers)],
-                label=config_label(cfg, clip.synthetic))
+        ax.plot(
+            [p["bits"] for p in pts],
+            [p["psnr_y"] for p in pts],
+            marker=markers[i % len(markers)],
+            label=config_label(cfg, clip.synthetic),
+        )
         if i == 0:
             for p in pts:
-                ax.annotate(f"QP {p['qp']}", (p["bits"], p["psnr_y"]), textcoords="offset points", xytext=(4, -10), fontsize=7)
+                ax.annotate(
+                    f"QP {p['qp']}", (p["bits"], p["psnr_y"]), textcoords="offset points", xytext=(4, -10), fontsize=7
+                )
     ax.set_xscale("log")
     ax.set_xlabel("bits per target picture (mean)")
     ax.set_ylabel("PSNR-Y of the target (dB, mean)")

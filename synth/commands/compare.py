@@ -88,15 +88,24 @@ def run_compare(
     reader = open_clip(clip)
     name = Path(clip).name
     result = compare_clip(
-        reader, gaps=gap_list, makers=makers, vectors=source, vector_qps=qps, params=syn_params, pictures=span,
-        clip_name=name, progress=progress,
+        reader,
+        gaps=gap_list,
+        makers=makers,
+        vectors=source,
+        vector_qps=qps,
+        params=syn_params,
+        pictures=span,
+        clip_name=name,
+        progress=progress,
     )
     paths = None
     if report is not None:
         from synth.evaluation.report import write_report
 
         paths = write_report([result], report, title=f"synth compare: {name}")
-    return strict_json({"command": "compare", "clip": str(clip), "run": run_document(result, pictures=False), "report": paths})
+    return strict_json(
+        {"command": "compare", "clip": str(clip), "run": run_document(result, pictures=False), "report": paths}
+    )
 
 
 def format_report_paths(paths) -> list[str]:

@@ -41,8 +41,9 @@ def run_demo_command(report: str | os.PathLike | None = None, *, progress=None) 
         for i, r in enumerate(results)
         if len(r.settings.get("vector_qps") or []) > 1
     ]
-    return strict_json({"command": "demo", "clips": clips, "overview": overview(results), "vector_qp_runs": sweeps,
-                        "report": paths})
+    return strict_json(
+        {"command": "demo", "clips": clips, "overview": overview(results), "vector_qp_runs": sweeps, "report": paths}
+    )
 
 
 def format_demo(summary: dict) -> str:
@@ -62,6 +63,9 @@ def format_demo(summary: dict) -> str:
             gaps = ", ".join(str(g) for g in sweep["gaps"] or [])
             lines += ["", f"Vector QP on {sweep['clip']} (gap {gaps}): mean PSNR-YUV of the vector makers", table]
     p = summary["report"]
-    lines += ["", f"report: {p['html']}  (per-clip and per-layer tables, plots, error and weight maps)",
-              f"data:   {p['json']}, {p['csv']}"]
+    lines += [
+        "",
+        f"report: {p['html']}  (per-clip and per-layer tables, plots, error and weight maps)",
+        f"data:   {p['json']}, {p['csv']}",
+    ]
     return "\n".join(lines)

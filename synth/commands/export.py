@@ -73,8 +73,16 @@ def run_export(
     reader = open_clip(clip)
     try:
         doc = write_reference_export(
-            reader, output, gop=int(gop_size), maker=the_maker, source=source, params=syn_params, raw=raw,
-            sidecar=side, source_name=str(clip), progress=progress,
+            reader,
+            output,
+            gop=int(gop_size),
+            maker=the_maker,
+            source=source,
+            params=syn_params,
+            raw=raw,
+            sidecar=side,
+            source_name=str(clip),
+            progress=progress,
         )
     finally:
         reader.close()
@@ -108,5 +116,7 @@ def format_export(summary: dict) -> str:
         f"{summary['bit_depth']}-bit) -> {summary['output']}; sidecar {summary['sidecar']}"
     ]
     if summary["uncovered"]:
-        lines.append(f"pictures {summary['uncovered'][0]}..{summary['uncovered'][-1]} lie after the last anchor and are not covered")
+        lines.append(
+            f"pictures {summary['uncovered'][0]}..{summary['uncovered'][-1]} lie after the last anchor and are not covered"
+        )
     return "\n".join(lines)

@@ -46,8 +46,14 @@ def _png(path: Path, image: np.ndarray) -> None:
     atomic_write_bytes(path, buf.tobytes())
 
 
-def write_maps(directory: str | os.PathLike, maps: dict, picture: Picture, truth: Picture | None = None, *,
-               candidates: int | None = None) -> list[str]:
+def write_maps(
+    directory: str | os.PathLike,
+    maps: dict,
+    picture: Picture,
+    truth: Picture | None = None,
+    *,
+    candidates: int | None = None,
+) -> list[str]:
     """Write a maker's maps as 8-bit greyscale PNGs into `directory` (created when missing).
 
     - ``candidates.png``: candidate count, 255 = `candidates` (the largest K of the run);
@@ -196,8 +202,10 @@ def run_frame(
     from synth.timebase import check_t, fraction_of
 
     if (at is None) == (t is None):
-        raise ParameterError("give exactly one of --at (a picture number) and --t (a fraction), got " + (
-            "both" if at is not None else "neither"))
+        raise ParameterError(
+            "give exactly one of --at (a picture number) and --t (a fraction), got "
+            + ("both" if at is not None else "neither")
+        )
     if t is not None:
         t = check_t(t, name="--t")
     output = check_output_suffix(output, (".y4m",), option="--output")

@@ -58,9 +58,10 @@ def run_gop_command(
     ParameterError
         For a bad option value (the message names the option).
     """
+    from synth.codec.export import sidecar_path
     from synth.commands.compare import load_params, vector_source
     from synth.commands.options import parse_picture_range
-    from synth.evaluation.gop import DEFAULT_GOP_SIZE, gop_sidecar_path, run_gop, write_gop_export
+    from synth.evaluation.gop import DEFAULT_GOP_SIZE, run_gop, write_gop_export
     from synth.evaluation.workbench import parse_vector_qps, run_document
     from synth.hierarchy import check_gop_size
     from synth.io import open_clip
@@ -84,9 +85,20 @@ def run_gop_command(
     reader = open_clip(clip)
     name = Path(clip).name
     result = run_gop(
-        reader, size=size, flat=flat, decoded_refs_qp=decoded_refs, makers=makers, vectors=source, vector_qps=qps,
-        params=syn_params, pictures=span, clip_name=name, export=export is not None, export_maker=export_maker,
-        frame_rate=reader.info.frame_rate, progress=progress,
+        reader,
+        size=size,
+        flat=flat,
+        decoded_refs_qp=decoded_refs,
+        makers=makers,
+        vectors=source,
+        vector_qps=qps,
+        params=syn_params,
+        pictures=span,
+        clip_name=name,
+        export=export is not None,
+        export_maker=export_maker,
+        frame_rate=reader.info.frame_rate,
+        progress=progress,
     )
     exported = None
     if export is not None:
@@ -96,15 +108,26 @@ def run_gop_command(
         if not info.frame_count:
             info = replace(info, frame_count=len(reader))
         write_gop_export(result, export, info=info, source_name=str(clip))
-        exported = {"output": str(export), "sidecar": str(gop_sidecar_path(export)),
-                    "maker": result.settings["export_maker"], "pictures": len(result.synthetic)}
+        exported = {
+            "output": str(export),
+            "sidecar": str(sidecar_path(export)),
+            "maker": result.settings["export_maker"],
+            "pictures": len(result.synthetic),
+        }
     paths = None
     if report is not None:
         from synth.evaluation.report import write_report
 
         paths = write_report([result], report, title=f"synth gop: {name}")
-    return strict_json({"command": "gop", "clip": str(clip), "run": run_document(result, pictures=False),
-                        "export": exported, "report": paths})
+    return strict_json(
+        {
+            "command": "gop",
+            "clip": str(clip),
+            "run": run_document(result, pictures=False),
+            "export": exported,
+            "report": paths,
+        }
+    )
 
 
 def format_gop(summary: dict) -> str:
@@ -115,6 +138,8 @@ def format_gop(summary: dict) -> str:
     lines = [run_tables(summary["run"])]
     e = summary.get("export")
     if e:
-        lines.append(f"exported {e['pictures']} synthetic pictures ({e['maker']}) to {e['output']}; sidecar {e['sidecar']}")
+        lines.append(
+            f"exported {e['pictures']} synthetic pictures ({e['maker']}) to {e['output']}; sidecar {e['sidecar']}"
+        )
     lines += format_report_paths(summary.get("report"))
     return "\n".join(lines)

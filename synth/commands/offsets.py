@@ -40,9 +40,18 @@ def check_offset_options(block, window, metric: str = "satd") -> None:
         raise ParameterError(f"--metric must be one of {', '.join(METRICS)}, got {metric!r}")
 
 
-def search_and_write(target: Picture, synthetic: Picture, *, output: str | os.PathLike, block: int = 16,
-                     window: int = 2, metric: str = "satd", qp: int = 27, time: float = 0.0,
-                     extra: dict | None = None):
+def search_and_write(
+    target: Picture,
+    synthetic: Picture,
+    *,
+    output: str | os.PathLike,
+    block: int = 16,
+    window: int = 2,
+    metric: str = "satd",
+    qp: int = 27,
+    time: float = 0.0,
+    extra: dict | None = None,
+):
     """Search the offsets of `target` on `synthetic` and write them to `output`.
 
     Returns

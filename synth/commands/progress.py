@@ -42,7 +42,7 @@ class Progress:
         self._pending = None
         self._start = time.monotonic()
 
-    def __enter__(self) -> "Progress":
+    def __enter__(self) -> Progress:
         return self
 
     def __exit__(self, *exc) -> None:
@@ -79,9 +79,14 @@ class Progress:
             from rich.progress import Progress as RichProgress
 
             self._bar = RichProgress(
-                TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(), TimeElapsedColumn(),
-                TimeRemainingColumn(), TextColumn("{task.fields[label]}"),
-                console=Console(file=self.stream), transient=True,
+                TextColumn("{task.description}"),
+                BarColumn(),
+                MofNCompleteColumn(),
+                TimeElapsedColumn(),
+                TimeRemainingColumn(),
+                TextColumn("{task.fields[label]}"),
+                console=Console(file=self.stream),
+                transient=True,
             )
             self._bar.start()
             self._task = self._bar.add_task(self.description, total=total, label="")

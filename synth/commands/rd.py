@@ -7,8 +7,8 @@ See :mod:`synth.codec.rdmeasure` for what is measured and :mod:`synth.codec.rdre
 from __future__ import annotations
 
 import os
+from collections.abc import Callable, Sequence
 from pathlib import Path
-from typing import Callable, Sequence
 
 __all__ = ["DEFAULT_RD_MAKERS", "run_rd", "measure_rd_file", "format_rd"]
 
@@ -16,8 +16,23 @@ __all__ = ["DEFAULT_RD_MAKERS", "run_rd", "measure_rd_file", "format_rd"]
 DEFAULT_RD_MAKERS = "lmmse,dis-medium"
 
 
-def _settings(*, gaps, qps, codec, makers, source, vector_qp, params, refs, extra_qp, preset, offsets, offset_block,
-              offset_window, limit) -> dict:
+def _settings(
+    *,
+    gaps,
+    qps,
+    codec,
+    makers,
+    source,
+    vector_qp,
+    params,
+    refs,
+    extra_qp,
+    preset,
+    offsets,
+    offset_block,
+    offset_window,
+    limit,
+) -> dict:
     return {
         "gaps": gaps,
         "qps": qps,
@@ -134,15 +149,30 @@ def run_rd(
     results = []
     base = 0
     for path, g, count in plan:
+
         def step(done, _total, label, _base=base):
             if progress is not None:
                 progress(_base + done, total, label)
 
         results.append(
             measure_rd_file(
-                path, gap=g, qps=qp_list, codec=codec, makers=maker_list, source=source, params=syn_params,
-                vector_qp=vector_qp, refs=refs, extra_qp=extra_qp, preset=preset, offsets=offsets,
-                offset_block=offset_block, offset_window=offset_window, limit=limit, name=str(path), progress=step,
+                path,
+                gap=g,
+                qps=qp_list,
+                codec=codec,
+                makers=maker_list,
+                source=source,
+                params=syn_params,
+                vector_qp=vector_qp,
+                refs=refs,
+                extra_qp=extra_qp,
+                preset=preset,
+                offsets=offsets,
+                offset_block=offset_block,
+                offset_window=offset_window,
+                limit=limit,
+                name=str(path),
+                progress=step,
             )  # fmt: skip
         )
         base += count * len(qp_list)

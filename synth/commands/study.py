@@ -5,7 +5,7 @@ from __future__ import annotations
 
 import io
 import os
-from typing import Callable
+from collections.abc import Callable
 
 __all__ = ["PHASES", "plan_rows", "run_study_command", "format_study"]
 
@@ -55,7 +55,14 @@ def plan_rows(manifest, output: str | os.PathLike) -> dict:
         }
         for j in jobs
     ]
-    return {"plan": True, "jobs": rows, "total": len(ids), "done": ok, "failed": failed, "to_do": len(ids) - ok - failed}
+    return {
+        "plan": True,
+        "jobs": rows,
+        "total": len(ids),
+        "done": ok,
+        "failed": failed,
+        "to_do": len(ids) - ok - failed,
+    }
 
 
 class _Phases:
@@ -161,7 +168,9 @@ def _format_plan(summary: dict) -> str:
     for j in summary["jobs"]:
         params = " ".join(f"{k}={v}" for k, v in j["params"].items())
         lines.append(f"{j['id']}  {j['state']:<6} {j['kind']:<8} {j['clip']:<20} " + params)
-    lines.append(f"{summary['total']} jobs: {summary['done']} done, {summary['failed']} failed, {summary['to_do']} to do")
+    lines.append(
+        f"{summary['total']} jobs: {summary['done']} done, {summary['failed']} failed, {summary['to_do']} to do"
+    )
     return "\n".join(lines)
 
 
@@ -192,8 +201,12 @@ def format_study(summary: dict, *, width: int | None = None) -> str:
     console = Console(file=buf, width=width or 160, force_terminal=False, color_system=None)
     for kind, t in summary["tables"].items():
         shared = ", ".join(f"{k}={v}" for k, v in t["fixed"].items())
-        table = Table(title=f"{kind}: mean over clips", title_justify="left",
-                      caption=f"every job: {shared}" if shared else None, caption_justify="left")
+        table = Table(
+            title=f"{kind}: mean over clips",
+            title_justify="left",
+            caption=f"every job: {shared}" if shared else None,
+            caption_justify="left",
+        )
         for col in t["columns"]:
             table.add_column(col, justify="left" if col in ("setting", *t["group_by"]) else "right")
         for row in format_table(t["rows"], t["columns"]):

@@ -1,2 +1,1 @@
-"""The demo: scenes of our own with known motion (`scenes`) and the demo run (`run`).
-"""
+"""The demo: scenes of our own with known motion (`scenes`) and the demo run (`run`)."""

@@ -9,12 +9,12 @@ with vectors estimated at several QPs. One report for all of them.
 from __future__ import annotations
 
 import os
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Callable
 
-from synth.evaluation.compare import compare_clip, compare_jobs
 from synth.errors import FormatError
+from synth.evaluation.compare import compare_clip, compare_jobs
 from synth.evaluation.gop import gop_jobs, run_gop
 from synth.evaluation.report import write_report
 from synth.evaluation.workbench import RunResult
@@ -137,9 +137,13 @@ def run_demo(
 
         opts = dict(step.options)
         if step.kind == "gop":
-            r = run_gop(readers[step.clip], clip_name=step.clip, makers=makers, vectors=vectors, progress=step_progress, **opts)
+            r = run_gop(
+                readers[step.clip], clip_name=step.clip, makers=makers, vectors=vectors, progress=step_progress, **opts
+            )
         elif step.kind == "compare":
-            r = compare_clip(readers[step.clip], clip_name=step.clip, makers=makers, vectors=vectors, progress=step_progress, **opts)
+            r = compare_clip(
+                readers[step.clip], clip_name=step.clip, makers=makers, vectors=vectors, progress=step_progress, **opts
+            )
         else:
             raise FormatError(f"unknown demo step kind {step.kind!r}")
         results.append(r)

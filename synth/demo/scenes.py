@@ -29,8 +29,8 @@ to where the same content is on picture `target`, taken from the topmost layer c
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass
-from typing import Callable
 
 import cv2
 import numpy as np
@@ -177,7 +177,9 @@ def _parcel(rng: np.random.Generator, w: float, h: float, *, place, centred: boo
     line_h = max(8, int(11 * scale / 0.32))
     rows = max(1, (lh - 12) // line_h)
     for k in range(min(3, rows)):
-        _put_text(img, _text(rng, int(rng.integers(5, 9))), (lx + 3, ly + 3 + (k + 1) * line_h - 2), scale, (25, 25, 30))
+        _put_text(
+            img, _text(rng, int(rng.integers(5, 9))), (lx + 3, ly + 3 + (k + 1) * line_h - 2), scale, (25, 25, 30)
+        )
     bar_h = max(4, lh - 6 - min(3, rows) * line_h)
     _barcode(rng, img, lx, ly + lh - bar_h - 2, lw, bar_h)
     # coloured handling sticker in a corner away from the label
@@ -200,8 +202,18 @@ def _parcel(rng: np.random.Generator, w: float, h: float, *, place, centred: boo
     return _make_layer(rgb, alpha, u0, v0, place)
 
 
-def _floor(rng: np.random.Generator, x0: float, y0: float, w: float, h: float, *, place, tile: float = 40.0,
-           tint=(0.52, 0.52, 0.5), stencil: str = "BAY") -> _Layer:
+def _floor(
+    rng: np.random.Generator,
+    x0: float,
+    y0: float,
+    w: float,
+    h: float,
+    *,
+    place,
+    tile: float = 40.0,
+    tint=(0.52, 0.52, 0.5),
+    stencil: str = "BAY",
+) -> _Layer:
     """Concrete floor with tile joints, stains, painted lane lines, hazard stripes and stencilled text."""
     W, H = int(round(w * _D)), int(round(h * _D))
     gray = 0.10 * _noise(rng, H, W, 12.0) + 0.06 * _noise(rng, H, W, 3.0) + 0.045 * _noise(rng, H, W, 0.8)
@@ -272,8 +284,20 @@ def _rail(rng: np.random.Generator, x0: float, y0: float, w: float, h: float, *,
     return _make_layer(img.astype(np.float32) / 255.0, np.ones((H, W), np.float32), x0, y0, place)
 
 
-def _panel(rng: np.random.Generator, w: float, h: float, *, colour, text_colour, lines: list[str], place,
-           u0: float = 0.0, v0: float = 0.0, rivets: bool = True, scale: float = 0.55) -> _Layer:
+def _panel(
+    rng: np.random.Generator,
+    w: float,
+    h: float,
+    *,
+    colour,
+    text_colour,
+    lines: list[str],
+    place,
+    u0: float = 0.0,
+    v0: float = 0.0,
+    rivets: bool = True,
+    scale: float = 0.55,
+) -> _Layer:
     """Painted panel (gantry beam, sign, cart side) with text lines and rivets."""
     W, H = int(round(w * _D)), int(round(h * _D))
     m = 6
@@ -328,9 +352,18 @@ def _scene_parcels_pan(rng: np.random.Generator) -> _Scene:
     for x, w, h, rot in ((60, 62, 50, -3.0), (190, 48, 42, 2.0), (300, 56, 48, 0.0), (420, 46, 44, -1.5)):
         layers.append(_parcel(rng, w, h, place=_moving(v_b, 0, x, belt_b_y, rot)))
     # scanner gantry fixed to the floor: parcels pass under it
-    layers.append(_panel(rng, 26, 400, colour=(40, 70, 150), text_colour=(250, 220, 40),
-                         lines=["SCAN", "G-12", "MAX", "80KG", "HALT", "A-03"],
-                         place=_static(_translate(262, -50)), scale=0.5))
+    layers.append(
+        _panel(
+            rng,
+            26,
+            400,
+            colour=(40, 70, 150),
+            text_colour=(250, 220, 40),
+            lines=["SCAN", "G-12", "MAX", "80KG", "HALT", "A-03"],
+            place=_static(_translate(262, -50)),
+            scale=0.5,
+        )
+    )
     # diverted parcel sliding diagonally across everything, slowly turning
     layers.append(_parcel(rng, 54, 44, place=_moving(-1.0, 4.0, 150, 20, 10.0, -1.2)))
     return _Scene(tuple(layers), camera=lambda t: _translate(-1.5 * t, -0.4 * t), luma_gain=lambda t: 1.0)
@@ -365,16 +398,30 @@ def _turntable(rng: np.random.Generator, r: float, *, place) -> _Layer:
 def _scene_turntable_zoom(rng: np.random.Generator) -> _Scene:
     cx, cy = 176.0, 150.0
     spin = 1.6  # degrees per picture
-    layers: list[_Layer] = [_floor(rng, -60, -60, 472, 408, place=_static(), tile=36, tint=(0.5, 0.53, 0.55),
-                                   stencil="ZONE")]
+    layers: list[_Layer] = [
+        _floor(rng, -60, -60, 472, 408, place=_static(), tile=36, tint=(0.5, 0.53, 0.55), stencil="ZONE")
+    ]
     layers.append(_turntable(rng, 118, place=lambda t: _translate(cx, cy) @ _rotate(spin * t)))
     for r, a, w, h in ((70, 20, 52, 44), (72, 145, 46, 40), (64, 255, 58, 46), (0, 0, 34, 30)):
         off = (r * np.cos(np.deg2rad(a)), r * np.sin(np.deg2rad(a)))
-        place = (lambda off, a: lambda t: _translate(cx, cy) @ _rotate(spin * t) @ _translate(*off) @ _rotate(a + 90))(off, a)
+        place = (lambda off, a: lambda t: _translate(cx, cy) @ _rotate(spin * t) @ _translate(*off) @ _rotate(a + 90))(
+            off, a
+        )
         layers.append(_parcel(rng, w, h, place=place))
-    layers.append(_panel(rng, 150, 22, colour=(230, 140, 30), text_colour=(20, 20, 20),
-                         lines=["ARM", "R7", "KEEP", "CLEAR"], place=_static(_translate(250, 40) @ _rotate(28)),
-                         u0=0.0, v0=-11.0, scale=0.5))
+    layers.append(
+        _panel(
+            rng,
+            150,
+            22,
+            colour=(230, 140, 30),
+            text_colour=(20, 20, 20),
+            lines=["ARM", "R7", "KEEP", "CLEAR"],
+            place=_static(_translate(250, 40) @ _rotate(28)),
+            u0=0.0,
+            v0=-11.0,
+            scale=0.5,
+        )
+    )
 
     def camera(t: float) -> np.ndarray:
         s = 1.3 ** (t / 16.0)
@@ -468,19 +515,37 @@ def _cart(rng: np.random.Generator, w: float, *, colour, place) -> _Layer:
 def _scene_cart_accelerate(rng: np.random.Generator) -> _Scene:
     layers: list[_Layer] = [_shelving(rng, 440, 370)]
     # braking cart, further back, right to left: x = 300 - (6.0 t - 0.17 t^2)
-    layers.append(_cart(rng, 120, colour=(40, 120, 60),
-                        place=lambda t: _translate(300.0 - (6.0 * t - 0.17 * t * t), 238.0)))
+    layers.append(
+        _cart(rng, 120, colour=(40, 120, 60), place=lambda t: _translate(300.0 - (6.0 * t - 0.17 * t * t), 238.0))
+    )
     # accelerating cart in front, left to right: x = 90 + 0.3 t + 0.25 t^2
-    layers.append(_cart(rng, 140, colour=(180, 40, 40),
-                        place=lambda t: _translate(90.0 + 0.3 * t + 0.25 * t * t, 270.0)))
+    layers.append(
+        _cart(rng, 140, colour=(180, 40, 40), place=lambda t: _translate(90.0 + 0.3 * t + 0.25 * t * t, 270.0))
+    )
     # hanging sign swinging about its pivot above the picture: angle = 9 deg * sin(2 pi t / 22)
-    sign = _panel(rng, 90, 34, colour=(250, 210, 30), text_colour=(20, 20, 20), lines=["LANE", "4B"],
-                  place=lambda t: _translate(250.0, -30.0) @ _rotate(9.0 * np.sin(2 * np.pi * t / 22.0))
-                  @ _translate(-45.0, 62.0), scale=0.7)
+    sign = _panel(
+        rng,
+        90,
+        34,
+        colour=(250, 210, 30),
+        text_colour=(20, 20, 20),
+        lines=["LANE", "4B"],
+        place=lambda t: (
+            _translate(250.0, -30.0) @ _rotate(9.0 * np.sin(2 * np.pi * t / 22.0)) @ _translate(-45.0, 62.0)
+        ),
+        scale=0.7,
+    )
     layers.append(sign)
-    chain = _panel(rng, 3, 64, colour=(80, 80, 85), text_colour=(0, 0, 0), lines=[], rivets=False,
-                   place=lambda t: _translate(250.0, -30.0) @ _rotate(9.0 * np.sin(2 * np.pi * t / 22.0))
-                   @ _translate(-1.5, 0.0))
+    chain = _panel(
+        rng,
+        3,
+        64,
+        colour=(80, 80, 85),
+        text_colour=(0, 0, 0),
+        lines=[],
+        rivets=False,
+        place=lambda t: _translate(250.0, -30.0) @ _rotate(9.0 * np.sin(2 * np.pi * t / 22.0)) @ _translate(-1.5, 0.0),
+    )
     layers.insert(-1, chain)
     return _Scene(tuple(layers), camera=lambda t: np.eye(3), luma_gain=lambda t: 1.0 + 0.06 * t / 16.0)
 
@@ -545,7 +610,9 @@ def _render(scene: _Scene, t: float, width: int, height: int) -> Picture:
         canvas *= (1.0 - a)[..., None]
         canvas += warped[..., :3]
     if _OPTICS_SIGMA > 0:
-        canvas = cv2.GaussianBlur(canvas, (0, 0), sigmaX=_OPTICS_SIGMA, sigmaY=_OPTICS_SIGMA, borderType=cv2.BORDER_REFLECT)
+        canvas = cv2.GaussianBlur(
+            canvas, (0, 0), sigmaX=_OPTICS_SIGMA, sigmaY=_OPTICS_SIGMA, borderType=cv2.BORDER_REFLECT
+        )
     y = _box(canvas[..., 0], 2)
     gain = float(scene.luma_gain(t))
     if gain != 1.0:

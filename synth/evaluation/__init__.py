@@ -1,5 +1,4 @@
-"""Evaluation: the workbench (compare, GOP runs), tables, plots and report pages.
-"""
+"""Evaluation: the workbench (compare, GOP runs), tables, plots and report pages."""
 
 from synth.lazy import lazy_exports
 

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from typing import Sequence
+from collections.abc import Sequence
 
 from synth.errors import ParameterError
 from synth.evaluation.workbench import FrameSource, Job, RunResult, parse_vector_qps, run_jobs
@@ -113,8 +113,19 @@ def compare_clip(
     return RunResult("compare", clip_name, settings, methods, records, pairs, highlights, group_key="gap")
 
 
-def compare(path, *, gap=8, makers=None, predictors=None, vectors=None, vector_qp=None, params=None,
-            pictures=None, frames: int | None = None, progress=None) -> RunResult:
+def compare(
+    path,
+    *,
+    gap=8,
+    makers=None,
+    predictors=None,
+    vectors=None,
+    vector_qp=None,
+    params=None,
+    pictures=None,
+    frames: int | None = None,
+    progress=None,
+) -> RunResult:
     """`compare_clip` on a clip file, with the command line's option names (used by `synth study`).
 
     Parameters
@@ -137,6 +148,14 @@ def compare(path, *, gap=8, makers=None, predictors=None, vectors=None, vector_q
     gaps = parse_int_list(gap, option="--gaps")
     reader = open_clip(path)
     return compare_clip(
-        reader, gaps=gaps, makers=makers if makers is not None else predictors, vectors=vectors, vector_qps=vector_qp,
-        params=params, pictures=pictures, limit=frames, clip_name=Path(path).name, progress=progress,
+        reader,
+        gaps=gaps,
+        makers=makers if makers is not None else predictors,
+        vectors=vectors,
+        vector_qps=vector_qp,
+        params=params,
+        pictures=pictures,
+        limit=frames,
+        clip_name=Path(path).name,
+        progress=progress,
     )

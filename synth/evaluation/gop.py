@@ -12,12 +12,28 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 from synth.errors import ParameterError
-from synth.evaluation.workbench import FrameSource, Job, RunResult, method_label, parse_vector_qps, resolve_run_makers, run_jobs
+from synth.evaluation.workbench import (
+    FrameSource,
+    Job,
+    RunResult,
+    method_label,
+    parse_vector_qps,
+    resolve_run_makers,
+    run_jobs,
+)
 from synth.hierarchy import check_gop_size, dyadic_gop, flat_gop
 from synth.makers import DEFAULT_MAKER
 from synth.picture import Picture
 
-__all__ = ["DEFAULT_GOP_SIZE", "gop_jobs", "run_gop", "gop", "GopRun", "export_maker_label", "gop_sidecar_path", "write_gop_export"]
+__all__ = [
+    "DEFAULT_GOP_SIZE",
+    "gop_jobs",
+    "run_gop",
+    "gop",
+    "GopRun",
+    "export_maker_label",
+    "write_gop_export",
+]
 
 #: GOP size when none is given (``--gop-size``).
 DEFAULT_GOP_SIZE = 8
@@ -152,7 +168,11 @@ def run_gop(
     if decoded_refs_qp is not None:
         from synth.codec.decoded_refs import encode_decode
 
-        decoded = encode_decode([source[i] for i in range(source.first, last + 1)], qp=decoded_refs_qp, **({"frame_rate": frame_rate} if frame_rate else {}))
+        decoded = encode_decode(
+            [source[i] for i in range(source.first, last + 1)],
+            qp=decoded_refs_qp,
+            **({"frame_rate": frame_rate} if frame_rate else {}),
+        )
         references = FrameSource(decoded, offset=source.first)
     chosen = resolve_run_makers(makers)
     method = export_maker_label(chosen, qps, export_maker) if (export or export_maker is not None) else None
@@ -187,7 +207,9 @@ def run_gop(
     if vectors is not None and hasattr(vectors, "describe"):
         settings["vectors"] = vectors.describe()
     synthetic = [collected[i] for i in sorted(collected)] if method is not None else None
-    return GopRun("gop", clip_name, settings, methods, records, pairs, highlights, group_key="layer", synthetic=synthetic)
+    return GopRun(
+        "gop", clip_name, settings, methods, records, pairs, highlights, group_key="layer", synthetic=synthetic
+    )
 
 
 def gop(
@@ -227,15 +249,6 @@ def gop(
         frame_rate=reader.info.frame_rate,
         progress=progress,
     )
-
-
-def gop_sidecar_path(output) -> "Path":
-    """The JSON sidecar beside an exported ``.y4m``: its name with ``.json`` appended (the layout
-    of ``synth export``)."""
-    from pathlib import Path
-
-    output = Path(output)
-    return output.with_name(output.name + ".json")
 
 
 def write_gop_export(run: GopRun, output, *, info, source_name: str) -> dict:
@@ -290,8 +303,15 @@ def write_gop_export(run: GopRun, output, *, info, source_name: str) -> dict:
         pair = pairs.get((job.past, job.future, qp)) if uses_vectors else None
         fields = [dict(f, source="estimated", qp=qp) for f in pair["fields"]] if pair else []
         pictures.append(
-            {"position": pos, "time": job.target, "past": job.past, "future": job.future, "t": job.t,
-             "layer": dict(job.tags)["layer"], "fields": fields}
+            {
+                "position": pos,
+                "time": job.target,
+                "past": job.past,
+                "future": job.future,
+                "t": job.t,
+                "layer": dict(job.tags)["layer"],
+                "fields": fields,
+            }
         )
     last = run.settings["pictures_used"] - 1
     first = run.synthetic[0][1]
@@ -317,5 +337,7 @@ def write_gop_export(run: GopRun, output, *, info, source_name: str) -> dict:
         "structure": run.settings["structure"],
         "references": "source" if decoded is None else f"decoded-qp{decoded}",
     }
-    atomic_write_text(gop_sidecar_path(output), dumps_strict(doc) + "\n")
+    from synth.codec.export import sidecar_path
+
+    atomic_write_text(sidecar_path(output), dumps_strict(doc) + "\n")
     return doc

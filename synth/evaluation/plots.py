@@ -7,7 +7,7 @@ PNG metadata carries no software version, so the same inputs give the same bytes
 from __future__ import annotations
 
 import io as _stdio
-from typing import Sequence
+from collections.abc import Sequence
 
 import matplotlib
 
@@ -67,7 +67,11 @@ def mean_psnr_by_group(summary: Sequence[dict], methods: Sequence[str], *, xlabe
     fig, ax = plt.subplots(figsize=(6.5, 3.6))
     colours = dict(zip(methods, _colours(len(methods))))
     for m in methods:
-        pts = sorted((r["group"], r["psnr_yuv"]) for r in summary if r["method"] == m and r["group"] != "all" and r["psnr_yuv"] is not None)
+        pts = sorted(
+            (r["group"], r["psnr_yuv"])
+            for r in summary
+            if r["method"] == m and r["group"] != "all" and r["psnr_yuv"] is not None
+        )
         if pts:
             ax.plot([p[0] for p in pts], [p[1] for p in pts], marker="o", label=m, color=colours[m])
     groups = sorted({r["group"] for r in summary if r["group"] != "all"})
@@ -147,12 +151,26 @@ def vector_overlay(picture: np.ndarray, field: VectorField, *, title: str, max_a
     cx = field.x[idx] + field.w[idx] / 2.0
     cy = field.y[idx] + field.h[idx] / 2.0
     ax.quiver(
-        cx, cy, field.dx[idx] / 4.0, field.dy[idx] / 4.0,
-        angles="xy", scale_units="xy", scale=1.0, color="#ffcc00", alpha=0.85, width=0.0025,
+        cx,
+        cy,
+        field.dx[idx] / 4.0,
+        field.dy[idx] / 4.0,
+        angles="xy",
+        scale_units="xy",
+        scale=1.0,
+        color="#ffcc00",
+        alpha=0.85,
+        width=0.0025,
     )
     intra = np.flatnonzero(field.intra)
     if len(intra):
-        ax.plot(field.x[intra] + field.w[intra] / 2.0, field.y[intra] + field.h[intra] / 2.0, "x", color="#ff4040", markersize=3)
+        ax.plot(
+            field.x[intra] + field.w[intra] / 2.0,
+            field.y[intra] + field.h[intra] / 2.0,
+            "x",
+            color="#ff4040",
+            markersize=3,
+        )
     ax.set_xlim(0, w)
     ax.set_ylim(h, 0)
     ax.set_xticks([])

@@ -25,20 +25,34 @@ import csv
 import html
 import io as _stdio
 import os
+from collections.abc import Sequence
 from pathlib import Path
-from typing import Sequence
 
 import numpy as np
 
-from synth.io import atomic_write_text
 from synth.evaluation.workbench import METRIC_KEYS, RunResult, overview, run_document
+from synth.io import atomic_write_text
 from synth.io.jsonout import dumps_strict, strict_json
 
 __all__ = ["CSV_COLUMNS", "results_document", "results_csv", "report_html", "write_report"]
 
 CSV_COLUMNS = (
-    "run", "kind", "clip", "gap", "gop", "layer", "coding_index", "target", "past", "future", "t",
-    "method", "predictor", "vector_qp", *METRIC_KEYS, "seconds",
+    "run",
+    "kind",
+    "clip",
+    "gap",
+    "gop",
+    "layer",
+    "coding_index",
+    "target",
+    "past",
+    "future",
+    "t",
+    "method",
+    "predictor",
+    "vector_qp",
+    *METRIC_KEYS,
+    "seconds",
 )
 
 _COLUMN_TITLES = {
@@ -120,9 +134,11 @@ def _cell(value, key: str, path: str) -> str:
 
 def _summary_table(run_id: int, summary: list[dict], group_title: str) -> str:
     cols = ["pictures", *[k for k in METRIC_KEYS if any(k in r for r in summary)], "ms_per_picture", "wins"]
-    head = f'<tr><th class="name">{html.escape(group_title)}</th><th class="name">method</th>' + "".join(
-        f"<th>{_COLUMN_TITLES[c]}</th>" for c in cols
-    ) + "</tr>"
+    head = (
+        f'<tr><th class="name">{html.escape(group_title)}</th><th class="name">method</th>'
+        + "".join(f"<th>{_COLUMN_TITLES[c]}</th>" for c in cols)
+        + "</tr>"
+    )
     best_by_group: dict = {}
     for r in summary:
         v = r.get("psnr_yuv")
@@ -130,7 +146,11 @@ def _summary_table(run_id: int, summary: list[dict], group_title: str) -> str:
             best_by_group[r["group"]] = v
     rows = []
     for i, r in enumerate(summary):
-        cls = ' class="best"' if r.get("psnr_yuv") is not None and r.get("psnr_yuv") == best_by_group.get(r["group"]) else ""
+        cls = (
+            ' class="best"'
+            if r.get("psnr_yuv") is not None and r.get("psnr_yuv") == best_by_group.get(r["group"])
+            else ""
+        )
         cells = "".join(_cell(r.get(c), c, f"runs.{run_id}.summary.{i}.{c}") for c in cols)
         rows.append(
             f'<tr{cls}><td class="name">{html.escape(str(r["group"]))}</td>'
@@ -150,7 +170,11 @@ def _qp_table(run_id: int, table: list[dict], qps: list[int]) -> str:
 
 def _overview_table(ov: dict) -> str:
     cols = ov["columns"]
-    head = '<tr><th class="name">method</th>' + "".join(f"<th>{html.escape(c)}</th>" for c in cols) + "<th>wins</th><th>ms/picture</th></tr>"
+    head = (
+        '<tr><th class="name">method</th>'
+        + "".join(f"<th>{html.escape(c)}</th>" for c in cols)
+        + "<th>wins</th><th>ms/picture</th></tr>"
+    )
     best = {c: max((r[c] for r in ov["rows"] if r[c] is not None), default=None) for c in cols}
     rows = []
     for i, r in enumerate(ov["rows"]):
@@ -171,7 +195,11 @@ def _run_title(run: RunResult) -> str:
     if run.kind == "compare":
         gaps = ", ".join(str(g) for g in s.get("gaps", []))
         return f"Comparison on {run.clip}: reference gap {gaps}"
-    refs = f"references decoded at QP {s['decoded_refs_qp']}" if s.get("decoded_refs_qp") is not None else "source references"
+    refs = (
+        f"references decoded at QP {s['decoded_refs_qp']}"
+        if s.get("decoded_refs_qp") is not None
+        else "source references"
+    )
     return f"GOP run on {run.clip}: size {s.get('gop_size')}, {s.get('structure')} structure, {refs}"
 
 
@@ -185,7 +213,12 @@ def _highlight_section(run: RunResult) -> str:
         value = "inf" if not np.isfinite(h.key_value) else f"{h.key_value:.2f} dB"
         parts.append(f"<h3>{h.label.capitalize()} picture for {html.escape(h.key_method)}: {where}, {value}</h3>")
         preds = {m: p.picture.y for m, p in h.predictions.items()}
-        parts.append(_img(plots.error_maps(h.target.y, preds, title=f"{h.label} picture {j.target}"), f"error maps, {h.label} picture"))
+        parts.append(
+            _img(
+                plots.error_maps(h.target.y, preds, title=f"{h.label} picture {j.target}"),
+                f"error maps, {h.label} picture",
+            )
+        )
         weights = None
         source = h.key_method
         if "past_weight" in h.predictions[h.key_method].maps:
@@ -196,13 +229,22 @@ def _highlight_section(run: RunResult) -> str:
                     weights, source = p.maps["past_weight"], m
                     break
         if weights is not None:
-            parts.append(_img(plots.weight_map(weights, title=f"{source}: weight of the past reference, picture {j.target}"), f"weight map, {h.label} picture"))
+            parts.append(
+                _img(
+                    plots.weight_map(weights, title=f"{source}: weight of the past reference, picture {j.target}"),
+                    f"weight map, {h.label} picture",
+                )
+            )
         if h.fields:
             f0 = h.fields[0]
             on = h.future if f0.coded_time == float(j.future) else h.past
             parts.append(
                 _img(
-                    plots.vector_overlay(on.y, f0, title=f"vectors coded on picture {f0.coded_time:g} pointing to picture {f0.reference_time:g}"),
+                    plots.vector_overlay(
+                        on.y,
+                        f0,
+                        title=f"vectors coded on picture {f0.coded_time:g} pointing to picture {f0.reference_time:g}",
+                    ),
                     f"vector overlay, {h.label} picture",
                 )
             )
@@ -242,11 +284,20 @@ def report_html(runs: Sequence[RunResult], doc: dict, *, title: str = "synth eva
         )
         body.append(_summary_table(i, rdoc["summary"], group_title))
         if run.records:
-            body.append(_img(plots.psnr_per_picture(run.records, run.methods, group_key=run.group_key, group_label=group_title), "PSNR per picture"))
+            body.append(
+                _img(
+                    plots.psnr_per_picture(run.records, run.methods, group_key=run.group_key, group_label=group_title),
+                    "PSNR per picture",
+                )
+            )
         groups = {r["group"] for r in rdoc["summary"] if r["group"] != "all"}
         if len(groups) > 1:
             label = "reference gap (pictures)" if run.group_key == "gap" else "temporal layer"
-            body.append(_img(plots.mean_psnr_by_group(rdoc["summary"], run.methods, xlabel=label), f"mean PSNR per {group_title}"))
+            body.append(
+                _img(
+                    plots.mean_psnr_by_group(rdoc["summary"], run.methods, xlabel=label), f"mean PSNR per {group_title}"
+                )
+            )
         if rdoc["vector_qp_table"]:
             qps = list(s["vector_qps"])
             body.append("<h3>Vector QP: how the rate constraint on coded vectors degrades each vector maker</h3>")
@@ -255,14 +306,16 @@ def report_html(runs: Sequence[RunResult], doc: dict, *, title: str = "synth eva
         body.append(_highlight_section(run))
         body.append("</section>")
     return (
-        "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
+        '<!DOCTYPE html>\n<html lang="en"><head><meta charset="utf-8">'
         f"<title>{html.escape(title)}</title><style>{_STYLE}</style></head><body>"
         + "\n".join(body)
         + "</body></html>\n"
     )
 
 
-def write_report(runs: Sequence[RunResult], directory: str | os.PathLike, *, title: str = "synth evaluation report") -> dict[str, Path]:
+def write_report(
+    runs: Sequence[RunResult], directory: str | os.PathLike, *, title: str = "synth evaluation report"
+) -> dict[str, Path]:
     """Write results.json, results.csv and report.html into `directory` (created if needed).
 
     Each file is written atomically. Returns the paths by name ('json', 'csv', 'html').

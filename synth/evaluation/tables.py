@@ -6,7 +6,7 @@ Every table reads a run document (`synth.evaluation.workbench.run_document`: the
 
 from __future__ import annotations
 
-from typing import Sequence
+from collections.abc import Sequence
 
 from synth.evaluation.workbench import RunResult, overview, run_document
 
@@ -36,7 +36,9 @@ def _grid(header: Sequence[str], rows: Sequence[Sequence[str]]) -> str:
     lines = ["  ".join(h.ljust(w) if i < 2 else h.rjust(w) for i, (h, w) in enumerate(zip(header, widths)))]
     lines.append("  ".join("-" * w for w in widths))
     for r in rows:
-        lines.append("  ".join(str(c).ljust(w) if i < 2 else str(c).rjust(w) for i, (c, w) in enumerate(zip(r, widths))))
+        lines.append(
+            "  ".join(str(c).ljust(w) if i < 2 else str(c).rjust(w) for i, (c, w) in enumerate(zip(r, widths)))
+        )
     return "\n".join(lines)
 
 
@@ -70,7 +72,11 @@ def run_tables(run) -> str:
     if doc["kind"] == "compare":
         title = f"{doc['clip']}: compare, gaps {', '.join(str(g) for g in s['gaps'])}, {s['pictures_used']} pictures"
     else:
-        refs = f"references decoded at QP {s['decoded_refs_qp']}" if s.get("decoded_refs_qp") is not None else "source references"
+        refs = (
+            f"references decoded at QP {s['decoded_refs_qp']}"
+            if s.get("decoded_refs_qp") is not None
+            else "source references"
+        )
         title = f"{doc['clip']}: GOP size {s['gop_size']} ({s['structure']}), {s['gops']} GOP(s), {refs}"
     parts = [title, summary_table(doc)]
     qp = vector_qp_table(doc)
@@ -85,7 +91,13 @@ def format_overview(ov: dict) -> str:
         return ""
     header = ["method", "", *ov["columns"], "wins", "ms/pic"]
     rows = [
-        [r["method"], "", *[_fmt(r[c], "{:.2f}") for c in ov["columns"]], str(r["wins"]), _fmt(r["ms_per_picture"], "{:.1f}")]
+        [
+            r["method"],
+            "",
+            *[_fmt(r[c], "{:.2f}") for c in ov["columns"]],
+            str(r["wins"]),
+            _fmt(r["ms_per_picture"], "{:.1f}"),
+        ]
         for r in ov["rows"]
     ]
     return _grid(header, rows)

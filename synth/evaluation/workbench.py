@@ -15,8 +15,8 @@ from __future__ import annotations
 import math
 import time
 from collections import Counter, OrderedDict
+from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass, field
-from typing import Callable, Iterable, Sequence
 
 import numpy as np
 
@@ -336,7 +336,9 @@ def run_jobs(
     qps = list(vector_qps) if vector_qps else [int(getattr(vectors, "qp", DEFAULT_VECTOR_QP))]
     several = len(qps) > 1
     if several and getattr(vectors, "kind", "estimate") != "estimate":
-        raise ParameterError("--vector-qp takes one value with a field file as --vectors (the file's vectors are fixed)")
+        raise ParameterError(
+            "--vector-qp takes one value with a field file as --vectors (the file's vectors are fixed)"
+        )
     sources = {qp: vectors.with_qp(qp) for qp in qps}
     any_vectors = any(m.needs_vectors for m in makers)
     methods: list[str] = []
@@ -349,7 +351,9 @@ def run_jobs(
     for j in jobs:
         for idx in (j.target, j.past, j.future):
             if idx not in targets or idx not in references:
-                raise ParameterError(f"picture {idx} out of range: the run uses pictures {targets.first}..{targets.last}")
+                raise ParameterError(
+                    f"picture {idx} out of range: the run uses pictures {targets.first}..{targets.last}"
+                )
     per_pair = Counter((j.past, j.future) for j in jobs)
     records: list[dict] = []
     pairs: list[dict] = []
@@ -393,8 +397,12 @@ def run_jobs(
                 pkey = (job.past, job.future, label)
                 if pkey not in prepared:
                     prepared[pkey] = m.prepare(
-                        past, future, fields=fields_by_qp.get(qp) if qp is not None else None, params=params,
-                        past_time=float(job.past), future_time=float(job.future),
+                        past,
+                        future,
+                        fields=fields_by_qp.get(qp) if qp is not None else None,
+                        params=params,
+                        past_time=float(job.past),
+                        future_time=float(job.future),
                     )
                 pair = prepared[pkey]
                 pred = pair.at(job.t)
@@ -418,7 +426,7 @@ def run_jobs(
                 rec["seconds"] = float(pred.seconds) + pair.prepare_seconds / per_pair[(job.past, job.future)]
                 records.append(rec)
         if keep_highlights:
-            value = next(r["psnr_yuv"] for r in records[-len(predictions):] if r["method"] == key_method)
+            value = next(r["psnr_yuv"] for r in records[-len(predictions) :] if r["method"] == key_method)
             value = float("inf") if value is None else value
             fields0 = fields_by_qp.get(qps[0], [])
             if worst is None or value < worst.key_value:

@@ -51,12 +51,24 @@ _TABLE = {
     "weighted": (True, "distance-weighted average of the K candidates", "vector_based:weighted_picture", None),
     "obmc": (True, "overlapped block MC of projected vectors (raised cosine)", "obmc:obmc_picture", None),
     "average": (False, "temporal-distance average of the references", "average:average_picture", None),
-    "dis-fast": (False, "optical-flow interpolation, DIS fast preset", "optical_flow:interpolate_prepared",
-                 "optical_flow:prepare_dis_fast"),
-    "dis-medium": (False, "optical-flow interpolation, DIS medium preset", "optical_flow:interpolate_prepared",
-                   "optical_flow:prepare_dis_medium"),
-    "farneback": (False, "optical-flow interpolation, Farneback flow", "optical_flow:interpolate_prepared",
-                  "optical_flow:prepare_farneback"),
+    "dis-fast": (
+        False,
+        "optical-flow interpolation, DIS fast preset",
+        "optical_flow:interpolate_prepared",
+        "optical_flow:prepare_dis_fast",
+    ),
+    "dis-medium": (
+        False,
+        "optical-flow interpolation, DIS medium preset",
+        "optical_flow:interpolate_prepared",
+        "optical_flow:prepare_dis_medium",
+    ),
+    "farneback": (
+        False,
+        "optical-flow interpolation, Farneback flow",
+        "optical_flow:interpolate_prepared",
+        "optical_flow:prepare_farneback",
+    ),
 }
 
 #: Registered names, in report order: vector-based first, then those that need no vectors.

@@ -15,8 +15,9 @@ those that do raise `ParameterError` without them. Times inside the fields are d
 from __future__ import annotations
 
 import time
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
-from typing import Any, Callable, Sequence
+from typing import Any
 
 import numpy as np
 
@@ -74,7 +75,10 @@ def temporal_blend(past_planes, future_planes, t: float) -> list[np.ndarray]:
     """
     a = np.float32(1.0 - t)
     b = np.float32(t)
-    return [a * np.asarray(p, dtype=np.float32) + b * np.asarray(f, dtype=np.float32) for p, f in zip(past_planes, future_planes)]
+    return [
+        a * np.asarray(p, dtype=np.float32) + b * np.asarray(f, dtype=np.float32)
+        for p, f in zip(past_planes, future_planes)
+    ]
 
 
 #: ``prepare(past, future, *, fields, params) -> state`` of a maker.
@@ -119,8 +123,16 @@ class Maker:
     summary: str
     prepare_function: PrepareFunction = _keep_inputs
 
-    def prepare(self, past: Picture, future: Picture, *, fields: Sequence[VectorField] | None = None, params=None,
-                past_time: float = 0.0, future_time: float = 1.0) -> "PreparedPair":
+    def prepare(
+        self,
+        past: Picture,
+        future: Picture,
+        *,
+        fields: Sequence[VectorField] | None = None,
+        params=None,
+        past_time: float = 0.0,
+        future_time: float = 1.0,
+    ) -> PreparedPair:
         """Do the work shared by every picture between `past` and `future`.
 
         Raises
@@ -133,11 +145,20 @@ class Maker:
             raise ParameterError(f"maker {self.name!r} needs vector fields between the references, got none")
         start = time.perf_counter()
         state = self.prepare_function(past, future, fields=list(fields or []), params=params)
-        return PreparedPair(self, past, future, list(fields or []), float(past_time), float(future_time), state,
-                            time.perf_counter() - start)
+        return PreparedPair(
+            self,
+            past,
+            future,
+            list(fields or []),
+            float(past_time),
+            float(future_time),
+            state,
+            time.perf_counter() - start,
+        )
 
-    def __call__(self, past: Picture, future: Picture, *, t: float, fields: Sequence[VectorField] | None = None,
-                 params=None) -> Prediction:
+    def __call__(
+        self, past: Picture, future: Picture, *, t: float, fields: Sequence[VectorField] | None = None, params=None
+    ) -> Prediction:
         """One picture at once: ``prepare(...).at(t)``, the preparation time included."""
         pair = self.prepare(past, future, fields=fields, params=params)
         prediction = pair.at(t)

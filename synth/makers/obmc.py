@@ -7,7 +7,7 @@ doi:10.1109/83.334974.
 
 from __future__ import annotations
 
-from typing import Sequence
+from collections.abc import Sequence
 
 import numpy as np
 from scipy.spatial import cKDTree
@@ -83,12 +83,17 @@ def predict_obmc(past: Picture, future: Picture, *, t: float, fields: Sequence[V
     block = grid_block_size(fields)
     nby, nbx = -(-h // block), -(-w // block)
     # Block centres in sample coordinates (a block over samples x..x+B-1 is centred at x + (B-1)/2).
-    gy, gx = np.meshgrid(np.arange(nby) * block + (block - 1) / 2.0, np.arange(nbx) * block + (block - 1) / 2.0, indexing="ij")
+    gy, gx = np.meshgrid(
+        np.arange(nby) * block + (block - 1) / 2.0, np.arange(nbx) * block + (block - 1) / 2.0, indexing="ij"
+    )
     zeros = np.zeros((nby, nbx), np.float32)
     if len(landed):
         centres = np.stack([landed.cx, landed.cy], axis=1).astype(np.float64)
         dist, idx = cKDTree(centres).query(np.stack([gx.ravel(), gy.ravel()], axis=1), k=1)
-        disp = {name: getattr(landed, name)[idx].reshape(nby, nbx).astype(np.float32) for name in ("past_dx", "past_dy", "future_dx", "future_dy")}
+        disp = {
+            name: getattr(landed, name)[idx].reshape(nby, nbx).astype(np.float32)
+            for name in ("past_dx", "past_dy", "future_dx", "future_dy")
+        }
         dist = dist.reshape(nby, nbx).astype(np.float32)
     else:  # every block intra: no motion known, zero displacements
         disp = {name: zeros for name in ("past_dx", "past_dy", "future_dx", "future_dy")}

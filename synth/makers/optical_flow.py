@@ -41,9 +41,9 @@ prediction), ``occluded_in_future`` and ``occluded_in_past`` (1 where a far samp
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass
 from functools import partial
-from typing import Callable
 
 import cv2
 import numpy as np
@@ -105,9 +105,7 @@ def _invert_to_time(flow: np.ndarray, fraction: float) -> np.ndarray:
     if fraction == 0.0:
         return disp
     for _ in range(INVERSION_STEPS):
-        sampled = np.stack(
-            [sample_with_flow(flow[..., c], disp, interpolation="bilinear") for c in range(2)], axis=-1
-        )
+        sampled = np.stack([sample_with_flow(flow[..., c], disp, interpolation="bilinear") for c in range(2)], axis=-1)
         disp = -fraction * sampled
     return disp
 

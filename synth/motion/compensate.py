@@ -16,8 +16,8 @@ import numpy as np
 
 from synth.errors import ParameterError
 from synth.field import VectorField
-from synth.picture import Picture
 from synth.motion.subpel import chroma_bilinear, luma_phases
+from synth.picture import Picture
 
 __all__ = ["motion_compensate", "vector_maps"]
 

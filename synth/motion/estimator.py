@@ -33,12 +33,12 @@ import numpy as np
 
 from synth.errors import ParameterError
 from synth.field import VectorField
-from synth.motion.rate import field_predictors
 from synth.motion.cost import lambda_motion, median_predictor, vector_bits
-from synth.motion.search import ANCHOR, anchor_vectors, block_sad, integer_search, subpel_search
-from synth.picture import Picture
 from synth.motion.quadtree import collect_leaves, decide_splits, plan_levels
+from synth.motion.rate import field_predictors
+from synth.motion.search import ANCHOR, anchor_vectors, block_sad, integer_search, subpel_search
 from synth.motion.subpel import QuarterPelReference
+from synth.picture import Picture
 
 __all__ = ["estimate_field", "estimate_reference_fields", "INTRA_BITS", "DEFAULT_BLOCK_SIZES"]
 

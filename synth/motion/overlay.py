@@ -55,12 +55,18 @@ def draw_field_overlay(picture: Picture, field: VectorField, *, scale: int = 1) 
         gray = cv2.resize(gray, None, fx=scale, fy=scale, interpolation=cv2.INTER_NEAREST)
     img = cv2.cvtColor(gray, cv2.COLOR_GRAY2BGR)
     tint = img.copy()
-    for x, yy, w, h, intra in zip(field.x.tolist(), field.y.tolist(), field.w.tolist(), field.h.tolist(), field.intra.tolist()):
+    for x, yy, w, h, intra in zip(
+        field.x.tolist(), field.y.tolist(), field.w.tolist(), field.h.tolist(), field.intra.tolist()
+    ):
         if intra:
             cv2.rectangle(tint, (x * scale, yy * scale), ((x + w) * scale - 1, (yy + h) * scale - 1), _INTRA, -1)
     img = cv2.addWeighted(img, 0.7, tint, 0.3, 0)
-    for x, yy, w, h, intra in zip(field.x.tolist(), field.y.tolist(), field.w.tolist(), field.h.tolist(), field.intra.tolist()):
-        cv2.rectangle(img, (x * scale, yy * scale), ((x + w) * scale - 1, (yy + h) * scale - 1), _INTRA if intra else _OUTLINE, 1)
+    for x, yy, w, h, intra in zip(
+        field.x.tolist(), field.y.tolist(), field.w.tolist(), field.h.tolist(), field.intra.tolist()
+    ):
+        cv2.rectangle(
+            img, (x * scale, yy * scale), ((x + w) * scale - 1, (yy + h) * scale - 1), _INTRA if intra else _OUTLINE, 1
+        )
     rows = zip(field.x.tolist(), field.y.tolist(), field.w.tolist(), field.h.tolist(),
                field.dx.tolist(), field.dy.tolist(), field.intra.tolist())  # fmt: skip
     for x, yy, w, h, dx, dy, intra in rows:

@@ -92,8 +92,21 @@ def _smooth_penalty(vx, vy, ox, oy, rows: int, cols: int, *, weight: float, cap:
     return weight * pen
 
 
-def _coarse_full_search(cur: np.ndarray, ref: np.ndarray, x0, y0, win: int, radius: int, *, rows: int, cols: int,
-                        smooth: float = 0.0, cap: int = 2, passes: int = 3, outside: float = 0.0):
+def _coarse_full_search(
+    cur: np.ndarray,
+    ref: np.ndarray,
+    x0,
+    y0,
+    win: int,
+    radius: int,
+    *,
+    rows: int,
+    cols: int,
+    smooth: float = 0.0,
+    cap: int = 2,
+    passes: int = 3,
+    outside: float = 0.0,
+):
     """Exhaustive search of windows over offsets +-radius, regularised by neighbour agreement.
 
     Cost of an offset: SAD + smooth * sum over the 4 grid neighbours of min(|v - v_n|_1, cap) (a

@@ -65,7 +65,7 @@ class VectorSource:
         """``estimate`` or the file name, for tables and records."""
         return ESTIMATE if self.kind == ESTIMATE else str(self.path)
 
-    def with_qp(self, qp: int) -> "VectorSource":
+    def with_qp(self, qp: int) -> VectorSource:
         """The same source at another vector QP."""
         return VectorSource(self.kind, self.path, int(qp), self.two_way, dict(self.options))
 
@@ -83,8 +83,13 @@ class VectorSource:
             from synth.motion.estimator import estimate_reference_fields
 
             return estimate_reference_fields(
-                past, future, past_time=float(past_time), future_time=float(future_time), qp=self.qp,
-                two_way=self.two_way, **self.options,
+                past,
+                future,
+                past_time=float(past_time),
+                future_time=float(future_time),
+                qp=self.qp,
+                two_way=self.two_way,
+                **self.options,
             )
         from synth.io import read_fields
 
@@ -105,8 +110,14 @@ class VectorSource:
         return {"vectors": str(self.path)}
 
 
-def parse_vector_source(value: str | os.PathLike | None, *, qp: int = DEFAULT_VECTOR_QP, two_way: bool = False,
-                        name: str = "--vectors", **options) -> VectorSource:
+def parse_vector_source(
+    value: str | os.PathLike | None,
+    *,
+    qp: int = DEFAULT_VECTOR_QP,
+    two_way: bool = False,
+    name: str = "--vectors",
+    **options,
+) -> VectorSource:
     """A `VectorSource` from the value of ``--vectors``: ``estimate`` (or None) or a field file path.
 
     Raises

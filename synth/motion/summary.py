@@ -9,11 +9,11 @@ from __future__ import annotations
 
 import numpy as np
 
-from synth.motion.compensate import motion_compensate
 from synth.errors import ParameterError
 from synth.field import VectorField
-from synth.motion.rate import field_vector_bits
 from synth.metrics import plane_psnr
+from synth.motion.compensate import motion_compensate
+from synth.motion.rate import field_vector_bits
 from synth.picture import Picture
 
 __all__ = ["summarize_field"]
@@ -37,7 +37,7 @@ def summarize_field(field: VectorField, *, coded: Picture | None = None, referen
         predictor, H.264 clause 9.1.1), and with pictures ``mc_psnr_y`` and ``zero_motion_psnr_y``
         (dB).
     """
-    area = (field.w.astype(np.int64) * field.h.astype(np.int64))
+    area = field.w.astype(np.int64) * field.h.astype(np.int64)
     sizes: dict[str, int] = {}
     for w, h in sorted(set(zip(field.w.tolist(), field.h.tolist())), reverse=True):
         sizes[f"{w}x{h}"] = int(np.sum((field.w == w) & (field.h == h)))

@@ -43,7 +43,10 @@ def varying_parameters(jobs: list[Job]) -> tuple[dict[str, list[str]], dict[str,
             if k not in CLIP_OPTIONS:
                 per.setdefault(k, set()).add(json.dumps(v, sort_keys=True))
     vary = {kind: sorted(k for k, vs in per.items() if len(vs) > 1) for kind, per in values.items()}
-    fixed = {kind: {k: json.loads(next(iter(vs))) for k, vs in sorted(per.items()) if len(vs) == 1} for kind, per in values.items()}
+    fixed = {
+        kind: {k: json.loads(next(iter(vs))) for k, vs in sorted(per.items()) if len(vs) == 1}
+        for kind, per in values.items()
+    }
     return vary, fixed
 
 
@@ -139,7 +142,9 @@ def aggregate(jobs: list[Job], records: dict[str, dict]) -> StudyTables:
             tables.missing.append(job.id)
             continue
         if rec.get("status") != "ok":
-            tables.failures.append({"job": job.id, "kind": job.kind, "clip": job.clip, "setting": setting, "error": rec.get("error")})
+            tables.failures.append(
+                {"job": job.id, "kind": job.kind, "clip": job.clip, "setting": setting, "error": rec.get("error")}
+            )
             continue
         pcols = _param_columns(job.params)
         for key in pcols:
@@ -157,7 +162,11 @@ def aggregate(jobs: list[Job], records: dict[str, dict]) -> StudyTables:
                 result_columns.setdefault(name, None)
                 if name in kind.group_by:
                     continue
-                is_metric = name in kind.metrics if kind.metrics is not None else isinstance(value, float) or value in ("inf", "-inf", "nan")
+                is_metric = (
+                    name in kind.metrics
+                    if kind.metrics is not None
+                    else isinstance(value, float) or value in ("inf", "-inf", "nan")
+                )
                 if is_metric and (_number(value) is not None or value is None and kind.metrics is not None):
                     ms = tables.metrics.setdefault(job.kind, [])
                     if name not in ms:

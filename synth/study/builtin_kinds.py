@@ -25,12 +25,12 @@ unavailable and a manifest using it is rejected before any job starts.
 from __future__ import annotations
 
 import importlib
-from typing import Any, Callable
+from collections.abc import Callable
+from typing import Any
 
 from synth.errors import ParameterError
 from synth.metrics import mean_squared_error, picture_psnr
 from synth.picture import Picture
-
 from synth.study.clipsource import clip_as_y4m, open_job_clip
 from synth.study.kinds import JobKind, KindUnavailable, Param, register_kind
 
@@ -201,7 +201,6 @@ def synthesise_rows(clip_path, params: dict, *, progress=None) -> list[dict]:
     """
     from synth.codec.export import prepare_pair
     from synth.makers import get_maker
-
     from synth.study.stripes import synthesise_striped
 
     params = _with_defaults("synthesise", params)
@@ -271,13 +270,24 @@ def rd_rows(clip_path, params: dict, *, progress=None) -> list[dict]:
     source, syn = _source_and_params(params, qp=vector_qp)
     with open_job_clip(clip_path, params) as clip:
         result = measure_clip(
-            clip.read, len(clip), clip=str(clip_path), gap=int(params["gap"]),
-            qps=parse_qps(params["qps"], bit_depth=clip.info.bit_depth, option="qps"), codec=params["codec"],
-            makers=resolve_makers(params["makers"], option="makers"), source=source, params=syn,
-            vector_qp=None if vector_qp is None else int(vector_qp), refs=params["refs"],
-            extra_qp=int(params["extra_qp"]), preset=params["preset"],
-            offsets={"block": int(params["offset_block"]), "window": int(params["offset_window"])} if params["offsets"] else None,
-            limit=int(params["limit"]) or None, progress=progress,
+            clip.read,
+            len(clip),
+            clip=str(clip_path),
+            gap=int(params["gap"]),
+            qps=parse_qps(params["qps"], bit_depth=clip.info.bit_depth, option="qps"),
+            codec=params["codec"],
+            makers=resolve_makers(params["makers"], option="makers"),
+            source=source,
+            params=syn,
+            vector_qp=None if vector_qp is None else int(vector_qp),
+            refs=params["refs"],
+            extra_qp=int(params["extra_qp"]),
+            preset=params["preset"],
+            offsets={"block": int(params["offset_block"]), "window": int(params["offset_window"])}
+            if params["offsets"]
+            else None,
+            limit=int(params["limit"]) or None,
+            progress=progress,
         )
     bd = result.bd()
     rows = []
@@ -303,11 +313,23 @@ def _rows_of(result) -> list[dict]:
     return [dict(r) for r in rows]
 
 
-def _adapter(kind: str, module: str, name: str, issue: int, *, params: dict[str, Param] | None, headline: tuple[str, ...],
-             metrics: tuple[str, ...] | None, group_by: tuple[str, ...], summary: str) -> JobKind:
+def _adapter(
+    kind: str,
+    module: str,
+    name: str,
+    issue: int,
+    *,
+    params: dict[str, Param] | None,
+    headline: tuple[str, ...],
+    metrics: tuple[str, ...] | None,
+    group_by: tuple[str, ...],
+    summary: str,
+) -> JobKind:
     def available() -> str | None:
         if _library_function(module, name) is None:
-            return f"job kind {kind!r} is not available yet: {module}.{name} is not in this installation (issue {issue})"
+            return (
+                f"job kind {kind!r} is not available yet: {module}.{name} is not in this installation (issue {issue})"
+            )
         return None
 
     def run(clip_path, params: dict, *, progress=None) -> list[dict]:
@@ -321,8 +343,16 @@ def _adapter(kind: str, module: str, name: str, issue: int, *, params: dict[str,
 
     run.__name__ = f"{kind}_rows"
     run.__doc__ = f"Run ``{module}.{name}`` on the job's clip and return its per-picture rows."
-    return JobKind(name=kind, run=run, params=params, headline=headline, metrics=metrics, group_by=group_by,
-                   summary=summary, available=available)
+    return JobKind(
+        name=kind,
+        run=run,
+        params=params,
+        headline=headline,
+        metrics=metrics,
+        group_by=group_by,
+        summary=summary,
+        available=available,
+    )
 
 
 def _rd_available() -> str | None:
@@ -387,7 +417,9 @@ register_kind(
             "gap": Param((int,), 2, _at_least(2), "distance between the two references, in pictures"),
             "maker": Param((str,), "lmmse", _maker_names(several=False), "maker of the picture (synth.makers)"),
             **_vector_params(qp_default=27),
-            "stripe_rows": Param((int,), 0, lambda v: None if v >= 0 else "must be >= 0", "rows per stripe (0: whole picture)"),
+            "stripe_rows": Param(
+                (int,), 0, lambda v: None if v >= 0 else "must be >= 0", "rows per stripe (0: whole picture)"
+            ),
         },
         headline=("psnr_y",),
         metrics=("psnr_y", "psnr_cb", "psnr_cr", "mse_y"),
@@ -403,16 +435,24 @@ register_kind(
             "gap": Param((int,), 8, _at_least(2), "distance between the two references"),
             "qps": Param((str,), "22,27,32,37", None, "comma-separated QPs, four or more"),
             "codec": Param((str,), "h264", _one_of(("h264", "hevc")), "h264 (x264) or hevc (x265)"),
-            "makers": Param((str,), "lmmse,dis-medium", _maker_names(several=True),
-                            "comma-separated makers, one extra reference each; the first is the synthetic one"),
+            "makers": Param(
+                (str,),
+                "lmmse,dis-medium",
+                _maker_names(several=True),
+                "comma-separated makers, one extra reference each; the first is the synthetic one",
+            ),
             **_vector_params(qp_default=None),
-            "refs": Param((str,), "decoded", _one_of(("decoded", "source")), "synthesise from decoded or source references"),
+            "refs": Param(
+                (str,), "decoded", _one_of(("decoded", "source")), "synthesise from decoded or source references"
+            ),
             "extra_qp": Param((int,), 4, _int_range(0, 51), "QP of the extra reference picture"),
             "preset": Param((str,), "medium", None, "encoder speed preset"),
             "offsets": Param((bool,), False, None, "also measure the offset-corrected synthetic picture"),
             "offset_block": Param((int,), 16, _one_of((8, 16, 32)), "offset block size (with offsets)"),
             "offset_window": Param((int,), 2, _at_least(1), "offset search range in luma samples (with offsets)"),
-            "limit": Param((int,), 0, lambda v: None if v >= 0 else "must be >= 0", "only the first N targets (0: all)"),
+            "limit": Param(
+                (int,), 0, lambda v: None if v >= 0 else "must be >= 0", "only the first N targets (0: all)"
+            ),
         },
         headline=("bits", "psnr_y"),
         metrics=("bits", "psnr_y", "psnr_cb", "psnr_cr", "bd_rate", "bd_psnr"),
@@ -429,7 +469,7 @@ def _qp_list(v) -> str | None:
         return None if 0 <= v <= 51 else "must be in 0..51"
     parts = [p.strip() for p in str(v).split(",")]
     if not parts or not all(p.isdigit() and 0 <= int(p) <= 51 for p in parts):
-        return "must be a QP 0..51 or comma-separated QPs such as \"22,32,42\""
+        return 'must be a QP 0..51 or comma-separated QPs such as "22,32,42"'
     return None
 
 
@@ -439,7 +479,10 @@ def _positive(v) -> str | None:
 
 register_kind(
     _adapter(
-        "compare", "synth.evaluation.compare", "compare", 6,
+        "compare",
+        "synth.evaluation.compare",
+        "compare",
+        6,
         params={
             "gap": Param((int,), 8, _at_least(2), "distance between the two references"),
             "makers": Param((str,), None, _maker_names(several=True), "comma-separated makers (default: all)"),
@@ -449,13 +492,18 @@ register_kind(
             "params": Param((str,), None, _params_file, "synthesis parameter file"),
             "frames": Param((int,), None, _positive, "use only the first N pictures"),
         },
-        headline=("psnr_yuv",), metrics=_WORKBENCH_METRICS, group_by=("method",),
+        headline=("psnr_yuv",),
+        metrics=_WORKBENCH_METRICS,
+        group_by=("method",),
         summary="every maker on every in-between picture (workbench)",
     )
 )
 register_kind(
     _adapter(
-        "gop", "synth.evaluation.gop", "gop", 6,
+        "gop",
+        "synth.evaluation.gop",
+        "gop",
+        6,
         params={
             "size": Param((int,), 16, _one_of((2, 4, 8, 16, 32, 64)), "GOP size"),
             "flat": Param((bool,), None, None, "synthesise every picture straight from the anchors"),
@@ -467,7 +515,9 @@ register_kind(
             "params": Param((str,), None, _params_file, "synthesis parameter file"),
             "frames": Param((int,), None, _positive, "use only the first N pictures"),
         },
-        headline=("psnr_yuv",), metrics=_WORKBENCH_METRICS, group_by=("method", "layer"),
+        headline=("psnr_yuv",),
+        metrics=_WORKBENCH_METRICS,
+        group_by=("method", "layer"),
         summary="hierarchical GOP synthesis per temporal layer (workbench)",
     )
 )

@@ -21,9 +21,10 @@ from __future__ import annotations
 import contextlib
 import os
 import tempfile
+from collections.abc import Iterator
 from fractions import Fraction
 from pathlib import Path
-from typing import Any, Iterator
+from typing import Any
 
 from synth.errors import ParameterError
 from synth.io import open_clip, write_y4m
@@ -47,7 +48,9 @@ def check_raw_geometry(raw: dict[str, Any], *, where: str = "raw") -> dict[str, 
     out: dict[str, Any] = {}
     for key in ("width", "height"):
         if key not in raw:
-            raise ParameterError(f"{where}.{key}: missing (a raw .yuv file needs its width and height, here or as WxH in its name)")
+            raise ParameterError(
+                f"{where}.{key}: missing (a raw .yuv file needs its width and height, here or as WxH in its name)"
+            )
         value = raw[key]
         if isinstance(value, bool) or not isinstance(value, int) or value <= 0:
             raise ParameterError(f"{where}.{key}: expected a positive integer, got {value!r}")
@@ -64,13 +67,15 @@ def check_raw_geometry(raw: dict[str, Any], *, where: str = "raw") -> dict[str, 
     try:
         fr = Fraction(str(rate))
     except (ValueError, ZeroDivisionError):
-        raise ParameterError(f"{where}.rate: expected a frame rate such as \"25/1\" or 50, got {rate!r}") from None
+        raise ParameterError(f'{where}.rate: expected a frame rate such as "25/1" or 50, got {rate!r}') from None
     if fr <= 0:
         raise ParameterError(f"{where}.rate: must be positive, got {rate!r}")
     out["rate"] = f"{fr.numerator}/{fr.denominator}"
     fx, fy = chroma_factors(chroma if chroma != "mono" else "444")
     if out["width"] % fx or out["height"] % fy:
-        raise ParameterError(f"{where}: {chroma} needs sizes divisible by ({fx}, {fy}), got {out['width']}x{out['height']}")
+        raise ParameterError(
+            f"{where}: {chroma} needs sizes divisible by ({fx}, {fy}), got {out['width']}x{out['height']}"
+        )
     return out
 
 
@@ -88,7 +93,13 @@ def raw_geometry_for(path: str | os.PathLike, given: dict[str, Any] | None, *, w
 
     hints = geometry_from_name(Path(path).name)
     merged: dict[str, Any] = {}
-    for ours, theirs in (("width", "width"), ("height", "height"), ("chroma", "chroma_format"), ("bit_depth", "bit_depth"), ("rate", "frame_rate")):
+    for ours, theirs in (
+        ("width", "width"),
+        ("height", "height"),
+        ("chroma", "chroma_format"),
+        ("bit_depth", "bit_depth"),
+        ("rate", "frame_rate"),
+    ):
         if theirs in hints:
             merged[ours] = hints[theirs] if ours != "rate" else str(Fraction(hints[theirs]))
     merged.update(given or {})
@@ -120,8 +131,17 @@ class ClipView:
             self.window = None
         w_, h_ = (src.width, src.height) if self.window is None else self.window[2:]
         self.info = ClipInfo(
-            w_, h_, src.chroma_format, src.bit_depth, self.count, src.frame_rate, src.interlacing,
-            src.pixel_aspect, src.container, src.chroma_siting, dict(src.extra),
+            w_,
+            h_,
+            src.chroma_format,
+            src.bit_depth,
+            self.count,
+            src.frame_rate,
+            src.interlacing,
+            src.pixel_aspect,
+            src.container,
+            src.chroma_siting,
+            dict(src.extra),
         )
 
     def __len__(self) -> int:
@@ -150,7 +170,7 @@ class ClipView:
     def close(self) -> None:
         self.reader.close()
 
-    def __enter__(self) -> "ClipView":
+    def __enter__(self) -> ClipView:
         return self
 
     def __exit__(self, *exc) -> None:
@@ -161,8 +181,14 @@ def open_job_clip(clip_path: str | os.PathLike, params: dict[str, Any]) -> ClipV
     """Open the clip of a job, applying the clip options found in `params` (raw, pictures, window)."""
     raw = params.get("raw")
     if raw:
-        reader = open_clip(clip_path, width=raw["width"], height=raw["height"], chroma_format=raw["chroma"],
-                           bit_depth=raw["bit_depth"], frame_rate=Fraction(raw["rate"]))
+        reader = open_clip(
+            clip_path,
+            width=raw["width"],
+            height=raw["height"],
+            chroma_format=raw["chroma"],
+            bit_depth=raw["bit_depth"],
+            frame_rate=Fraction(raw["rate"]),
+        )
     else:
         reader = open_clip(clip_path)
     try:

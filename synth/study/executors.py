@@ -20,10 +20,9 @@ from __future__ import annotations
 import concurrent.futures as cf
 import multiprocessing
 import os
-from typing import Iterator
+from collections.abc import Iterator
 
 from synth.errors import ParameterError
-
 from synth.study.worker import execute_job
 
 __all__ = ["Executor", "LocalExecutor", "DaskExecutor", "make_executor"]
@@ -31,8 +30,17 @@ __all__ = ["Executor", "LocalExecutor", "DaskExecutor", "make_executor"]
 
 def _failure(job: dict, run_id: str, exc: BaseException, where: str) -> dict:
     record = dict(job)
-    record.update(status="failed", rows=[], error=f"{where}: {type(exc).__name__}: {exc}".splitlines()[0],
-                  traceback=None, run=run_id, worker=where, started=None, finished=None, seconds=None)
+    record.update(
+        status="failed",
+        rows=[],
+        error=f"{where}: {type(exc).__name__}: {exc}".splitlines()[0],
+        traceback=None,
+        run=run_id,
+        worker=where,
+        started=None,
+        finished=None,
+        seconds=None,
+    )
     return record
 
 
@@ -53,7 +61,7 @@ class Executor:
     def describe(self) -> str:
         return self.name
 
-    def __enter__(self) -> "Executor":
+    def __enter__(self) -> Executor:
         return self
 
     def __exit__(self, *exc) -> None:
@@ -164,7 +172,9 @@ class DaskExecutor(Executor):
         try:
             self._client = distributed.Client(address, timeout=timeout, set_as_default=False)
         except (OSError, TimeoutError) as exc:
-            raise ParameterError(f"cluster: cannot reach the Dask scheduler at {address} ({type(exc).__name__}: {exc})") from None
+            raise ParameterError(
+                f"cluster: cannot reach the Dask scheduler at {address} ({type(exc).__name__}: {exc})"
+            ) from None
         self._futures: list = []
         info = self._client.scheduler_info()
         self.workers = max(1, sum(int(w.get("nthreads", 1)) for w in info.get("workers", {}).values()))
@@ -240,6 +250,8 @@ def make_executor(*, workers: int | None = None, cluster: str | None = None) -> 
     """
     if cluster:
         if workers is not None:
-            raise ParameterError("workers: --workers applies to local runs; a Dask cluster has its own workers (drop --workers or --cluster)")
+            raise ParameterError(
+                "workers: --workers applies to local runs; a Dask cluster has its own workers (drop --workers or --cluster)"
+            )
         return DaskExecutor(cluster)
     return LocalExecutor(workers if workers is not None else max(1, os.cpu_count() or 1))

@@ -16,13 +16,14 @@ import functools
 import hashlib
 import json
 import os
+from collections.abc import Iterable
 from dataclasses import asdict, dataclass
 from pathlib import Path
-from typing import Any, Iterable
+from typing import Any
 
 from synth.errors import FormatError
-from synth.io.jsonout import dumps_strict
 from synth.io import atomic_write_text
+from synth.io.jsonout import dumps_strict
 
 __all__ = [
     "Job",
@@ -97,7 +98,12 @@ class ClipHasher:
         st = path.stat()
         key = str(path)
         hit = self._cache.get(key)
-        if hit and hit.get("size") == st.st_size and hit.get("mtime_ns") == st.st_mtime_ns and isinstance(hit.get("sha256"), str):
+        if (
+            hit
+            and hit.get("size") == st.st_size
+            and hit.get("mtime_ns") == st.st_mtime_ns
+            and isinstance(hit.get("sha256"), str)
+        ):
             return hit["sha256"]
         digest = hashlib.sha256()
         with open(path, "rb") as fh:
@@ -154,7 +160,18 @@ def make_jobs(specs: Iterable, hasher: ClipHasher, *, progress=None) -> list[Job
     jobs = []
     for s in specs:
         h = hashes[str(s.clip.path)]
-        jobs.append(Job(job_id(s.kind, h, s.params, code), s.kind, s.clip.name, str(s.clip.path), h, dict(s.params), code, s.task))
+        jobs.append(
+            Job(
+                job_id(s.kind, h, s.params, code),
+                s.kind,
+                s.clip.name,
+                str(s.clip.path),
+                h,
+                dict(s.params),
+                code,
+                s.task,
+            )
+        )
     return jobs
 
 

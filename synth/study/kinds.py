@@ -15,8 +15,9 @@ says why they cannot run; the manifest loader turns that into a one-line error.
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, field
-from typing import Any, Callable
+from typing import Any
 
 from synth.errors import ParameterError
 
@@ -142,7 +143,9 @@ class JobKind:
         if self.params is None:
             for key, value in given.items():
                 if not isinstance(value, (bool, int, float, str)):
-                    raise ParameterError(f"{where}.{key}: expected a string, number or true/false, got {_describe(value)}")
+                    raise ParameterError(
+                        f"{where}.{key}: expected a string, number or true/false, got {_describe(value)}"
+                    )
                 out[key] = value
             return out
         for key, value in given.items():

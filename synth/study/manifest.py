@@ -36,7 +36,6 @@ from pathlib import Path
 from typing import Any
 
 from synth.errors import FormatError, ParameterError
-
 from synth.study.clipsource import raw_geometry_for
 from synth.study.kinds import get_kind
 
@@ -141,7 +140,9 @@ def _check_keys(table: dict, allowed: set[str], where: str) -> None:
 
 def _int_list(value: Any, n: int, where: str) -> list[int]:
     _expect(
-        isinstance(value, list) and len(value) == n and all(isinstance(v, int) and not isinstance(v, bool) for v in value),
+        isinstance(value, list)
+        and len(value) == n
+        and all(isinstance(v, int) and not isinstance(v, bool) for v in value),
         where,
         f"expected a list of {n} integers, got {_type_name(value)} ({value!r})",
     )
@@ -162,7 +163,11 @@ def _clip_entries(i: int, table: Any, root: Path) -> list[tuple[str | None, Path
         options["pictures"] = [first, last]
     if "window" in table:
         x, y, w, h = _int_list(table["window"], 4, f"{where}.window")
-        _expect(x >= 0 and y >= 0 and w > 0 and h > 0, f"{where}.window", f"expected x, y >= 0 and width, height > 0, got {[x, y, w, h]}")
+        _expect(
+            x >= 0 and y >= 0 and w > 0 and h > 0,
+            f"{where}.window",
+            f"expected x, y >= 0 and width, height > 0, got {[x, y, w, h]}",
+        )
         options["window"] = [x, y, w, h]
     if "raw" in table:
         _expect(isinstance(table["raw"], dict), f"{where}.raw", f"expected a table, got {_type_name(table['raw'])}")
@@ -171,14 +176,18 @@ def _clip_entries(i: int, table: Any, root: Path) -> list[tuple[str | None, Path
     if glob.has_magic(pattern):
         paths = sorted(Path(p) for p in glob.glob(full, recursive=True) if os.path.isfile(p))
         _expect(bool(paths), f"{where}.path", f"glob {pattern!r} matches no file (relative to {root})")
-        _expect("name" not in table, f"{where}.name", "a glob's clips are named after their files; name only single files")
+        _expect(
+            "name" not in table, f"{where}.name", "a glob's clips are named after their files; name only single files"
+        )
     else:
         path = Path(full)
         _expect(path.is_file(), f"{where}.path", f"no such file {pattern!r} (relative to {root})")
         paths = [path]
     name = table.get("name")
     if name is not None:
-        _expect(isinstance(name, str) and name.strip() != "", f"{where}.name", f"expected a non-empty string, got {name!r}")
+        _expect(
+            isinstance(name, str) and name.strip() != "", f"{where}.name", f"expected a non-empty string, got {name!r}"
+        )
     out = []
     for p in paths:
         opts = dict(options)
@@ -196,10 +205,18 @@ def _grid(task_where: str, grid: Any) -> dict[str, list]:
     out: dict[str, list] = {}
     for key, values in grid.items():
         kw = f"{where}.{key}"
-        _expect(isinstance(values, list), kw, f"expected a list of values, got {_type_name(values)} ({values!r}); single values go under fixed")
+        _expect(
+            isinstance(values, list),
+            kw,
+            f"expected a list of values, got {_type_name(values)} ({values!r}); single values go under fixed",
+        )
         _expect(len(values) > 0, kw, "expected a non-empty list of values")
         for j, v in enumerate(values):
-            _expect(isinstance(v, (bool, int, float, str)), f"{kw}[{j}]", f"expected a string, number or true/false, got {_type_name(v)}")
+            _expect(
+                isinstance(v, (bool, int, float, str)),
+                f"{kw}[{j}]",
+                f"expected a string, number or true/false, got {_type_name(v)}",
+            )
         _expect(len({repr(v) for v in values}) == len(values), kw, f"repeats a value: {values!r}")
         out[key] = list(values)
     return out
@@ -222,7 +239,7 @@ def _task(i: int, table: Any, clip_names: list[str]) -> Task:
     grid = _grid(where, table.get("grid", {}))
     fixed = table.get("fixed", {})
     _expect(isinstance(fixed, dict), f"{where}.fixed", f"expected a table, got {_type_name(fixed)}")
-    for key, value in fixed.items():
+    for key in fixed:
         _expect(key not in grid, f"{where}.fixed.{key}", "is also in the grid; set it in one place")
     clips = table.get("clips")
     if clips is not None:
@@ -232,7 +249,11 @@ def _task(i: int, table: Any, clip_names: list[str]) -> Task:
             f"expected a non-empty list of clip names, got {clips!r}",
         )
         for j, pat in enumerate(clips):
-            _expect(any(fnmatch.fnmatchcase(n, pat) for n in clip_names), f"{where}.clips[{j}]", f"{pat!r} names no clip (clips: {', '.join(clip_names)})")
+            _expect(
+                any(fnmatch.fnmatchcase(n, pat) for n in clip_names),
+                f"{where}.clips[{j}]",
+                f"{pat!r} names no clip (clips: {', '.join(clip_names)})",
+            )
         clips = tuple(clips)
     task = Task(i, kind_name, clips, grid, dict(fixed))
     # Check every parameter value against the kind's declaration: the grid values one by one (so
@@ -249,7 +270,9 @@ def _task(i: int, table: Any, clip_names: list[str]) -> Task:
     if kind.params is None:  # undeclared parameters: at least one type per grid key
         for key, values in grid.items():
             numeric = all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in values)
-            _expect(numeric or len({type(v) for v in values}) == 1, f"{where}.grid.{key}", f"mixes value types: {values!r}")
+            _expect(
+                numeric or len({type(v) for v in values}) == 1, f"{where}.grid.{key}", f"mixes value types: {values!r}"
+            )
     kind.resolve(fixed, where=f"{where}.fixed")
     return task
 

@@ -14,7 +14,6 @@ import os
 from pathlib import Path
 
 from synth.io import atomic_write_bytes, atomic_write_text
-
 from synth.study.aggregate import StudyTables
 from synth.study.kinds import get_kind
 
@@ -126,16 +125,24 @@ def write_report(tables: StudyTables, out_dir: str | os.PathLike, *, header: dic
             parts.append(f"<p class='note'>Every {html.escape(kind)} job: {html.escape(text)}.</p>")
         split = list(get_kind(kind).group_by)
         parts.append("<h3>Mean over clips</h3>")
-        parts.append(_html_table([m for m in tables.means if m["kind"] == kind], ["setting", *split, "clips", *metrics]))
+        parts.append(
+            _html_table([m for m in tables.means if m["kind"] == kind], ["setting", *split, "clips", *metrics])
+        )
         parts.append("<h3>Per clip</h3>")
-        parts.append(_html_table([e for e in tables.per_clip if e["kind"] == kind], ["setting", *split, "clip", "rows", *metrics]))
+        parts.append(
+            _html_table(
+                [e for e in tables.per_clip if e["kind"] == kind], ["setting", *split, "clip", "rows", *metrics]
+            )
+        )
         for metric in get_kind(kind).headline:
             if metric not in metrics:
                 continue
             png = report / f"{kind}-{metric}.png"
             if _plot(tables, kind, metric, png):
                 data = base64.b64encode(png.read_bytes()).decode("ascii")
-                parts.append(f"<img alt='{html.escape(kind)} {html.escape(metric)}' src='data:image/png;base64,{data}'>")
+                parts.append(
+                    f"<img alt='{html.escape(kind)} {html.escape(metric)}' src='data:image/png;base64,{data}'>"
+                )
     if tables.failures:
         parts.append("<h2 class='failed'>Failed jobs</h2>")
         parts.append(_html_table(tables.failures, ["job", "kind", "clip", "setting", "error"]))

@@ -19,14 +19,13 @@ import json
 import os
 import secrets
 import time
+from collections.abc import Callable
 from dataclasses import dataclass, field
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from pathlib import Path
-from typing import Callable
 
 from synth.errors import FormatError
 from synth.io import atomic_write_text
-
 from synth.study.aggregate import StudyTables, aggregate, to_csv, to_json
 from synth.study.executors import Executor, LocalExecutor
 from synth.study.jobs import (
@@ -90,7 +89,7 @@ class StudyOutcome:
 
 
 def _now() -> str:
-    return datetime.now(timezone.utc).isoformat(timespec="milliseconds")
+    return datetime.now(UTC).isoformat(timespec="milliseconds")
 
 
 def load_records(out_dir: str | os.PathLike, ids) -> dict[str, dict]:
@@ -147,11 +146,18 @@ def _header(manifest: Manifest, jobs: list[Job], tables: StudyTables) -> dict:
         "description": manifest.description,
         "manifest": manifest.path.name,
         "code_version": code_version(),
-        "jobs": {"total": len(unique), "ok": len(unique - failed - missing), "failed": len(failed), "missing": len(missing)},
+        "jobs": {
+            "total": len(unique),
+            "ok": len(unique - failed - missing),
+            "failed": len(failed),
+            "missing": len(missing),
+        },
     }
 
 
-def write_outputs(manifest: Manifest, jobs: list[Job], out_dir: str | os.PathLike) -> tuple[StudyTables, dict[str, Path]]:
+def write_outputs(
+    manifest: Manifest, jobs: list[Job], out_dir: str | os.PathLike
+) -> tuple[StudyTables, dict[str, Path]]:
     """Aggregate the records of `jobs` into ``study.csv``, ``study.json`` and the report."""
     out_dir = Path(out_dir)
     tables = aggregate(jobs, load_records(out_dir, {j.id for j in jobs}))
@@ -207,10 +213,16 @@ def run_study(
     done = {jid for jid, rec in existing.items() if rec.get("status") == "ok" or not retry_failed}
     pending = [job for jid, job in unique.items() if jid not in done]
 
-    run_id = datetime.now(timezone.utc).strftime("%Y%m%dT%H%M%S%fZ") + "-" + secrets.token_hex(3)
+    run_id = datetime.now(UTC).strftime("%Y%m%dT%H%M%S%fZ") + "-" + secrets.token_hex(3)
     log = _RunLog(out_dir / "runs" / f"{run_id}.jsonl")
-    log.write("start", executor=executor.describe(), total=len(unique), skipped=len(done), code_version=code_version(),
-              warnings=list(executor.warnings))
+    log.write(
+        "start",
+        executor=executor.describe(),
+        total=len(unique),
+        skipped=len(done),
+        code_version=code_version(),
+        warnings=list(executor.warnings),
+    )
     log.write("submit", jobs=[j.id for j in pending])
     skipped, failed, ran = len(done), [], 0
     if progress is not None:
@@ -224,7 +236,9 @@ def run_study(
                 failed.append(record)
             log.write("finish", job=record["id"], status=record["status"], seconds=record.get("seconds"))
             if progress is not None:
-                progress(StudyProgress("run", skipped + ran, len(unique), skipped=skipped, failed=len(failed), record=record))
+                progress(
+                    StudyProgress("run", skipped + ran, len(unique), skipped=skipped, failed=len(failed), record=record)
+                )
     except BaseException as exc:
         log.write("stop", reason=type(exc).__name__, finished=ran)
         log.close()
@@ -235,4 +249,6 @@ def run_study(
     if progress is not None:
         progress(StudyProgress("report", len(unique), len(unique), skipped=skipped, failed=len(failed)))
     tables, paths = write_outputs(manifest, jobs, out_dir)
-    return StudyOutcome(out_dir, run_id, executor.describe(), jobs, ran, skipped, failed, seconds, tables, paths.get("report"), paths)
+    return StudyOutcome(
+        out_dir, run_id, executor.describe(), jobs, ran, skipped, failed, seconds, tables, paths.get("report"), paths
+    )

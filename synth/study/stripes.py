@@ -24,7 +24,7 @@ luma stripe always maps to whole chroma rows.
 from __future__ import annotations
 
 import inspect
-from typing import Callable, Sequence
+from collections.abc import Callable, Sequence
 
 import numpy as np
 
@@ -111,7 +111,7 @@ def _core_synthesise():
     try:
         import synth
 
-        fn = getattr(synth, "synthesise")
+        fn = synth.synthesise
     except (ImportError, AttributeError):
         return None
     try:
@@ -165,7 +165,9 @@ def synthesise_striped(
     """
     core = _core_synthesise()
     if core is None:
-        raise ParameterError("synthesise_striped: synth.synthesise with rows= is not available yet in this installation (issue 4)")
+        raise ParameterError(
+            "synthesise_striped: synth.synthesise with rows= is not available yet in this installation (issue 4)"
+        )
     _, fy = past.chroma_factors if past.chroma_format != "mono" else (1, 1)
     height = past.height
     planes: list[np.ndarray] | None = None
@@ -173,7 +175,10 @@ def synthesise_striped(
         part = core(past, future, fields, t=t, params=params, rows=(y0, y1))
         part = part[0] if isinstance(part, tuple) else part
         if planes is None:
-            planes = [np.empty((height if i == 0 else -(-height // fy),) + p.shape[1:], p.dtype) for i, p in enumerate(part.planes)]
+            planes = [
+                np.empty((height if i == 0 else -(-height // fy),) + p.shape[1:], p.dtype)
+                for i, p in enumerate(part.planes)
+            ]
         for i, p in enumerate(part.planes):  # type: ignore[union-attr]
             f = 1 if i == 0 else fy
             r0, r1 = y0 // f, -(-y1 // f)

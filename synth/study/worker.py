@@ -11,7 +11,7 @@ import os
 import socket
 import time
 import traceback
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 
 from synth.io.jsonout import strict_json
 from synth.study.jobs import code_version
@@ -21,7 +21,7 @@ __all__ = ["execute_job"]
 
 
 def _now() -> str:
-    return datetime.now(timezone.utc).isoformat(timespec="milliseconds")
+    return datetime.now(UTC).isoformat(timespec="milliseconds")
 
 
 def execute_job(job: dict, *, run_id: str = "", progress=None) -> dict:
@@ -48,8 +48,15 @@ def execute_job(job: dict, *, run_id: str = "", progress=None) -> dict:
     job: its results would be filed under an identity they do not match.
     """
     record = dict(job)
-    record.update(status="failed", rows=[], error=None, traceback=None, run=run_id,
-                  worker=f"{socket.gethostname()}:{os.getpid()}", started=_now())
+    record.update(
+        status="failed",
+        rows=[],
+        error=None,
+        traceback=None,
+        run=run_id,
+        worker=f"{socket.gethostname()}:{os.getpid()}",
+        started=_now(),
+    )
     t0 = time.perf_counter()
     try:
         here = code_version()

@@ -29,18 +29,18 @@ from __future__ import annotations
 import hashlib
 import math
 import os
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Callable, Sequence
 
 import numpy as np
 
-from synth.synthesis.candidate_stack import CandidateStack, candidate_stack
 from synth.errors import ParameterError
 from synth.field import VectorField
 from synth.metrics import plane_psnr
-from synth.synthesis.params import SynthParams
 from synth.picture import Picture
+from synth.synthesis.candidate_stack import CandidateStack, candidate_stack
+from synth.synthesis.params import SynthParams
 from synth.synthesis.reliability import (
     CUE_NAMES,
     CUE_SET,
@@ -105,12 +105,18 @@ def _estimator_version() -> bytes:
 
 
 def case_fields(
-    past: Picture, future: Picture, *, past_time: int, future_time: int, qp: int = 27, cache: Path | None = None, key: str = ""
+    past: Picture,
+    future: Picture,
+    *,
+    past_time: int,
+    future_time: int,
+    qp: int = 27,
+    cache: Path | None = None,
+    key: str = "",
 ) -> list[VectorField]:
     """Vectors in both coding directions (future coded against past, past against future), read
     from / written to ``cache`` (an .npz per case) when given."""
     from synth.io import read_fields, write_fields
-
     from synth.motion.estimator import estimate_field
 
     path = None
@@ -242,7 +248,9 @@ def _binned(x: np.ndarray, y: np.ndarray, edges: np.ndarray):
     return out
 
 
-def measure_statistics(cases: Sequence[TrainingCase], *, params: SynthParams | None = None, pixels: int = 20000, seed: int = 0) -> dict:
+def measure_statistics(
+    cases: Sequence[TrainingCase], *, params: SynthParams | None = None, pixels: int = 20000, seed: int = 0
+) -> dict:
     """Error statistics of the candidates against the truth (step 1 of the module docstring).
 
     Returns
@@ -260,7 +268,11 @@ def measure_statistics(cases: Sequence[TrainingCase], *, params: SynthParams | N
         y = case.truth.y.astype(np.float32)
         obs = st.obs
         has = st.valid.sum(axis=0) >= 2
-        pick = rng.choice(np.flatnonzero(has.ravel()), min(pixels, int(has.sum())), replace=False) if has.any() else np.zeros(0, int)
+        pick = (
+            rng.choice(np.flatnonzero(has.ravel()), min(pixels, int(has.sum())), replace=False)
+            if has.any()
+            else np.zeros(0, int)
+        )
         if pick.size == 0:
             continue
         o = obs.reshape(K, -1)[:, pick]
@@ -276,7 +288,10 @@ def measure_statistics(cases: Sequence[TrainingCase], *, params: SynthParams | N
             devs.append(((yy - m) ** 2)[v[i]])
             for j in range(i + 1, K):
                 both = v[i] & v[j]
-                delta = 0.5 * (np.hypot(dp[0][i] - dp[0][j], dp[1][i] - dp[1][j]) + np.hypot(dp[2][i] - dp[2][j], dp[3][i] - dp[3][j]))
+                delta = 0.5 * (
+                    np.hypot(dp[0][i] - dp[0][j], dp[1][i] - dp[1][j])
+                    + np.hypot(dp[2][i] - dp[2][j], dp[3][i] - dp[3][j])
+                )
                 deltas.append(delta[both])
                 prods_i.append(e[i][both])
                 prods_j.append(e[j][both])
@@ -321,13 +336,17 @@ def mean_psnr(cases: Sequence[TrainingCase], params: SynthParams) -> float:
     from synth.synthesis.synthesiser import synthesise
 
     vals = [
-        plane_psnr(synthesise(c.past, c.future, c.fields, t=c.t, params=params).y, c.truth.y, bit_depth=c.truth.bit_depth)
+        plane_psnr(
+            synthesise(c.past, c.future, c.fields, t=c.t, params=params).y, c.truth.y, bit_depth=c.truth.bit_depth
+        )
         for c in cases
     ]
     return float(np.mean(vals))
 
 
-def refine_parameters(cases: Sequence[TrainingCase], params: SynthParams, *, evaluations: int = 24) -> tuple[SynthParams, dict]:
+def refine_parameters(
+    cases: Sequence[TrainingCase], params: SynthParams, *, evaluations: int = 24
+) -> tuple[SynthParams, dict]:
     """Adjust ``spatial_correlation`` and ``reliability_scale`` by maximising the mean PSNR
     (distance reliability), Nelder-Mead in (logit a, log L). Returns the new parameters and a
     record {'before', 'after', 'evaluations'}."""
@@ -351,7 +370,17 @@ def refine_parameters(cases: Sequence[TrainingCase], params: SynthParams, *, eva
     a0, l0 = params.spatial_correlation, params.reliability_scale
     x0 = np.array([math.log(a0 / (1 - a0)), math.log(l0)])
     before = -cost(x0)
-    res = minimize(cost, x0, method="Nelder-Mead", options={"maxfev": int(evaluations), "xatol": 0.05, "fatol": 0.005, "initial_simplex": [x0, x0 + [0.7, 0], x0 + [0, 0.7]]})
+    res = minimize(
+        cost,
+        x0,
+        method="Nelder-Mead",
+        options={
+            "maxfev": int(evaluations),
+            "xatol": 0.05,
+            "fatol": 0.005,
+            "initial_simplex": [x0, x0 + [0.7, 0], x0 + [0, 0.7]],
+        },
+    )
     best_x = res.x if -res.fun >= before else x0
     a, scale = unpack(best_x)
     after = max(-float(res.fun), before)
@@ -441,7 +470,12 @@ def learned_estimate(stack: CandidateStack, fields: Sequence[VectorField], coeff
 
 
 def fit_learned_reliability(
-    cases: Sequence[TrainingCase], *, params: SynthParams | None = None, samples_per_case: int = 20000, seed: int = 0, ridge: float = 1e-3
+    cases: Sequence[TrainingCase],
+    *,
+    params: SynthParams | None = None,
+    samples_per_case: int = 20000,
+    seed: int = 0,
+    ridge: float = 1e-3,
 ) -> tuple[np.ndarray, dict]:
     """Fit the error model of `synth.synthesis.reliability` on the cases (step 3 of the module docstring).
 
@@ -470,7 +504,9 @@ def fit_learned_reliability(
         Xs.append(cues.reshape(-1, len(CUE_NAMES))[idx])
         es.append(e2.ravel()[idx])
     if not Xs:
-        raise ParameterError("no training case has fields of both coding directions: the learned reliability needs them")
+        raise ParameterError(
+            "no training case has fields of both coding directions: the learned reliability needs them"
+        )
     X = np.concatenate(Xs)
     e = np.concatenate(es)
     theta = fit_error_model(X, e, ridge=ridge)
@@ -535,8 +571,11 @@ def calibrate(
     """
     if not cases:
         raise ParameterError("calibration needs at least one training case, got none")
-    steps = ["measuring candidate error statistics"] + (["refining by prediction PSNR"] if refine else []) + [
-        "fitting the learned reliability", "measuring before and after"]
+    steps = (
+        ["measuring candidate error statistics"]
+        + (["refining by prediction PSNR"] if refine else [])
+        + ["fitting the learned reliability", "measuring before and after"]
+    )
 
     def say(label: str) -> None:
         if progress is not None:
@@ -565,11 +604,19 @@ def calibrate(
     from synth.synthesis.synthesiser import synthesise
 
     for c in cases:
-        b = plane_psnr(synthesise(c.past, c.future, c.fields, t=c.t, params=start).y, c.truth.y, bit_depth=c.truth.bit_depth)
-        a = plane_psnr(synthesise(c.past, c.future, c.fields, t=c.t, params=result).y, c.truth.y, bit_depth=c.truth.bit_depth)
+        b = plane_psnr(
+            synthesise(c.past, c.future, c.fields, t=c.t, params=start).y, c.truth.y, bit_depth=c.truth.bit_depth
+        )
+        a = plane_psnr(
+            synthesise(c.past, c.future, c.fields, t=c.t, params=result).y, c.truth.y, bit_depth=c.truth.bit_depth
+        )
         per_clip.setdefault(c.name, []).append((b, a))
     record["psnr"] = {
-        name: {"before": float(np.mean([v[0] for v in vals])), "after": float(np.mean([v[1] for v in vals])), "cases": len(vals)}
+        name: {
+            "before": float(np.mean([v[0] for v in vals])),
+            "after": float(np.mean([v[1] for v in vals])),
+            "cases": len(vals),
+        }
         for name, vals in per_clip.items()
     }
     if progress is not None:

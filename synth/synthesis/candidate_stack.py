@@ -17,19 +17,19 @@ Memory is about 4 bytes x K x H x W per array (a 1280x720 picture with K = 12: 4
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Sequence
 
 import numpy as np
 
-from synth.synthesis.candidates import CandidateSearch
 from synth.errors import ParameterError
-from synth.synthesis.lmmse import endpoint_agreement_stats
 from synth.field import VectorField
-from synth.synthesis.sampling import PlaneSampler, endpoint_patches
-from synth.synthesis.params import SynthParams
 from synth.picture import Picture
+from synth.synthesis.candidates import CandidateSearch
+from synth.synthesis.lmmse import endpoint_agreement_stats
+from synth.synthesis.params import SynthParams
 from synth.synthesis.project import LandedVectors, project_fields, reference_times
+from synth.synthesis.sampling import PlaneSampler, endpoint_patches
 
 __all__ = ["CandidateStack", "candidate_stack", "block_agreement"]
 
@@ -110,7 +110,9 @@ class CandidateStack:
         return np.where(self.valid, np.sqrt(ex * ex + ey * ey), np.float32(np.inf)).astype(np.float32)
 
 
-def block_agreement(past: PlaneSampler, future: PlaneSampler, landed: LandedVectors, params: SynthParams, bit_depth: int) -> np.ndarray:
+def block_agreement(
+    past: PlaneSampler, future: PlaneSampler, landed: LandedVectors, params: SynthParams, bit_depth: int
+) -> np.ndarray:
     """Endpoint agreement ``rho01`` of every landed vector, as the synthesiser measures it."""
     rho = np.zeros(len(landed), np.float32)
     floor = params.agreement_floor * float(1 << (bit_depth - 8)) ** 2
@@ -137,7 +139,9 @@ def _rerank(gidx: np.ndarray, landed: LandedVectors, g: int, k: int, *, rank: st
         key = centre.copy()
     key = np.where(valid, key, np.inf)
     if dedupe:
-        disp = np.stack([landed.past_dx[safe], landed.past_dy[safe], landed.future_dx[safe], landed.future_dy[safe]], -1)
+        disp = np.stack(
+            [landed.past_dx[safe], landed.past_dy[safe], landed.future_dx[safe], landed.future_dy[safe]], -1
+        )
         order = np.argsort(key, axis=-1, kind="stable")
         disp_o = np.take_along_axis(disp, order[..., None], axis=2)
         key_o = np.take_along_axis(key, order, axis=2)

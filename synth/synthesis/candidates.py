@@ -56,7 +56,9 @@ class CandidateSearch:
         Threads for the k-d tree queries (results do not depend on it).
     """
 
-    def __init__(self, landed: LandedVectors, *, height: int, width: int, k: int, group: int, reach: float, workers: int = 1):
+    def __init__(
+        self, landed: LandedVectors, *, height: int, width: int, k: int, group: int, reach: float, workers: int = 1
+    ):
         if k < 1:
             raise ParameterError(f"k (candidates per pixel) must be >= 1, got {k}")
         if group < 1:

@@ -135,7 +135,9 @@ def _cholesky_tile(A, b, loading, eps):
     return x, ok
 
 
-def cholesky_solve_soa(A: np.ndarray, b: np.ndarray, *, loading: float = 0.0, tile: int = SOLVER_TILE) -> tuple[np.ndarray, np.ndarray]:
+def cholesky_solve_soa(
+    A: np.ndarray, b: np.ndarray, *, loading: float = 0.0, tile: int = SOLVER_TILE
+) -> tuple[np.ndarray, np.ndarray]:
     """Solve SPD systems laid out structure-of-arrays: ``A`` (K, K, P), ``b`` (K, P) or (K, M, P).
 
     Only the lower triangle of ``A`` is read. Returns ``(x, ok)`` with ``x`` like ``b`` and ``ok``
@@ -166,7 +168,9 @@ def cholesky_solve_soa(A: np.ndarray, b: np.ndarray, *, loading: float = 0.0, ti
         load *= 10.0
         Ab = A[:, :, bad]
         bb = b[..., bad]
-        xs, ok = _cholesky_tile([[Ab[i, j] for j in range(K)] for i in range(K)], [bb[i] for i in range(K)], dtype.type(load), eps)
+        xs, ok = _cholesky_tile(
+            [[Ab[i, j] for j in range(K)] for i in range(K)], [bb[i] for i in range(K)], dtype.type(load), eps
+        )
         for i in range(K):
             x[i, ..., bad] = np.where(ok, xs[i], 0)
         ok_all[bad] = ok

@@ -17,16 +17,16 @@ is from what its candidates allow.
 
 from __future__ import annotations
 
-from typing import Sequence
+from collections.abc import Sequence
 
 import numpy as np
 
-from synth.synthesis.candidate_stack import CandidateStack, candidate_stack
 from synth.errors import ParameterError
-from synth.synthesis.lmmse import cholesky_solve_soa
 from synth.field import VectorField
-from synth.synthesis.params import SynthParams
 from synth.picture import Picture
+from synth.synthesis.candidate_stack import CandidateStack, candidate_stack
+from synth.synthesis.lmmse import cholesky_solve_soa
+from synth.synthesis.params import SynthParams
 
 __all__ = ["best_of_k", "best_side_of_k", "block_least_squares", "block_least_squares_stack"]
 

@@ -170,7 +170,11 @@ class SynthParams:
         integer("agreement_margin", 0, 16)
         if self.group_size not in (1, 2, 4, 8) or isinstance(self.group_size, bool):
             raise ParameterError(f"parameter group_size must be 1, 2, 4 or 8, got {self.group_size!r}")
-        if self.weight_cell not in (1, 2, 4, 8) or isinstance(self.weight_cell, bool) or self.group_size % self.weight_cell:
+        if (
+            self.weight_cell not in (1, 2, 4, 8)
+            or isinstance(self.weight_cell, bool)
+            or self.group_size % self.weight_cell
+        ):
             raise ParameterError(
                 f"parameter weight_cell must be 1, 2, 4 or 8 and divide group_size ({self.group_size}), got {self.weight_cell!r}"
             )
@@ -193,7 +197,7 @@ class SynthParams:
                 raise ParameterError(f"parameter {name} must be {rule}, got {v!r}")
 
     # -- helpers ----------------------------------------------------------------------------------
-    def with_changes(self, **changes) -> "SynthParams":
+    def with_changes(self, **changes) -> SynthParams:
         """A copy with some fields changed (validated)."""
         unknown = set(changes) - {f.name for f in fields(self)}
         if unknown:
@@ -214,7 +218,7 @@ class SynthParams:
         return DEFAULT_COEFFICIENTS
 
     @classmethod
-    def from_dict(cls, data: dict) -> "SynthParams":
+    def from_dict(cls, data: dict) -> SynthParams:
         """Build from a mapping of field names; unknown names raise `ParameterError`."""
         if not isinstance(data, dict):
             raise ParameterError(f"synthesis parameters must be a JSON object, got {type(data).__name__}")
@@ -239,13 +243,13 @@ class SynthParams:
         return json.dumps(doc, indent=2) + "\n"
 
     @classmethod
-    def from_json(cls, text: str, *, source: str = "parameters") -> "SynthParams":
+    def from_json(cls, text: str, *, source: str = "parameters") -> SynthParams:
         try:
             doc = json.loads(text)
         except json.JSONDecodeError as exc:
             raise FormatError(f"{source}: not valid JSON ({exc.msg} at line {exc.lineno})") from None
         if not isinstance(doc, dict) or doc.get("format") != PARAMS_FORMAT:
-            raise FormatError(f"{source}: not a synth parameter file (expected \"format\": \"{PARAMS_FORMAT}\")")
+            raise FormatError(f'{source}: not a synth parameter file (expected "format": "{PARAMS_FORMAT}")')
         if doc.get("version") != PARAMS_VERSION:
             raise FormatError(f"{source}: unsupported parameter file version {doc.get('version')!r} (expected 1)")
         extra = set(doc) - {"format", "version", "params", "fit"}
@@ -254,7 +258,7 @@ class SynthParams:
         return cls.from_dict(doc.get("params", {}))
 
     @classmethod
-    def load(cls, path: str | os.PathLike) -> "SynthParams":
+    def load(cls, path: str | os.PathLike) -> SynthParams:
         """Read a parameter file (see the module docstring)."""
         path = Path(path)
         if not path.is_file():

@@ -23,8 +23,8 @@ span ``tr - tc`` enters. Intra blocks carry no vector and are dropped. Landing s
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Sequence
 
 import numpy as np
 
@@ -74,7 +74,7 @@ class LandedVectors:
     def __len__(self) -> int:
         return len(self.cx)
 
-    def take(self, index: np.ndarray) -> "LandedVectors":
+    def take(self, index: np.ndarray) -> LandedVectors:
         """A subset (or reordering) of the landed vectors."""
         index = np.asarray(index)
         names = ("cx", "cy", "bw", "bh", "past_dx", "past_dy", "future_dx", "future_dy", "field", "block")

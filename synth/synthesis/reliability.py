@@ -43,8 +43,8 @@ consistency cues need a field coded on each reference).
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Sequence
 
 import numpy as np
 
@@ -143,7 +143,9 @@ class MotionMaps:
     future: tuple[np.ndarray, np.ndarray] | None
 
     @classmethod
-    def from_fields(cls, fields: Sequence[VectorField], *, past_time: float, future_time: float, height: int, width: int) -> "MotionMaps":
+    def from_fields(
+        cls, fields: Sequence[VectorField], *, past_time: float, future_time: float, height: int, width: int
+    ) -> MotionMaps:
         maps = {}
         span_total = float(future_time) - float(past_time)
         for f in fields:
@@ -272,7 +274,9 @@ def side_cues(
     return out
 
 
-def side_weights(log_variance: np.ndarray, valid: np.ndarray, share: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def side_weights(
+    log_variance: np.ndarray, valid: np.ndarray, share: np.ndarray
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Inverse-variance weights of the side observations.
 
     Parameters
@@ -340,7 +344,9 @@ def fit_error_model(cues: np.ndarray, squared_error: np.ndarray, *, ridge: float
     X = np.asarray(cues, np.float64)
     e = np.asarray(squared_error, np.float64)
     if X.ndim != 2 or X.shape[1] != len(CUE_NAMES) or e.shape != (X.shape[0],):
-        raise ParameterError(f"cues must have shape (n, {len(CUE_NAMES)}) and squared_error (n,), got {X.shape} and {e.shape}")
+        raise ParameterError(
+            f"cues must have shape (n, {len(CUE_NAMES)}) and squared_error (n,), got {X.shape} and {e.shape}"
+        )
     if X.shape[0] < n_coefficients():
         raise ParameterError(f"need at least {n_coefficients()} samples to fit the error model, got {X.shape[0]}")
     if not (np.all(np.isfinite(X)) and np.all(np.isfinite(e))) or np.any(e < 0):
@@ -383,7 +389,17 @@ class LearnedReliability:
         coded = {float(f.coded_time) for f in fields}
         return float(landed.past_time) in coded and float(landed.future_time) in coded
 
-    def weights(self, sampler, col: dict, safe: np.ndarray, valid: np.ndarray, share: np.ndarray, X: np.ndarray, Y: np.ndarray, dist: np.ndarray):
+    def weights(
+        self,
+        sampler,
+        col: dict,
+        safe: np.ndarray,
+        valid: np.ndarray,
+        share: np.ndarray,
+        X: np.ndarray,
+        Y: np.ndarray,
+        dist: np.ndarray,
+    ):
         """Side weights (alpha, beta) of shape (K, M, G) and the confidence (M, G) for one band.
 
         ``sampler`` is the luma (past, future) sampler pair; ``col`` the synthesiser's per-slot
@@ -414,16 +430,95 @@ class LearnedReliability:
 #: Coefficients fitted on the training clips of tests/benchmarks/estimator_quality.py (the three demo
 #: clips and bikes.mp4 pictures 40-72; `--calibrate`, see DEVELOPERS.md, "Estimator findings").
 DEFAULT_COEFFICIENTS: tuple[float, ...] = (
-    0.143108, 0.212886, 0.176931, -0.0659926, -0.000285434, 0.0798557, -0.0453718, 0.221579,
-    0.100057, 0.0178882, 0.0940928, 0.0219155, 0.000382458, -0.0116272, -0.0164802, 0.0289694,
-    -0.0161771, 0.00700165, 0.0290703, 0.0147272, -0.0451139, -0.0472657, -0.0262628, 0.0375804,
-    -0.00498768, -0.0247386, -0.0648837, 0.00823432, 0.0477305, -0.00562269, 0.0230748, 0.016275,
-    0.0337999, 0.00379332, 0.0596028, -0.0120122, -0.0644399, 0.000652524, -0.0914339, 0.0168223,
-    0.0647924, 0.030116, -0.0362053, -0.00650048, -0.0155484, -0.0135134, 0.0144199, -0.0466874,
-    -0.00150011, 0.0605666, -0.0298398, -0.00494707, -0.0092873, -0.00755429, -0.00470589, 0.0371162,
-    0.00759433, -0.0555451, -0.0341944, 0.0798319, -0.00496287, 0.0518222, -0.0078194, 0.00647535,
-    -0.0131683, 0.000465033, 0.0150371, 0.00890627, 0.0316241, 0.00495596, 0.0281909, 0.0230997,
-    -0.0550786, 0.0206609, -0.0451227, 0.0103375, 0.045156, 2.08167e-17, -0.0320961, -0.067882,
-    -0.0427562, 0.0178882, -0.0250342, 0.0104571, -0.0256069, 0.0152106, 4.96199e-17, 0.0642623,
-    0.0219155, 0.0504696, 0.000382458,
+    0.143108,
+    0.212886,
+    0.176931,
+    -0.0659926,
+    -0.000285434,
+    0.0798557,
+    -0.0453718,
+    0.221579,
+    0.100057,
+    0.0178882,
+    0.0940928,
+    0.0219155,
+    0.000382458,
+    -0.0116272,
+    -0.0164802,
+    0.0289694,
+    -0.0161771,
+    0.00700165,
+    0.0290703,
+    0.0147272,
+    -0.0451139,
+    -0.0472657,
+    -0.0262628,
+    0.0375804,
+    -0.00498768,
+    -0.0247386,
+    -0.0648837,
+    0.00823432,
+    0.0477305,
+    -0.00562269,
+    0.0230748,
+    0.016275,
+    0.0337999,
+    0.00379332,
+    0.0596028,
+    -0.0120122,
+    -0.0644399,
+    0.000652524,
+    -0.0914339,
+    0.0168223,
+    0.0647924,
+    0.030116,
+    -0.0362053,
+    -0.00650048,
+    -0.0155484,
+    -0.0135134,
+    0.0144199,
+    -0.0466874,
+    -0.00150011,
+    0.0605666,
+    -0.0298398,
+    -0.00494707,
+    -0.0092873,
+    -0.00755429,
+    -0.00470589,
+    0.0371162,
+    0.00759433,
+    -0.0555451,
+    -0.0341944,
+    0.0798319,
+    -0.00496287,
+    0.0518222,
+    -0.0078194,
+    0.00647535,
+    -0.0131683,
+    0.000465033,
+    0.0150371,
+    0.00890627,
+    0.0316241,
+    0.00495596,
+    0.0281909,
+    0.0230997,
+    -0.0550786,
+    0.0206609,
+    -0.0451227,
+    0.0103375,
+    0.045156,
+    2.08167e-17,
+    -0.0320961,
+    -0.067882,
+    -0.0427562,
+    0.0178882,
+    -0.0250342,
+    0.0104571,
+    -0.0256069,
+    0.0152106,
+    4.96199e-17,
+    0.0642623,
+    0.0219155,
+    0.0504696,
+    0.000382458,
 )

@@ -28,15 +28,17 @@ from __future__ import annotations
 
 import math
 import os
+from collections.abc import Sequence
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
-from typing import Sequence
 
 import cv2
 import numpy as np
 
-from synth.synthesis.candidates import CandidateSearch
 from synth.errors import ParameterError
+from synth.field import VectorField
+from synth.picture import Picture
+from synth.synthesis.candidates import CandidateSearch
 from synth.synthesis.lmmse import (
     distance_reliability,
     endpoint_agreement_stats,
@@ -44,11 +46,9 @@ from synth.synthesis.lmmse import (
     link_correlation,
     lmmse_weights_structured,
 )
-from synth.field import VectorField
-from synth.synthesis.sampling import PlaneSampler, endpoint_patches
 from synth.synthesis.params import METHODS, SynthParams
-from synth.picture import Picture
 from synth.synthesis.project import LandedVectors, project_fields, reference_times
+from synth.synthesis.sampling import PlaneSampler, endpoint_patches
 
 __all__ = ["synthesise", "synthesise_with_maps", "SynthesisResult", "BAND_ROWS", "MAP_NAMES"]
 
@@ -93,7 +93,9 @@ def _as_fields(fields) -> list[VectorField]:
     try:
         out = list(fields)
     except TypeError:
-        raise ParameterError(f"fields must be a VectorField or a sequence of them, got {type(fields).__name__}") from None
+        raise ParameterError(
+            f"fields must be a VectorField or a sequence of them, got {type(fields).__name__}"
+        ) from None
     return out
 
 
@@ -188,7 +190,14 @@ class _Synthesiser:
     """Everything computed once per call (full-picture inputs), and the per-band computation."""
 
     def __init__(
-        self, past: Picture, future: Picture, landed: LandedVectors, params: SynthParams, k: int, group_rows, pool,
+        self,
+        past: Picture,
+        future: Picture,
+        landed: LandedVectors,
+        params: SynthParams,
+        k: int,
+        group_rows,
+        pool,
         learned=None,
     ):
         self.p = params
@@ -324,8 +333,13 @@ class _Synthesiser:
             r = np.minimum(col["srho"][:, None, :] * rel, np.float32(p.max_correlation))
             r = np.where(vmask, r, zero).astype(np.float32, copy=False)
             C = innovation_correlation(
-                col["dpx"], col["dpy"], col["dfx"], col["dfy"], valid,
-                spatial_correlation=p.spatial_correlation, nugget=p.innovation_nugget,
+                col["dpx"],
+                col["dpy"],
+                col["dfx"],
+                col["dfy"],
+                valid,
+                spatial_correlation=p.spatial_correlation,
+                nugget=p.innovation_nugget,
             )  # (K, K, G)
             w, conf = lmmse_weights_structured(r, C, loading=p.loading)
             nv = np.maximum(count, 1).astype(np.float32)
@@ -509,8 +523,17 @@ def synthesise_with_maps(
     of Statistical Signal Processing: Estimation Theory, 1993, ch. 12); projection: :mod:`synth.synthesis.project`.
     """
     return _synthesise(
-        past, future, fields, t=t, params=params, rows=rows, past_time=past_time, future_time=future_time,
-        method=method, workers=workers, want_maps=True,
+        past,
+        future,
+        fields,
+        t=t,
+        params=params,
+        rows=rows,
+        past_time=past_time,
+        future_time=future_time,
+        method=method,
+        workers=workers,
+        want_maps=True,
     )
 
 
@@ -559,7 +582,7 @@ def _synthesise(past, future, fields, *, t, params, rows, past_time, future_time
     try:
         if cv_threads is not None:
             cv2.setNumThreads(1)
-        with (ThreadPoolExecutor(max_workers=workers) if workers > 1 else _InlineExecutor()) as pool:
+        with ThreadPoolExecutor(max_workers=workers) if workers > 1 else _InlineExecutor() as pool:
             learned = _learned_reliability(params, fields, landed, past)
             eng = _Synthesiser(past, future, landed, params, k, (b_first // g, -(-b_last // g)), pool, learned)
             eng.want_maps = want_maps
@@ -613,6 +636,15 @@ def synthesise(
 ) -> Picture:
     """Synthesise the picture at time ``t``; see `synthesise_with_maps` (same parameters)."""
     return _synthesise(
-        past, future, fields, t=t, params=params, rows=rows, past_time=past_time, future_time=future_time,
-        method=method, workers=workers, want_maps=False,
+        past,
+        future,
+        fields,
+        t=t,
+        params=params,
+        rows=rows,
+        past_time=past_time,
+        future_time=future_time,
+        method=method,
+        workers=workers,
+        want_maps=False,
     ).picture
