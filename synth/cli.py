@@ -30,6 +30,12 @@ class _OneLineErrors(TyperGroup):
             return super().invoke(ctx)
         except (typer.Exit, typer.Abort, TyperException):
             raise
+        except BrokenPipeError:  # output piped into a reader that stopped (e.g. head): end quietly
+            try:
+                sys.stdout = open(os.devnull, "w")
+            except OSError:
+                pass
+            raise typer.Exit(0) from None
         except SynthError as exc:
             typer.echo(f"synth: error: {exc}", err=True)
             raise typer.Exit(EXIT_INPUT_ERROR) from None
@@ -38,12 +44,6 @@ class _OneLineErrors(TyperGroup):
                 raise
             typer.echo(f"synth: error: {exc}", err=True)
             raise typer.Exit(EXIT_INPUT_ERROR) from None
-        except BrokenPipeError:  # output piped into a reader that stopped (e.g. head): end quietly
-            try:
-                sys.stdout = open(os.devnull, "w")
-            except OSError:
-                pass
-            raise typer.Exit(0) from None
         except KeyboardInterrupt:
             typer.echo("synth: interrupted", err=True)
             raise typer.Exit(130) from None
@@ -61,6 +61,51 @@ app = typer.Typer(
     pretty_exceptions_enable=False,
     help="Interpolated reference frames from coded motion vectors, for video-coding research.",
 )
+
+
+# The options of the vocabulary shared by several commands (DEVELOPERS.md), declared once.
+_JSON = typer.Option(False, "--json", help="Print the result as strict JSON (non-finite numbers as null).")
+_VECTORS_TO_CONVERT = typer.Option(
+    None,
+    "--vectors",
+    help="Vector input: 'estimate' (default) or a field file (.json/.npz) to re-summarise or convert.",
+)
+_PAST = typer.Option(..., "--past", help="Picture number of the past reference.")
+_FUTURE = typer.Option(..., "--future", help="Picture number of the future reference.")
+_TWO_WAY = typer.Option(False, "--two-way", help="Estimate vectors in both coding directions.")
+_PARAMS = typer.Option(None, "--params", help="Synthesis parameter file (JSON).")
+_TRAINING_PICTURES = typer.Option(
+    "0:32",
+    "--pictures",
+    help="Pictures of each clip used, FIRST:LAST (display numbers, both included; ':32', '8:').",
+)
+_RD_MAKERS = typer.Option(
+    "lmmse,dis-medium",
+    "--makers",
+    help="Comma-separated makers, one extra-reference configuration each; the first is the synthetic one (b, c, offsets): lmmse, projection, weighted, obmc, average, dis-fast, dis-medium, farneback.",
+)
+_VECTORS = typer.Option(None, "--vectors", help="Vector input: 'estimate' (default) or a field file (.json/.npz).")
+_MAKER = typer.Option(
+    "lmmse",
+    "--maker",
+    help="Picture maker: lmmse, projection, weighted, obmc, average, dis-fast, dis-medium, farneback.",
+)
+_MAKERS = typer.Option(
+    None,
+    "--makers",
+    help="Comma-separated makers: lmmse, projection, weighted, obmc, average, dis-fast, dis-medium, farneback (default: every maker).",
+)
+_VECTOR_QPS = typer.Option(
+    None,
+    "--vector-qp",
+    help="QP of the estimated vectors, 0..51, or a comma list for a sweep, e.g. 22,32,42 (default: 27).",
+)
+_PICTURES = typer.Option(
+    None,
+    "--pictures",
+    help="Pictures used, FIRST:LAST (display numbers, both included; ':32', '8:'). Default: the whole clip.",
+)
+_REPORT = typer.Option(None, "--report", help="Folder for report.html, results.json and results.csv.")
 
 
 @app.callback()
@@ -82,7 +127,7 @@ def info(
     frame: int = typer.Option(
         0, "--frame", "-f", help="Frame whose plane statistics are shown (negative: from the end)."
     ),
-    as_json: bool = typer.Option(False, "--json", help="Print the description as strict JSON."),
+    as_json: bool = _JSON,
     size: str | None = typer.Option(
         None, "--size", help="Raw .yuv only: WIDTHxHEIGHT (else taken from the file name)."
     ),
@@ -111,11 +156,7 @@ def vectors(
     coded: int = typer.Option(..., "--coded", help="Picture number whose blocks get vectors."),
     ref: int = typer.Option(..., "--ref", help="Picture number the vectors point to."),
     output: Path = typer.Option(..., "--output", "-o", help="Field file: .json, .npz, or .csv (export)."),
-    vectors: str | None = typer.Option(
-        None,
-        "--vectors",
-        help="Vector input: 'estimate' (default) or a field file (.json/.npz) to re-summarise or convert.",
-    ),
+    vectors: str | None = _VECTORS_TO_CONVERT,
     vector_qp: int = typer.Option(
         27, "--vector-qp", help="QP of the estimated vectors, 0..51: higher = cheaper, smoother field."
     ),
@@ -124,7 +165,7 @@ def vectors(
         "64,32,16,8", "--blocks", help="Block sizes the estimator's quadtree may use, comma-separated."
     ),
     overlay: Path | None = typer.Option(None, "--overlay", help="PNG with block outlines and arrows."),
-    as_json: bool = typer.Option(False, "--json", help="Print the summary as strict JSON."),
+    as_json: bool = _JSON,
 ) -> None:
     """Block vectors from one picture of a clip to another: estimated (or read from a field file), written and described."""
     from synth.commands.vectors import format_vectors, parse_block_sizes, run_vectors
@@ -142,28 +183,22 @@ def vectors(
 @app.command()
 def frame(
     clip: Path = typer.Argument(..., help="Clip file (.y4m, or any video OpenCV decodes)."),
-    past: int = typer.Option(..., "--past", help="Picture number of the past reference."),
-    future: int = typer.Option(..., "--future", help="Picture number of the future reference."),
+    past: int = _PAST,
+    future: int = _FUTURE,
     at: int | None = typer.Option(None, "--at", help="Picture number to make (its true picture is measured against)."),
     t: float | None = typer.Option(
         None, "--t", help="Fraction strictly in (0, 1) from past to future, when no true picture exists."
     ),
     output: Path = typer.Option(..., "--output", "-o", help="The picture made, 1-frame .y4m."),
-    vectors: str | None = typer.Option(
-        None, "--vectors", help="Vector input: 'estimate' (default) or a field file (.json/.npz)."
-    ),
+    vectors: str | None = _VECTORS,
     vector_qp: int = typer.Option(
         27, "--vector-qp", help="QP of the estimated vectors, 0..51 (also sets the offsets' lambda)."
     ),
-    two_way: bool = typer.Option(False, "--two-way", help="Estimate vectors in both coding directions."),
-    params: Path | None = typer.Option(None, "--params", help="Synthesis parameter file (JSON)."),
-    maker: str = typer.Option(
-        "lmmse",
-        "--maker",
-        help="Picture maker: lmmse, projection, weighted, obmc, average, dis-fast, dis-medium, farneback.",
-    ),
+    two_way: bool = _TWO_WAY,
+    params: Path | None = _PARAMS,
+    maker: str = _MAKER,
     maps: Path | None = typer.Option(None, "--maps", help="Directory for PNG maps (created when missing)."),
-    as_json: bool = typer.Option(False, "--json", help="Print the summary as strict JSON."),
+    as_json: bool = _JSON,
     offsets: Path | None = typer.Option(
         None, "--offsets", help="Also search corrective block offsets against picture --at and write them (.json)."
     ),
@@ -191,11 +226,7 @@ def calibrate(
     clips: list[Path] = typer.Argument(..., help="Training clips (.y4m, or any video OpenCV decodes)."),
     output: Path = typer.Option(..., "--output", "-o", help="Parameter file to write (.json)."),
     gaps: str = typer.Option("2,4,8", "--gaps", help="Reference gaps, comma-separated even integers."),
-    pictures: str = typer.Option(
-        "0:32",
-        "--pictures",
-        help="Pictures of each clip used, FIRST:LAST (display numbers, both included; ':32', '8:').",
-    ),
+    pictures: str = _TRAINING_PICTURES,
     per_gap: int = typer.Option(3, "--per-gap", help="Target pictures per clip and reference gap."),
     vector_qp: int = typer.Option(27, "--vector-qp", help="QP of the estimated vectors, 0..51."),
     params: Path | None = typer.Option(
@@ -203,7 +234,7 @@ def calibrate(
     ),
     refine: bool = typer.Option(True, "--refine/--no-refine", help="Refine by maximising prediction PSNR."),
     evaluations: int = typer.Option(24, "--evaluations", help="Most parameter sets the refinement tries."),
-    as_json: bool = typer.Option(False, "--json", help="Print the fit record as strict JSON."),
+    as_json: bool = _JSON,
 ) -> None:
     """Fit the synthesis parameters and the learned reliability on training clips."""
     from synth.commands.calibrate import format_calibrate, run_calibrate
@@ -222,22 +253,16 @@ def calibrate(
 @app.command()
 def offsets(
     clip: Path = typer.Argument(..., help="Clip file."),
-    past: int = typer.Option(..., "--past", help="Picture number of the past reference."),
-    future: int = typer.Option(..., "--future", help="Picture number of the future reference."),
+    past: int = _PAST,
+    future: int = _FUTURE,
     at: int = typer.Option(..., "--at", help="Picture number of the target (strictly between)."),
     output: Path = typer.Option(..., "--output", "-o", help="Offsets file to write (.json)."),
-    vectors: str | None = typer.Option(
-        None, "--vectors", help="Vector input: 'estimate' (default) or a field file (.json/.npz)."
-    ),
-    maker: str = typer.Option(
-        "lmmse",
-        "--maker",
-        help="Picture maker: lmmse, projection, weighted, obmc, average, dis-fast, dis-medium, farneback.",
-    ),
+    vectors: str | None = _VECTORS,
+    maker: str = _MAKER,
     vector_qp: int = typer.Option(
         27, "--vector-qp", help="QP of the estimated vectors, 0..51, and of the offsets' lambda."
     ),
-    params: Path | None = typer.Option(None, "--params", help="Synthesis parameter file (JSON)."),
+    params: Path | None = _PARAMS,
     offset_block: int = typer.Option(
         16, "--offset-block", help="Offset block size in luma samples (4, 8, 16, 32 or 64)."
     ),
@@ -246,7 +271,7 @@ def offsets(
     ),
     metric: str = typer.Option("satd", "--metric", help="Distortion: satd or sad."),
     prediction: Path | None = typer.Option(None, "--prediction", help="Also write the corrected prediction (.y4m)."),
-    as_json: bool = typer.Option(False, "--json", help="Print the statistics as strict JSON."),
+    as_json: bool = _JSON,
 ) -> None:
     """Corrective block offsets of a target picture on the picture a maker makes for it, and their bit cost."""
     from synth.commands.offsets import format_offsets, run_offsets
@@ -271,12 +296,10 @@ def export(
     maker: str = typer.Option(
         "lmmse", "--maker", help="Maker: lmmse, projection, weighted, obmc, average, dis-fast, dis-medium, farneback."
     ),
-    vectors: str | None = typer.Option(
-        None, "--vectors", help="Vector input: 'estimate' (default) or a field file (.json/.npz)."
-    ),
+    vectors: str | None = _VECTORS,
     vector_qp: int | None = typer.Option(None, "--vector-qp", help="QP of the estimated vectors, 0..51 (default: 27)."),
-    params: Path | None = typer.Option(None, "--params", help="Synthesis parameter file (JSON)."),
-    as_json: bool = typer.Option(False, "--json", help="Print the summary as strict JSON."),
+    params: Path | None = _PARAMS,
+    as_json: bool = _JSON,
 ) -> None:
     """Synthetic reference pictures for every non-anchor picture of a hierarchical GOP, in display order."""
     from synth.commands.export import format_export, run_export
@@ -298,18 +321,12 @@ def rd(
     gaps: str = typer.Option("8", "--gaps", help="Comma-separated distances between the two references, e.g. 4,8."),
     qps: str = typer.Option("22,27,32,37", "--qps", help="Comma-separated encoder QPs (four or more)."),
     codec: str = typer.Option("h264", "--codec", help="h264 (x264) or hevc (x265)."),
-    makers: str = typer.Option(
-        "lmmse,dis-medium",
-        "--makers",
-        help="Comma-separated makers, one extra-reference configuration each; the first is the synthetic one (b, c, offsets): lmmse, projection, weighted, obmc, average, dis-fast, dis-medium, farneback.",
-    ),
-    vectors: str | None = typer.Option(
-        None, "--vectors", help="Vector input: 'estimate' (default) or a field file (.json/.npz)."
-    ),
+    makers: str = _RD_MAKERS,
+    vectors: str | None = _VECTORS,
     vector_qp: int | None = typer.Option(
         None, "--vector-qp", help="QP of the estimated vectors, 0..51 (default: each point's encoder QP)."
     ),
-    params: Path | None = typer.Option(None, "--params", help="Synthesis parameter file (JSON)."),
+    params: Path | None = _PARAMS,
     refs: str = typer.Option("decoded", "--refs", help="Make the extra references from decoded or source references."),
     extra_qp: int = typer.Option(
         4, "--extra-qp", help="QP at which the extra reference picture is coded (bits not charged)."
@@ -324,7 +341,7 @@ def rd(
     ),
     limit: int | None = typer.Option(None, "--limit", help="Only the first N target pictures per clip and gap."),
     report: Path | None = typer.Option(None, "--report", help="Folder for rd.json, rd.csv and RD-curve PNGs."),
-    as_json: bool = typer.Option(False, "--json", help="Print the summary as strict JSON."),
+    as_json: bool = _JSON,
 ) -> None:
     """Bits an extra reference saves a real encoder: BD-rate against the two real references."""
     from synth.commands.rd import format_rd, run_rd
@@ -345,28 +362,14 @@ def rd(
 def compare(
     clip: Path = typer.Argument(..., help="Clip file (.y4m, or any video OpenCV decodes)."),
     gaps: str | None = typer.Option(None, "--gaps", help="Comma-separated reference gaps, even integers (default: 8)."),
-    makers: str | None = typer.Option(
-        None,
-        "--makers",
-        help="Comma-separated makers: lmmse, projection, weighted, obmc, average, dis-fast, dis-medium, farneback (default: every maker).",
-    ),
-    vectors: str | None = typer.Option(
-        None, "--vectors", help="Vector input: 'estimate' (default) or a field file (.json/.npz)."
-    ),
-    vector_qp: str | None = typer.Option(
-        None,
-        "--vector-qp",
-        help="QP of the estimated vectors, 0..51, or a comma list for a sweep, e.g. 22,32,42 (default: 27).",
-    ),
-    two_way: bool = typer.Option(False, "--two-way", help="Estimate vectors in both coding directions."),
-    params: Path | None = typer.Option(None, "--params", help="Synthesis parameter file (JSON)."),
-    pictures: str | None = typer.Option(
-        None,
-        "--pictures",
-        help="Pictures used, FIRST:LAST (display numbers, both included; ':32', '8:'). Default: the whole clip.",
-    ),
-    report: Path | None = typer.Option(None, "--report", help="Folder for report.html, results.json and results.csv."),
-    as_json: bool = typer.Option(False, "--json", help="Print the summary as strict JSON."),
+    makers: str | None = _MAKERS,
+    vectors: str | None = _VECTORS,
+    vector_qp: str | None = _VECTOR_QPS,
+    two_way: bool = _TWO_WAY,
+    params: Path | None = _PARAMS,
+    pictures: str | None = _PICTURES,
+    report: Path | None = _REPORT,
+    as_json: bool = _JSON,
 ) -> None:
     """Make every picture between references a gap apart with every maker and compare them."""
     from synth.commands.compare import format_compare, run_compare
@@ -390,27 +393,13 @@ def gop(
     decoded_refs: int | None = typer.Option(
         None, "--decoded-refs", help="Take references from an H.264 encode/decode at this QP (0..51)."
     ),
-    makers: str | None = typer.Option(
-        None,
-        "--makers",
-        help="Comma-separated makers: lmmse, projection, weighted, obmc, average, dis-fast, dis-medium, farneback (default: every maker).",
-    ),
-    vectors: str | None = typer.Option(
-        None, "--vectors", help="Vector input: 'estimate' (default) or a field file (.json/.npz)."
-    ),
-    vector_qp: str | None = typer.Option(
-        None,
-        "--vector-qp",
-        help="QP of the estimated vectors, 0..51, or a comma list for a sweep, e.g. 22,32,42 (default: 27).",
-    ),
-    two_way: bool = typer.Option(False, "--two-way", help="Estimate vectors in both coding directions."),
-    params: Path | None = typer.Option(None, "--params", help="Synthesis parameter file (JSON)."),
-    pictures: str | None = typer.Option(
-        None,
-        "--pictures",
-        help="Pictures used, FIRST:LAST (display numbers, both included; ':32', '8:'). Default: the whole clip.",
-    ),
-    report: Path | None = typer.Option(None, "--report", help="Folder for report.html, results.json and results.csv."),
+    makers: str | None = _MAKERS,
+    vectors: str | None = _VECTORS,
+    vector_qp: str | None = _VECTOR_QPS,
+    two_way: bool = _TWO_WAY,
+    params: Path | None = _PARAMS,
+    pictures: str | None = _PICTURES,
+    report: Path | None = _REPORT,
     export: Path | None = typer.Option(
         None,
         "--export",
@@ -421,7 +410,7 @@ def gop(
         "--export-maker",
         help="Maker whose pictures --export writes (default: lmmse when run, else the first maker).",
     ),
-    as_json: bool = typer.Option(False, "--json", help="Print the summary as strict JSON."),
+    as_json: bool = _JSON,
 ) -> None:
     """Synthesise every B picture of a dyadic hierarchical GOP from its references; statistics per layer."""
     from synth.commands.gop import format_gop, run_gop_command
@@ -443,7 +432,7 @@ def demo(
     report: Path = typer.Option(
         Path("synth-demo"), "--report", "-o", help="Folder for report.html, results.json and results.csv."
     ),
-    as_json: bool = typer.Option(False, "--json", help="Print the summary as strict JSON."),
+    as_json: bool = _JSON,
 ) -> None:
     """Run the main job on the bundled demo clips: GOP runs and comparisons, with a report."""
     from synth.commands.demo import format_demo, run_demo_command
@@ -470,7 +459,7 @@ def study(
     ),
     keep_failed: bool = typer.Option(False, "--keep-failed", help="Do not retry jobs recorded as failed."),
     plan: bool = typer.Option(False, "--plan", help="Validate, list the jobs and how many are done; run nothing."),
-    as_json: bool = typer.Option(False, "--json", help="Print the summary as strict JSON."),
+    as_json: bool = _JSON,
 ) -> None:
     """Run a whole study: every job kind on every clip over every parameter setting, resumably."""
     import shutil
