@@ -30,6 +30,7 @@ import numpy as np
 
 from synth.errors import ParameterError
 from synth.field import VectorField
+from synth.timebase import check_t
 
 __all__ = ["LandedVectors", "project_fields", "reference_times"]
 
@@ -156,8 +157,7 @@ def project_fields(
         raise ParameterError(
             f"past_time must be finite and before future_time, got past_time={past_time}, future_time={future_time}"
         )
-    if not math.isfinite(t) or not 0.0 < t < 1.0:
-        raise ParameterError(f"t must lie strictly between 0 and 1, got {t}")
+    t = check_t(t)
     target = past_time + t * (future_time - past_time)
     parts = []
     for i, f in enumerate(fields):

@@ -26,7 +26,6 @@ range of rows gives exactly (bit for bit) the rows of the whole picture.
 
 from __future__ import annotations
 
-import math
 import os
 from collections.abc import Sequence
 from concurrent.futures import ThreadPoolExecutor
@@ -49,6 +48,7 @@ from synth.synthesis.lmmse import (
 from synth.synthesis.params import METHODS, SynthParams
 from synth.synthesis.project import LandedVectors, project_fields, reference_times
 from synth.synthesis.sampling import PlaneSampler, endpoint_patches
+from synth.timebase import check_t
 
 __all__ = ["synthesise", "synthesise_with_maps", "SynthesisResult", "BAND_ROWS", "MAP_NAMES"]
 
@@ -117,12 +117,7 @@ def _check_inputs(past: Picture, future: Picture, fields: list[VectorField], t: 
             raise ParameterError(
                 f"fields[{i}] is for a {f.width}x{f.height} picture, but the references are {past.width}x{past.height}"
             )
-    try:
-        tf = float(t)
-    except (TypeError, ValueError):
-        raise ParameterError(f"t must be a number in (0, 1), got {t!r}") from None
-    if not math.isfinite(tf) or not 0.0 < tf < 1.0:
-        raise ParameterError(f"t must lie strictly between 0 and 1, got {t!r}")
+    check_t(t)
 
 
 def _check_reach(landed: LandedVectors, width: int, height: int) -> None:
