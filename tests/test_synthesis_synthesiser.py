@@ -218,7 +218,7 @@ def test_parameter_file_round_trip(tmp_path):
     path = tmp_path / "params.json"
     p.save(path)
     doc = json.loads(path.read_text())
-    assert doc["format"] == "synth-params" and doc["version"] == 1
+    assert doc["format"] == "synth-params" and doc["schema_version"] == 1
     assert SynthParams.load(path) == p
     doc["params"] = {"candidates": 5}
     path.write_text(json.dumps(doc))
@@ -227,10 +227,13 @@ def test_parameter_file_round_trip(tmp_path):
     path.write_text(json.dumps(doc))
     with pytest.raises(ParameterError, match="unknown synthesis parameter"):
         SynthParams.load(path)
-    doc["version"] = 7
+    doc["schema_version"] = 7
     path.write_text(json.dumps(doc))
     with pytest.raises(FormatError, match="version"):
         SynthParams.load(path)
+    old = {"format": "synth-params", "version": 1, "params": {"candidates": 5}}  # a file of the 0.1 key
+    path.write_text(json.dumps(old))
+    assert SynthParams.load(path) == SynthParams(candidates=5)
     path.write_text("{not json")
     with pytest.raises(FormatError, match="not valid JSON"):
         SynthParams.load(path)

@@ -320,7 +320,7 @@ def write_gop_export(run: GopRun, output, *, info, source_name: str) -> dict:
     decoded = run.settings.get("decoded_refs_qp")
     doc = {
         "format": "synth-reference-sidecar",
-        "version": 1,
+        "schema_version": 1,
         "source": source_name,
         "output": output.name,
         "container": "y4m",

@@ -4,7 +4,7 @@ File layout (UTF-8 JSON, written atomically)::
 
     {
       "format": "synth-params",
-      "version": 1,
+      "schema_version": 1,
       "params": { "<name>": <value>, ... }
     }
 
@@ -239,7 +239,7 @@ class SynthParams:
         return cls(**values)
 
     def to_json(self) -> str:
-        doc = {"format": PARAMS_FORMAT, "version": PARAMS_VERSION, "params": self.to_dict()}
+        doc = {"format": PARAMS_FORMAT, "schema_version": PARAMS_VERSION, "params": self.to_dict()}
         return json.dumps(doc, indent=2) + "\n"
 
     @classmethod
@@ -250,9 +250,10 @@ class SynthParams:
             raise FormatError(f"{source}: not valid JSON ({exc.msg} at line {exc.lineno})") from None
         if not isinstance(doc, dict) or doc.get("format") != PARAMS_FORMAT:
             raise FormatError(f'{source}: not a synth parameter file (expected "format": "{PARAMS_FORMAT}")')
-        if doc.get("version") != PARAMS_VERSION:
-            raise FormatError(f"{source}: unsupported parameter file version {doc.get('version')!r} (expected 1)")
-        extra = set(doc) - {"format", "version", "params", "fit"}
+        version = doc.get("schema_version", doc.get("version"))  # files before 0.2 say "version"
+        if version != PARAMS_VERSION or isinstance(version, bool):
+            raise FormatError(f"{source}: unsupported parameter file schema_version {version!r} (expected 1)")
+        extra = set(doc) - {"format", "schema_version", "version", "params", "fit"}
         if extra:
             raise FormatError(f"{source}: unknown top-level key(s) {', '.join(sorted(extra))}")
         return cls.from_dict(doc.get("params", {}))
