@@ -15,6 +15,7 @@ import typer
 from typer.core import TyperGroup
 from typer.exceptions import TyperException
 
+from synth.commands.help_texts import HELP
 from synth.commands.progress import Progress
 from synth.errors import SynthError
 
@@ -64,48 +65,20 @@ app = typer.Typer(
 
 
 # The options of the vocabulary shared by several commands (DEVELOPERS.md), declared once.
-_JSON = typer.Option(False, "--json", help="Print the result as strict JSON (non-finite numbers as null).")
-_VECTORS_TO_CONVERT = typer.Option(
-    None,
-    "--vectors",
-    help="Vector input: 'estimate' (default) or a field file (.json/.npz) to re-summarise or convert.",
-)
-_PAST = typer.Option(..., "--past", help="Picture number of the past reference.")
-_FUTURE = typer.Option(..., "--future", help="Picture number of the future reference.")
-_TWO_WAY = typer.Option(False, "--two-way", help="Estimate vectors in both coding directions.")
-_PARAMS = typer.Option(None, "--params", help="Synthesis parameter file (JSON).")
-_TRAINING_PICTURES = typer.Option(
-    "0:32",
-    "--pictures",
-    help="Pictures of each clip used, FIRST:LAST (display numbers, both included; ':32', '8:').",
-)
-_RD_MAKERS = typer.Option(
-    "lmmse,dis-medium",
-    "--makers",
-    help="Comma-separated makers, one extra-reference configuration each; the first is the synthetic one (b, c, offsets): lmmse, projection, weighted, obmc, average, dis-fast, dis-medium, farneback.",
-)
-_VECTORS = typer.Option(None, "--vectors", help="Vector input: 'estimate' (default) or a field file (.json/.npz).")
-_MAKER = typer.Option(
-    "lmmse",
-    "--maker",
-    help="Picture maker: lmmse, projection, weighted, obmc, average, dis-fast, dis-medium, farneback.",
-)
-_MAKERS = typer.Option(
-    None,
-    "--makers",
-    help="Comma-separated makers: lmmse, projection, weighted, obmc, average, dis-fast, dis-medium, farneback (default: every maker).",
-)
-_VECTOR_QPS = typer.Option(
-    None,
-    "--vector-qp",
-    help="QP of the estimated vectors, 0..51, or a comma list for a sweep, e.g. 22,32,42 (default: 27).",
-)
-_PICTURES = typer.Option(
-    None,
-    "--pictures",
-    help="Pictures used, FIRST:LAST (display numbers, both included; ':32', '8:'). Default: the whole clip.",
-)
-_REPORT = typer.Option(None, "--report", help="Folder for report.html, results.json and results.csv.")
+_JSON = typer.Option(False, "--json", help=HELP["shared.json"])
+_VECTORS_TO_CONVERT = typer.Option(None, "--vectors", help=HELP["shared.vectors_to_convert"])
+_PAST = typer.Option(..., "--past", help=HELP["shared.past"])
+_FUTURE = typer.Option(..., "--future", help=HELP["shared.future"])
+_TWO_WAY = typer.Option(False, "--two-way", help=HELP["shared.two_way"])
+_PARAMS = typer.Option(None, "--params", help=HELP["shared.params"])
+_TRAINING_PICTURES = typer.Option("0:32", "--pictures", help=HELP["shared.training_pictures"])
+_RD_MAKERS = typer.Option("lmmse,dis-medium", "--makers", help=HELP["shared.rd_makers"])
+_VECTORS = typer.Option(None, "--vectors", help=HELP["shared.vectors"])
+_MAKER = typer.Option("lmmse", "--maker", help=HELP["shared.maker"])
+_MAKERS = typer.Option(None, "--makers", help=HELP["shared.makers"])
+_VECTOR_QPS = typer.Option(None, "--vector-qp", help=HELP["shared.vector_qps"])
+_PICTURES = typer.Option(None, "--pictures", help=HELP["shared.pictures"])
+_REPORT = typer.Option(None, "--report", help=HELP["shared.report"])
 
 
 @app.callback()
@@ -119,24 +92,24 @@ def _print_json(obj) -> None:
     typer.echo(dumps_strict(obj))
 
 
+def _emit(summary: dict, as_json: bool, formatter) -> None:
+    """Print a command's summary: strict JSON with ``--json``, else its text formatter's table."""
+    if as_json:
+        _print_json(summary)
+    else:
+        typer.echo(formatter(summary))
+
+
 @app.command()
 def info(
-    clip: Path = typer.Argument(
-        ..., help="Clip: .y4m, raw .yuv, image pattern (frame_%03d.png) or any video OpenCV decodes."
-    ),
-    frame: int = typer.Option(
-        0, "--frame", "-f", help="Frame whose plane statistics are shown (negative: from the end)."
-    ),
+    clip: Path = typer.Argument(..., help=HELP["info.clip"]),
+    frame: int = typer.Option(0, "--frame", "-f", help=HELP["info.frame"]),
     as_json: bool = _JSON,
-    size: str | None = typer.Option(
-        None, "--size", help="Raw .yuv only: WIDTHxHEIGHT (else taken from the file name)."
-    ),
-    chroma: str | None = typer.Option(None, "--chroma", help="Raw .yuv / images: 420, 422, 444 or mono."),
-    bit_depth: int | None = typer.Option(None, "--bit-depth", help="Raw .yuv / images: bits per sample, 8..16."),
-    fps: float | None = typer.Option(None, "--fps", help="Raw .yuv / images: frame rate to report."),
-    matrix: str | None = typer.Option(
-        None, "--matrix", help="Images / compressed video: R'G'B' to Y'CbCr matrix, 601 (default) or 709."
-    ),
+    size: str | None = typer.Option(None, "--size", help=HELP["info.size"]),
+    chroma: str | None = typer.Option(None, "--chroma", help=HELP["info.chroma"]),
+    bit_depth: int | None = typer.Option(None, "--bit-depth", help=HELP["info.bit_depth"]),
+    fps: float | None = typer.Option(None, "--fps", help=HELP["info.fps"]),
+    matrix: str | None = typer.Option(None, "--matrix", help=HELP["info.matrix"]),
 ) -> None:
     """Show a clip's format, size, frame count, sample format, frame rate and one frame's plane statistics."""
     from synth.commands.info import describe_clip, format_info
@@ -144,27 +117,20 @@ def info(
     summary = describe_clip(
         clip, frame=frame, size=size, chroma_format=chroma, bit_depth=bit_depth, frame_rate=fps, matrix=matrix
     )
-    if as_json:
-        _print_json(summary)
-        return
-    typer.echo(format_info(summary))
+    _emit(summary, as_json, format_info)
 
 
 @app.command()
 def vectors(
-    clip: Path = typer.Argument(..., help="Clip file (.y4m, or any video OpenCV decodes)."),
-    coded: int = typer.Option(..., "--coded", help="Picture number whose blocks get vectors."),
-    ref: int = typer.Option(..., "--ref", help="Picture number the vectors point to."),
-    output: Path = typer.Option(..., "--output", "-o", help="Field file: .json, .npz, or .csv (export)."),
+    clip: Path = typer.Argument(..., help=HELP["vectors.clip"]),
+    coded: int = typer.Option(..., "--coded", help=HELP["vectors.coded"]),
+    ref: int = typer.Option(..., "--ref", help=HELP["vectors.ref"]),
+    output: Path = typer.Option(..., "--output", "-o", help=HELP["vectors.output"]),
     vectors: str | None = _VECTORS_TO_CONVERT,
-    vector_qp: int = typer.Option(
-        27, "--vector-qp", help="QP of the estimated vectors, 0..51: higher = cheaper, smoother field."
-    ),
-    search_range: int = typer.Option(64, "--range", help="Largest vector component of the estimator, luma samples."),
-    blocks: str = typer.Option(
-        "64,32,16,8", "--blocks", help="Block sizes the estimator's quadtree may use, comma-separated."
-    ),
-    overlay: Path | None = typer.Option(None, "--overlay", help="PNG with block outlines and arrows."),
+    vector_qp: int = typer.Option(27, "--vector-qp", help=HELP["vectors.vector_qp"]),
+    search_range: int = typer.Option(64, "--range", help=HELP["vectors.search_range"]),
+    blocks: str = typer.Option("64,32,16,8", "--blocks", help=HELP["vectors.blocks"]),
+    overlay: Path | None = typer.Option(None, "--overlay", help=HELP["vectors.overlay"]),
     as_json: bool = _JSON,
 ) -> None:
     """Block vectors from one picture of a clip to another: estimated (or read from a field file), written and described."""
@@ -174,38 +140,27 @@ def vectors(
         clip, coded=coded, reference=ref, output=output, vectors=vectors, vector_qp=vector_qp,
         search_range=search_range, block_sizes=parse_block_sizes(blocks), overlay=overlay,
     )  # fmt: skip
-    if as_json:
-        _print_json(summary)
-        return
-    typer.echo(format_vectors(summary))
+    _emit(summary, as_json, format_vectors)
 
 
 @app.command()
 def frame(
-    clip: Path = typer.Argument(..., help="Clip file (.y4m, or any video OpenCV decodes)."),
+    clip: Path = typer.Argument(..., help=HELP["frame.clip"]),
     past: int = _PAST,
     future: int = _FUTURE,
-    at: int | None = typer.Option(None, "--at", help="Picture number to make (its true picture is measured against)."),
-    t: float | None = typer.Option(
-        None, "--t", help="Fraction strictly in (0, 1) from past to future, when no true picture exists."
-    ),
-    output: Path = typer.Option(..., "--output", "-o", help="The picture made, 1-frame .y4m."),
+    at: int | None = typer.Option(None, "--at", help=HELP["frame.at"]),
+    t: float | None = typer.Option(None, "--t", help=HELP["frame.t"]),
+    output: Path = typer.Option(..., "--output", "-o", help=HELP["frame.output"]),
     vectors: str | None = _VECTORS,
-    vector_qp: int = typer.Option(
-        27, "--vector-qp", help="QP of the estimated vectors, 0..51 (also sets the offsets' lambda)."
-    ),
+    vector_qp: int = typer.Option(27, "--vector-qp", help=HELP["frame.vector_qp"]),
     two_way: bool = _TWO_WAY,
     params: Path | None = _PARAMS,
     maker: str = _MAKER,
-    maps: Path | None = typer.Option(None, "--maps", help="Directory for PNG maps (created when missing)."),
+    maps: Path | None = typer.Option(None, "--maps", help=HELP["frame.maps"]),
     as_json: bool = _JSON,
-    offsets: Path | None = typer.Option(
-        None, "--offsets", help="Also search corrective block offsets against picture --at and write them (.json)."
-    ),
-    offset_block: int = typer.Option(16, "--offset-block", help="Offset block size in luma samples (with --offsets)."),
-    offset_window: int = typer.Option(
-        2, "--offset-window", help="Offset search range in luma samples, quarter-pel steps (with --offsets)."
-    ),
+    offsets: Path | None = typer.Option(None, "--offsets", help=HELP["frame.offsets"]),
+    offset_block: int = typer.Option(16, "--offset-block", help=HELP["frame.offset_block"]),
+    offset_window: int = typer.Option(2, "--offset-window", help=HELP["frame.offset_window"]),
 ) -> None:
     """Make one picture between two pictures of a clip (default: from the vectors coded between them)."""
     from synth.commands.frame import format_frame, run_frame
@@ -215,25 +170,20 @@ def frame(
         two_way=two_way, params=params, maker=maker, maps=maps, offsets=offsets, offset_block=offset_block,
         offset_window=offset_window,
     )  # fmt: skip
-    if as_json:
-        _print_json(summary)
-        return
-    typer.echo(format_frame(summary))
+    _emit(summary, as_json, format_frame)
 
 
 @app.command()
 def calibrate(
-    clips: list[Path] = typer.Argument(..., help="Training clips (.y4m, or any video OpenCV decodes)."),
-    output: Path = typer.Option(..., "--output", "-o", help="Parameter file to write (.json)."),
-    gaps: str = typer.Option("2,4,8", "--gaps", help="Reference gaps, comma-separated even integers."),
+    clips: list[Path] = typer.Argument(..., help=HELP["calibrate.clips"]),
+    output: Path = typer.Option(..., "--output", "-o", help=HELP["calibrate.output"]),
+    gaps: str = typer.Option("2,4,8", "--gaps", help=HELP["calibrate.gaps"]),
     pictures: str = _TRAINING_PICTURES,
-    per_gap: int = typer.Option(3, "--per-gap", help="Target pictures per clip and reference gap."),
-    vector_qp: int = typer.Option(27, "--vector-qp", help="QP of the estimated vectors, 0..51."),
-    params: Path | None = typer.Option(
-        None, "--params", help="Starting synthesis parameter file (default: built-in values)."
-    ),
-    refine: bool = typer.Option(True, "--refine/--no-refine", help="Refine by maximising prediction PSNR."),
-    evaluations: int = typer.Option(24, "--evaluations", help="Most parameter sets the refinement tries."),
+    per_gap: int = typer.Option(3, "--per-gap", help=HELP["calibrate.per_gap"]),
+    vector_qp: int = typer.Option(27, "--vector-qp", help=HELP["calibrate.vector_qp"]),
+    params: Path | None = typer.Option(None, "--params", help=HELP["calibrate.params"]),
+    refine: bool = typer.Option(True, "--refine/--no-refine", help=HELP["calibrate.refine"]),
+    evaluations: int = typer.Option(24, "--evaluations", help=HELP["calibrate.evaluations"]),
     as_json: bool = _JSON,
 ) -> None:
     """Fit the synthesis parameters and the learned reliability on training clips."""
@@ -244,33 +194,24 @@ def calibrate(
             clips, output=output, gaps=gaps, pictures=pictures, per_gap=per_gap, vector_qp=vector_qp, params=params,
             refine=refine, evaluations=evaluations, progress=bar,
         )  # fmt: skip
-    if as_json:
-        _print_json(summary)
-        return
-    typer.echo(format_calibrate(summary))
+    _emit(summary, as_json, format_calibrate)
 
 
 @app.command()
 def offsets(
-    clip: Path = typer.Argument(..., help="Clip file."),
+    clip: Path = typer.Argument(..., help=HELP["offsets.clip"]),
     past: int = _PAST,
     future: int = _FUTURE,
-    at: int = typer.Option(..., "--at", help="Picture number of the target (strictly between)."),
-    output: Path = typer.Option(..., "--output", "-o", help="Offsets file to write (.json)."),
+    at: int = typer.Option(..., "--at", help=HELP["offsets.at"]),
+    output: Path = typer.Option(..., "--output", "-o", help=HELP["offsets.output"]),
     vectors: str | None = _VECTORS,
     maker: str = _MAKER,
-    vector_qp: int = typer.Option(
-        27, "--vector-qp", help="QP of the estimated vectors, 0..51, and of the offsets' lambda."
-    ),
+    vector_qp: int = typer.Option(27, "--vector-qp", help=HELP["offsets.vector_qp"]),
     params: Path | None = _PARAMS,
-    offset_block: int = typer.Option(
-        16, "--offset-block", help="Offset block size in luma samples (4, 8, 16, 32 or 64)."
-    ),
-    offset_window: int = typer.Option(
-        2, "--offset-window", help="Offset search range in luma samples each way, 0..8 (quarter-pel steps)."
-    ),
-    metric: str = typer.Option("satd", "--metric", help="Distortion: satd or sad."),
-    prediction: Path | None = typer.Option(None, "--prediction", help="Also write the corrected prediction (.y4m)."),
+    offset_block: int = typer.Option(16, "--offset-block", help=HELP["offsets.offset_block"]),
+    offset_window: int = typer.Option(2, "--offset-window", help=HELP["offsets.offset_window"]),
+    metric: str = typer.Option("satd", "--metric", help=HELP["offsets.metric"]),
+    prediction: Path | None = typer.Option(None, "--prediction", help=HELP["offsets.prediction"]),
     as_json: bool = _JSON,
 ) -> None:
     """Corrective block offsets of a target picture on the picture a maker makes for it, and their bit cost."""
@@ -280,24 +221,19 @@ def offsets(
         clip, past=past, future=future, at=at, output=output, vectors=vectors, maker=maker, vector_qp=vector_qp,
         params=params, offset_block=offset_block, offset_window=offset_window, metric=metric, prediction=prediction,
     )  # fmt: skip
-    if as_json:
-        _print_json(summary)
-        return
-    typer.echo(format_offsets(summary))
+    _emit(summary, as_json, format_offsets)
 
 
 @app.command()
 def export(
-    clip: Path = typer.Argument(..., help="Clip file."),
-    gop_size: int = typer.Option(8, "--gop-size", help="Dyadic hierarchical GOP size: a power of two from 2 to 64."),
-    output: Path = typer.Option(..., "-o", "--output", help="Output file: .y4m, or raw planar with --raw."),
-    raw: bool = typer.Option(False, "--raw", help="Write raw planar samples (no header) instead of Y4M."),
-    sidecar: Path | None = typer.Option(None, "--sidecar", help="Sidecar JSON path (default: OUTPUT + .json)."),
-    maker: str = typer.Option(
-        "lmmse", "--maker", help="Maker: lmmse, projection, weighted, obmc, average, dis-fast, dis-medium, farneback."
-    ),
+    clip: Path = typer.Argument(..., help=HELP["export.clip"]),
+    gop_size: int = typer.Option(8, "--gop-size", help=HELP["export.gop_size"]),
+    output: Path = typer.Option(..., "-o", "--output", help=HELP["export.output"]),
+    raw: bool = typer.Option(False, "--raw", help=HELP["export.raw"]),
+    sidecar: Path | None = typer.Option(None, "--sidecar", help=HELP["export.sidecar"]),
+    maker: str = typer.Option("lmmse", "--maker", help=HELP["export.maker"]),
     vectors: str | None = _VECTORS,
-    vector_qp: int | None = typer.Option(None, "--vector-qp", help="QP of the estimated vectors, 0..51 (default: 27)."),
+    vector_qp: int | None = typer.Option(None, "--vector-qp", help=HELP["export.vector_qp"]),
     params: Path | None = _PARAMS,
     as_json: bool = _JSON,
 ) -> None:
@@ -309,38 +245,27 @@ def export(
             clip, output=output, gop_size=gop_size, raw=raw, sidecar=sidecar, maker=maker, vectors=vectors,
             vector_qp=vector_qp, params=params, progress=bar,
         )  # fmt: skip
-    if as_json:
-        _print_json(summary)
-        return
-    typer.echo(format_export(summary))
+    _emit(summary, as_json, format_export)
 
 
 @app.command()
 def rd(
-    clips: list[Path] = typer.Argument(..., help="One or more clip files."),
-    gaps: str = typer.Option("8", "--gaps", help="Comma-separated distances between the two references, e.g. 4,8."),
-    qps: str = typer.Option("22,27,32,37", "--qps", help="Comma-separated encoder QPs (four or more)."),
-    codec: str = typer.Option("h264", "--codec", help="h264 (x264) or hevc (x265)."),
+    clips: list[Path] = typer.Argument(..., help=HELP["rd.clips"]),
+    gaps: str = typer.Option("8", "--gaps", help=HELP["rd.gaps"]),
+    qps: str = typer.Option("22,27,32,37", "--qps", help=HELP["rd.qps"]),
+    codec: str = typer.Option("h264", "--codec", help=HELP["rd.codec"]),
     makers: str = _RD_MAKERS,
     vectors: str | None = _VECTORS,
-    vector_qp: int | None = typer.Option(
-        None, "--vector-qp", help="QP of the estimated vectors, 0..51 (default: each point's encoder QP)."
-    ),
+    vector_qp: int | None = typer.Option(None, "--vector-qp", help=HELP["rd.vector_qp"]),
     params: Path | None = _PARAMS,
-    refs: str = typer.Option("decoded", "--refs", help="Make the extra references from decoded or source references."),
-    extra_qp: int = typer.Option(
-        4, "--extra-qp", help="QP at which the extra reference picture is coded (bits not charged)."
-    ),
-    preset: str = typer.Option("medium", "--preset", help="Encoder speed preset."),
-    offsets: bool = typer.Option(
-        False, "--offsets", help="Also run the offset search and measure its corrected picture."
-    ),
-    offset_block: int = typer.Option(16, "--offset-block", help="Offset block size in luma samples (with --offsets)."),
-    offset_window: int = typer.Option(
-        2, "--offset-window", help="Offset search range in luma samples (with --offsets)."
-    ),
-    limit: int | None = typer.Option(None, "--limit", help="Only the first N target pictures per clip and gap."),
-    report: Path | None = typer.Option(None, "--report", help="Folder for rd.json, rd.csv and RD-curve PNGs."),
+    refs: str = typer.Option("decoded", "--refs", help=HELP["rd.refs"]),
+    extra_qp: int = typer.Option(4, "--extra-qp", help=HELP["rd.extra_qp"]),
+    preset: str = typer.Option("medium", "--preset", help=HELP["rd.preset"]),
+    offsets: bool = typer.Option(False, "--offsets", help=HELP["rd.offsets"]),
+    offset_block: int = typer.Option(16, "--offset-block", help=HELP["rd.offset_block"]),
+    offset_window: int = typer.Option(2, "--offset-window", help=HELP["rd.offset_window"]),
+    limit: int | None = typer.Option(None, "--limit", help=HELP["rd.limit"]),
+    report: Path | None = typer.Option(None, "--report", help=HELP["rd.report"]),
     as_json: bool = _JSON,
 ) -> None:
     """Bits an extra reference saves a real encoder: BD-rate against the two real references."""
@@ -352,16 +277,13 @@ def rd(
             refs=refs, extra_qp=extra_qp, preset=preset, offsets=offsets, offset_block=offset_block,
             offset_window=offset_window, limit=limit, report=report, progress=bar,
         )  # fmt: skip
-    if as_json:
-        _print_json(summary)
-        return
-    typer.echo(format_rd(summary))
+    _emit(summary, as_json, format_rd)
 
 
 @app.command()
 def compare(
-    clip: Path = typer.Argument(..., help="Clip file (.y4m, or any video OpenCV decodes)."),
-    gaps: str | None = typer.Option(None, "--gaps", help="Comma-separated reference gaps, even integers (default: 8)."),
+    clip: Path = typer.Argument(..., help=HELP["compare.clip"]),
+    gaps: str | None = typer.Option(None, "--gaps", help=HELP["compare.gaps"]),
     makers: str | None = _MAKERS,
     vectors: str | None = _VECTORS,
     vector_qp: str | None = _VECTOR_QPS,
@@ -379,20 +301,15 @@ def compare(
             clip, gaps=gaps, makers=makers, vectors=vectors, vector_qp=vector_qp, two_way=two_way, params=params,
             pictures=pictures, report=report, progress=bar,
         )  # fmt: skip
-    if as_json:
-        _print_json(summary)
-        return
-    typer.echo(format_compare(summary))
+    _emit(summary, as_json, format_compare)
 
 
 @app.command()
 def gop(
-    clip: Path = typer.Argument(..., help="Clip file (.y4m, or any video OpenCV decodes)."),
-    gop_size: int = typer.Option(8, "--gop-size", help="GOP size: a power of two from 2 to 64."),
-    flat: bool = typer.Option(False, "--flat", help="Make every picture straight from the two anchors (t = k/size)."),
-    decoded_refs: int | None = typer.Option(
-        None, "--decoded-refs", help="Take references from an H.264 encode/decode at this QP (0..51)."
-    ),
+    clip: Path = typer.Argument(..., help=HELP["gop.clip"]),
+    gop_size: int = typer.Option(8, "--gop-size", help=HELP["gop.gop_size"]),
+    flat: bool = typer.Option(False, "--flat", help=HELP["gop.flat"]),
+    decoded_refs: int | None = typer.Option(None, "--decoded-refs", help=HELP["gop.decoded_refs"]),
     makers: str | None = _MAKERS,
     vectors: str | None = _VECTORS,
     vector_qp: str | None = _VECTOR_QPS,
@@ -400,16 +317,8 @@ def gop(
     params: Path | None = _PARAMS,
     pictures: str | None = _PICTURES,
     report: Path | None = _REPORT,
-    export: Path | None = typer.Option(
-        None,
-        "--export",
-        help="Write the synthetic pictures (display order, no anchors) to this .y4m file, with a JSON sidecar.",
-    ),
-    export_maker: str | None = typer.Option(
-        None,
-        "--export-maker",
-        help="Maker whose pictures --export writes (default: lmmse when run, else the first maker).",
-    ),
+    export: Path | None = typer.Option(None, "--export", help=HELP["gop.export"]),
+    export_maker: str | None = typer.Option(None, "--export-maker", help=HELP["gop.export_maker"]),
     as_json: bool = _JSON,
 ) -> None:
     """Synthesise every B picture of a dyadic hierarchical GOP from its references; statistics per layer."""
@@ -421,17 +330,12 @@ def gop(
             vector_qp=vector_qp, two_way=two_way, params=params, pictures=pictures, report=report, export=export,
             export_maker=export_maker, progress=bar,
         )  # fmt: skip
-    if as_json:
-        _print_json(summary)
-        return
-    typer.echo(format_gop(summary))
+    _emit(summary, as_json, format_gop)
 
 
 @app.command()
 def demo(
-    report: Path = typer.Option(
-        Path("synth-demo"), "--report", "-o", help="Folder for report.html, results.json and results.csv."
-    ),
+    report: Path = typer.Option(Path("synth-demo"), "--report", "-o", help=HELP["demo.report"]),
     as_json: bool = _JSON,
 ) -> None:
     """Run the main job on the bundled demo clips: GOP runs and comparisons, with a report."""
@@ -439,26 +343,17 @@ def demo(
 
     with Progress("demo") as bar:
         summary = run_demo_command(report, progress=bar)
-    if as_json:
-        _print_json(summary)
-        return
-    typer.echo(format_demo(summary))
+    _emit(summary, as_json, format_demo)
 
 
 @app.command()
 def study(
-    manifest: Path = typer.Argument(..., help="Study manifest (TOML; see README 'Studies')."),
-    output: Path = typer.Option(
-        ..., "--output", "-o", help="Study folder: job records, study.csv/json, report/. Reuse it to resume."
-    ),
-    workers: int | None = typer.Option(
-        None, "--workers", "-w", help="Local worker processes (default: CPU count; 1 runs in this process)."
-    ),
-    cluster: str | None = typer.Option(
-        None, "--cluster", help="Run on a Dask distributed scheduler, e.g. tcp://HOST:8786 (extra 'cluster')."
-    ),
-    keep_failed: bool = typer.Option(False, "--keep-failed", help="Do not retry jobs recorded as failed."),
-    plan: bool = typer.Option(False, "--plan", help="Validate, list the jobs and how many are done; run nothing."),
+    manifest: Path = typer.Argument(..., help=HELP["study.manifest"]),
+    output: Path = typer.Option(..., "--output", "-o", help=HELP["study.output"]),
+    workers: int | None = typer.Option(None, "--workers", "-w", help=HELP["study.workers"]),
+    cluster: str | None = typer.Option(None, "--cluster", help=HELP["study.cluster"]),
+    keep_failed: bool = typer.Option(False, "--keep-failed", help=HELP["study.keep_failed"]),
+    plan: bool = typer.Option(False, "--plan", help=HELP["study.plan"]),
     as_json: bool = _JSON,
 ) -> None:
     """Run a whole study: every job kind on every clip over every parameter setting, resumably."""
