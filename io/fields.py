@@ -174,7 +174,7 @@ def _check_version(path: Path, fmt, version) -> None:
         raise FormatError(f"{path}: unknown schema version {version} (this synth reads version {SCHEMA_VERSION})")
 
 
-def _read_json(path: Path) -> list[VectorField]:
+def _read_json(path: Path, expected=(None, None)) -> list[VectorField]:
     try:
         text = path.read_text(encoding="utf-8")
     except UnicodeDecodeError as exc:
@@ -194,6 +194,7 @@ def _read_json(path: Path) -> list[VectorField]:
         raise FormatError(f"{path}: vector_unit must be 'quarter-sample', got {unit!r}")
     try:
         width, height = check_picture_size(doc["width"], doc["height"])
+        _check_expected_size(path, width, height, expected)
     except FormatError as exc:
         raise FormatError(f"{path}: {exc}") from None
     if not isinstance(doc["fields"], list) or not doc["fields"]:
@@ -230,7 +231,7 @@ def _read_json(path: Path) -> list[VectorField]:
     return out
 
 
-def _read_npz(path: Path) -> list[VectorField]:
+def _read_npz(path: Path, expected=(None, None)) -> list[VectorField]:
     try:
         with np.load(path, allow_pickle=False) as z:
             data = {k: z[k] for k in z.files}
@@ -251,6 +252,7 @@ def _read_npz(path: Path) -> list[VectorField]:
     _check_version(path, scalar("format", "U"), scalar("schema_version", "iu"))
     try:
         width, height = check_picture_size(scalar("width", "iu"), scalar("height", "iu"))
+        _check_expected_size(path, width, height, expected)
     except FormatError as exc:
         raise FormatError(f"{path}: {exc}") from None
     cols = [str(c) for c in get("columns").tolist()] if get("columns").ndim == 1 else None
@@ -308,15 +310,18 @@ def read_fields(path: str | os.PathLike, *, width: int | None = None, height: in
     kind = _suffix(path)
     if not path.is_file():
         raise FormatError(f"{path}: no such file")
-    fields = _read_json(path) if kind == ".json" else _read_npz(path)
-    if width is not None or height is not None:
-        fw, fh = fields[0].width, fields[0].height
-        if (width is not None and fw != width) or (height is not None and fh != height):
-            raise FormatError(
-                f"{path}: picture size {fw}x{fh} does not match the clip's {width if width is not None else fw}x"
-                f"{height if height is not None else fh}"
-            )
-    return fields
+    # The size is compared before any block is validated: validation allocates a coverage map of
+    # the declared picture, which must not happen for a size the clip contradicts.
+    return _read_json(path, (width, height)) if kind == ".json" else _read_npz(path, (width, height))
+
+
+def _check_expected_size(path: Path, fw: int, fh: int, expected) -> None:
+    width, height = expected
+    if (width is not None and fw != width) or (height is not None and fh != height):
+        raise FormatError(
+            f"{path}: picture size {fw}x{fh} does not match the clip's {width if width is not None else fw}x"
+            f"{height if height is not None else fh}"
+        )
 
 
 def fields_to_csv(path: str | os.PathLike, fields: VectorField | Iterable[VectorField]) -> None:

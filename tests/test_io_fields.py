@@ -237,3 +237,32 @@ def test_generated_fields_round_trip(tmp_path_factory, field):
         write_fields(d / f"f{suffix}", field)
         (back,) = read_fields(d / f"f{suffix}")
         assert _same(back, field)
+
+
+def test_a_field_for_another_size_is_refused_before_its_blocks_are_checked(tmp_path):
+    """A 300-byte file declaring a 65536 x 65536 picture with gaps allowed, read for a 352 x 288
+    clip: refused on the size alone, before a coverage map of the declared picture (4 GiB of
+    flags) is built: the reading allocates next to nothing."""
+    import tracemalloc
+
+    doc = {
+        "format": "synth-vector-field",
+        "schema_version": 1,
+        "width": 65536,
+        "height": 65536,
+        "vector_unit": "quarter-sample",
+        "fields": [
+            {"coded_time": 8.0, "reference_time": 0.0, "gaps_allowed": True,
+             "columns": ["x", "y", "w", "h", "dx", "dy", "intra"], "blocks": [[0, 0, 16, 16, 0, 0, 0]]}
+        ],
+    }  # fmt: skip
+    path = tmp_path / "huge.json"
+    path.write_text(json.dumps(doc))
+    tracemalloc.start()
+    try:
+        with pytest.raises(FormatError, match="65536x65536 does not match the clip's 352x288"):
+            read_fields(path, width=352, height=288)
+        peak = tracemalloc.get_traced_memory()[1]
+    finally:
+        tracemalloc.stop()
+    assert peak < 16 * 1024 * 1024
