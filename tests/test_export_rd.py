@@ -105,7 +105,22 @@ def test_failed_export_leaves_no_files(crop_clip, tmp_path):
         run_export(crop_clip, output=out, maker="blend")
     with pytest.raises(ParameterError, match="--vector-qp must be an integer 0..51"):
         run_export(crop_clip, output=out, vector_qp=60)
+    # The format written is the one the file name says (common practice: .y4m is YUV4MPEG2,
+    # .yuv headerless planar samples); a contradiction is refused before anything is computed.
+    with pytest.raises(ParameterError, match="name the output .yuv"):
+        run_export(crop_clip, output=out, raw=True, maker="average")
+    with pytest.raises(ParameterError, match=r"must end in .y4m \(YUV4MPEG2\) or .yuv"):
+        run_export(crop_clip, output=tmp_path / "refs.png", maker="average")
     assert list(tmp_path.iterdir()) == [crop_clip]
+
+
+def test_export_to_a_yuv_name_writes_raw_samples(crop_clip, tmp_path):
+    """A .yuv output holds headerless samples: its size is a whole number of pictures."""
+    summary = run_export(crop_clip, output=tmp_path / "refs.yuv", gop_size=4, maker="average")
+    data = (tmp_path / "refs.yuv").read_bytes()
+    assert not data.startswith(b"YUV4MPEG2")
+    w, h = summary["width"], summary["height"]
+    assert len(data) == summary["pictures"] * w * h * 3 // 2 * (2 if summary["bit_depth"] > 8 else 1)
 
 
 def test_export_command_line(crop_clip, tmp_path):

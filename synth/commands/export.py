@@ -65,6 +65,7 @@ def run_export(
     from synth.makers import get_maker
     from synth.motion.sources import DEFAULT_VECTOR_QP, parse_vector_source
 
+    raw = _check_output_format(output, raw)
     the_maker = get_maker(maker, option="--maker")
     qp = _check_vector_qp(DEFAULT_VECTOR_QP if vector_qp is None else vector_qp)
     source = parse_vector_source(vectors, qp=qp, name="--vectors")
@@ -120,3 +121,24 @@ def format_export(summary: dict) -> str:
             f"pictures {summary['uncovered'][0]}..{summary['uncovered'][-1]} lie after the last anchor and are not covered"
         )
     return "\n".join(lines)
+
+
+def _check_output_format(output, raw: bool) -> bool:
+    """The format written is the one the file name says: ``.y4m`` is YUV4MPEG2, ``.yuv`` raw
+    planar samples (``--raw`` may say so too); anything else, or ``--raw`` with ``.y4m``, is refused
+    before anything is computed.
+
+    Raises
+    ------
+    ParameterError
+    """
+    from synth.errors import ParameterError
+
+    suffix = Path(output).suffix.lower()
+    if suffix == ".y4m" and not raw:
+        return False
+    if suffix == ".yuv":
+        return True
+    if suffix == ".y4m":
+        raise ParameterError(f"--raw writes headerless samples: name the output .yuv, got {str(output)!r}")
+    raise ParameterError(f"--output must end in .y4m (YUV4MPEG2) or .yuv (raw planar), got {str(output)!r}")
