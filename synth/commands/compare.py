@@ -74,38 +74,53 @@ def run_compare(
     ParameterError
         For a bad option value (the message names the option).
     """
-    from synth.commands.options import parse_int_list, parse_picture_range
+    from synth.commands.options import parse_int_list
     from synth.evaluation.compare import DEFAULT_GAPS, compare_clip
-    from synth.evaluation.workbench import parse_vector_qps, run_document
-    from synth.io import open_clip
+    from synth.evaluation.workbench import run_document
     from synth.io.jsonout import strict_json
 
     gap_list = parse_int_list(gaps, option="--gaps") if gaps is not None else list(DEFAULT_GAPS)
-    qps = parse_vector_qps(vector_qp, option="--vector-qp")
-    source = vector_source(vectors, qps, two_way=two_way)
-    syn_params = load_params(params)
-    span = parse_picture_range(pictures, option="--pictures")
-    reader = open_clip(clip)
-    name = Path(clip).name
-    result = compare_clip(
-        reader,
-        gaps=gap_list,
-        makers=makers,
-        vectors=source,
-        vector_qps=qps,
-        params=syn_params,
-        pictures=span,
-        clip_name=name,
-        progress=progress,
-    )
-    paths = None
-    if report is not None:
-        from synth.evaluation.report import write_report
-
-        paths = write_report([result], report, title=f"synth compare: {name}")
+    reader, inputs = run_inputs(clip, vectors=vectors, vector_qp=vector_qp, two_way=two_way, params=params,
+                                pictures=pictures)  # fmt: skip
+    result = compare_clip(reader, gaps=gap_list, makers=makers, progress=progress, **inputs)
+    paths = write_run_report(result, report, "compare")
     return strict_json(
         {"command": "compare", "clip": str(clip), "run": run_document(result, pictures=False), "report": paths}
     )
+
+
+def run_inputs(clip, *, vectors, vector_qp, two_way, params, pictures):
+    """The clip reader and the workbench inputs every run command shares (``--vectors``,
+    ``--vector-qp``, ``--two-way``, ``--params``, ``--pictures``), checked before anything runs.
+
+    Returns
+    -------
+    (reader, dict)
+        The open clip and the keyword arguments ``vectors``, ``vector_qps``, ``params``,
+        ``pictures`` and ``clip_name`` of `compare_clip` and `run_gop`.
+    """
+    from synth.commands.options import parse_picture_range
+    from synth.evaluation.workbench import parse_vector_qps
+    from synth.io import open_clip
+
+    qps = parse_vector_qps(vector_qp, option="--vector-qp")
+    inputs = {
+        "vectors": vector_source(vectors, qps, two_way=two_way),
+        "vector_qps": qps,
+        "params": load_params(params),
+        "pictures": parse_picture_range(pictures, option="--pictures"),
+        "clip_name": Path(clip).name,
+    }
+    return open_clip(clip), inputs
+
+
+def write_run_report(result, report, command: str):
+    """Write the report folder of a run when ``--report`` is given; its paths, or None."""
+    if report is None:
+        return None
+    from synth.evaluation.report import write_report
+
+    return write_report([result], report, title=f"synth {command}: {result.clip}")
 
 
 def format_report_paths(paths) -> list[str]:

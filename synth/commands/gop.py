@@ -59,12 +59,10 @@ def run_gop_command(
         For a bad option value (the message names the option).
     """
     from synth.codec.export import sidecar_path
-    from synth.commands.compare import load_params, vector_source
-    from synth.commands.options import parse_picture_range
+    from synth.commands.compare import run_inputs, write_run_report
     from synth.evaluation.gop import DEFAULT_GOP_SIZE, run_gop, write_gop_export
-    from synth.evaluation.workbench import parse_vector_qps, run_document
+    from synth.evaluation.workbench import run_document
     from synth.hierarchy import check_gop_size
-    from synth.io import open_clip
     from synth.io.jsonout import strict_json
 
     size = DEFAULT_GOP_SIZE if gop_size is None else gop_size
@@ -78,23 +76,15 @@ def run_gop_command(
         raise ParameterError("--export-maker needs --export")
     if decoded_refs is not None and not (isinstance(decoded_refs, int) and 0 <= decoded_refs <= 51):
         raise ParameterError(f"--decoded-refs QP must be an integer 0..51, got {decoded_refs!r}")
-    qps = parse_vector_qps(vector_qp, option="--vector-qp")
-    source = vector_source(vectors, qps, two_way=two_way)
-    syn_params = load_params(params)
-    span = parse_picture_range(pictures, option="--pictures")
-    reader = open_clip(clip)
-    name = Path(clip).name
+    reader, inputs = run_inputs(clip, vectors=vectors, vector_qp=vector_qp, two_way=two_way, params=params,
+                                pictures=pictures)  # fmt: skip
     result = run_gop(
         reader,
         size=size,
         flat=flat,
         decoded_refs_qp=decoded_refs,
         makers=makers,
-        vectors=source,
-        vector_qps=qps,
-        params=syn_params,
-        pictures=span,
-        clip_name=name,
+        **inputs,
         export=export is not None,
         export_maker=export_maker,
         frame_rate=reader.info.frame_rate,
@@ -114,11 +104,7 @@ def run_gop_command(
             "maker": result.settings["export_maker"],
             "pictures": len(result.synthetic),
         }
-    paths = None
-    if report is not None:
-        from synth.evaluation.report import write_report
-
-        paths = write_report([result], report, title=f"synth gop: {name}")
+    paths = write_run_report(result, report, "gop")
     return strict_json(
         {
             "command": "gop",
