@@ -6,7 +6,7 @@ VENV ?= .venv
 PY := $(VENV)/bin/python
 STAMP := $(VENV)/.installed
 
-.PHONY: demo test lint bench clean
+.PHONY: demo test fuzz lint bench clean
 
 $(STAMP): pyproject.toml
 	$(PYTHON) -m venv $(VENV)
@@ -23,6 +23,13 @@ test: $(STAMP)
 	$(VENV)/bin/ruff check .
 	$(VENV)/bin/ruff format --check .
 	$(PY) -m pytest -q -n 2
+
+# The readers' property tests in their long mode: 5000 mutated or generated inputs per reader
+# (`make test` runs a few hundred); the counts per reader go to $(FUZZ_REPORT).
+FUZZ_REPORT ?= .pytest_cache/fuzz-report.json
+fuzz: $(STAMP)
+	mkdir -p $(dir $(FUZZ_REPORT)) && rm -f $(FUZZ_REPORT)
+	SYNTH_FUZZ=long SYNTH_FUZZ_REPORT=$(FUZZ_REPORT) $(PY) -m pytest -q -p no:xdist tests/test_fuzz_readers.py
 
 lint: $(STAMP)
 	$(VENV)/bin/ruff check .

@@ -22,18 +22,26 @@ from __future__ import annotations
 import os
 from collections.abc import Iterable
 from pathlib import Path
-from typing import Protocol
+from typing import TYPE_CHECKING, Protocol
 
 from synth.errors import FormatError, ParameterError
-from synth.io.atomic import atomic_output, atomic_write_bytes, atomic_write_text
-from synth.io.colour import MATRICES, picture_to_rgb, rgb_to_picture, rgb_to_ycbcr420
-from synth.io.fields import fields_to_csv, read_fields, write_fields
-from synth.io.images import ImageSequenceReader, is_image_pattern, write_images
-from synth.io.offsets_file import read_offsets, write_offsets
-from synth.io.rawyuv import RawYUVReader, geometry_from_name, parse_size, write_yuv
-from synth.io.video import VideoReader
-from synth.io.y4m import Y4MReader, format_y4m_header, parse_y4m_header, write_y4m
-from synth.picture import ClipInfo, Picture
+from synth.lazy import lazy_exports
+
+if TYPE_CHECKING:  # the readers are imported on first use (start-up stays cheap)
+    from synth.picture import ClipInfo, Picture
+
+_EXPORTS = {
+    **dict.fromkeys(("atomic_output", "atomic_write_bytes", "atomic_write_text"), "synth.io.atomic"),
+    **dict.fromkeys(("MATRICES", "picture_to_rgb", "rgb_to_picture", "rgb_to_ycbcr420"), "synth.io.colour"),
+    **dict.fromkeys(("fields_to_csv", "read_fields", "write_fields"), "synth.io.fields"),
+    **dict.fromkeys(("ImageSequenceReader", "is_image_pattern", "write_images"), "synth.io.images"),
+    **dict.fromkeys(("read_offsets", "write_offsets"), "synth.io.offsets_file"),
+    **dict.fromkeys(("RawYUVReader", "geometry_from_name", "parse_size", "write_yuv"), "synth.io.rawyuv"),
+    "VideoReader": "synth.io.video",
+    **dict.fromkeys(("Y4MReader", "format_y4m_header", "parse_y4m_header", "write_y4m"), "synth.io.y4m"),
+    "read_sidecar": "synth.io.sidecar",
+}
+__getattr__, _lazy_dir = lazy_exports(__name__, _EXPORTS)
 
 __all__ = [
     "ClipReader",
@@ -66,7 +74,13 @@ __all__ = [
     # corrective block offsets (synth.offset_field)
     "write_offsets",
     "read_offsets",
+    # export sidecars (synth export)
+    "read_sidecar",
 ]
+
+
+def __dir__() -> list[str]:
+    return sorted(set(__all__) | set(globals()))
 
 
 class ClipReader(Protocol):
@@ -103,6 +117,8 @@ def clip_kind(path: str | os.PathLike) -> str:
         return "y4m"
     if suffix == ".yuv":
         return "yuv"
+    from synth.io.images import is_image_pattern
+
     if is_image_pattern(path):
         return "images"
     return "video"
@@ -144,14 +160,22 @@ def open_clip(path: str | os.PathLike, **options) -> ClipReader:
     if unknown:
         raise ParameterError(f"{path}: {', '.join(unknown)} does not apply to a {_DESCRIPTIONS[kind]} file")
     if kind == "images":
+        from synth.io.images import ImageSequenceReader
+
         return ImageSequenceReader(path, **options)
     p = Path(path)
     if not p.exists():
         raise FormatError(f"{p}: no such file")
     if kind == "y4m":
+        from synth.io.y4m import Y4MReader
+
         return Y4MReader(p, **options)
     if kind == "yuv":
+        from synth.io.rawyuv import RawYUVReader
+
         return RawYUVReader(p, **options)
+    from synth.io.video import VideoReader
+
     return VideoReader(p, **options)
 
 
@@ -168,13 +192,19 @@ def write_clip(path: str | os.PathLike, pictures: Iterable[Picture], info: ClipI
     """
     kind = clip_kind(path)
     if kind == "images":
+        from synth.io.images import write_images
+
         return write_images(path, pictures, info, **options)
     if options:
         raise ParameterError(
             f"{path}: writing {_DESCRIPTIONS.get(kind, kind)} takes no options, got {', '.join(options)}"
         )
     if kind == "y4m":
+        from synth.io.y4m import write_y4m
+
         return write_y4m(path, pictures, info)
     if kind == "yuv":
+        from synth.io.rawyuv import write_yuv
+
         return write_yuv(path, pictures, info)
     raise FormatError(f"{path}: cannot write this kind of file (use .y4m, .yuv or a .png pattern such as f_%04d.png)")

@@ -34,8 +34,11 @@ from __future__ import annotations
 import csv
 import io as _stdio
 import json
+import lzma
 import os
+import struct
 import zipfile
+import zlib
 from collections.abc import Iterable
 from pathlib import Path
 
@@ -43,8 +46,11 @@ import numpy as np
 
 from synth.errors import FormatError, ParameterError
 from synth.field import VectorField
-from synth.field_checks import COLUMNS, check_picture_size, field_from_columns, validate_field
+from synth.field_checks import COLUMNS, check_block_count, check_picture_size, field_from_columns, validate_field
 from synth.io.atomic import atomic_output, atomic_write_text
+from synth.io.jsonread import read_json_document
+from synth.io.limits import MAX_FIELDS_PER_FILE, MAX_TABLE_FILE_BYTES
+from synth.io.limits import short_repr as _short
 
 __all__ = ["FORMAT_NAME", "SCHEMA_VERSION", "write_fields", "read_fields", "fields_to_csv"]
 
@@ -167,22 +173,16 @@ def write_fields(path: str | os.PathLike, fields: VectorField | Iterable[VectorF
 
 def _check_version(path: Path, fmt, version) -> None:
     if fmt != FORMAT_NAME:
-        raise FormatError(f"{path}: not a vector-field file (format is {fmt!r}, expected {FORMAT_NAME!r})")
+        raise FormatError(f"{path}: not a vector-field file (format is {_short(fmt)}, expected {FORMAT_NAME!r})")
     if isinstance(version, bool) or not isinstance(version, int):
-        raise FormatError(f"{path}: schema_version must be an integer, got {version!r}")
+        raise FormatError(f"{path}: schema_version must be an integer, got {_short(version)}")
     if version != SCHEMA_VERSION:
         raise FormatError(f"{path}: unknown schema version {version} (this synth reads version {SCHEMA_VERSION})")
 
 
 def _read_json(path: Path, expected=(None, None)) -> list[VectorField]:
-    try:
-        text = path.read_text(encoding="utf-8")
-    except UnicodeDecodeError as exc:
-        raise FormatError(f"{path}: not UTF-8 text ({exc.reason})") from None
-    try:
-        doc = json.loads(text)
-    except json.JSONDecodeError as exc:
-        raise FormatError(f"{path}: not valid JSON ({exc.msg} at line {exc.lineno}, column {exc.colno})") from None
+    # NaN and infinities are parsed so that the block rules can name the block that holds one
+    doc = read_json_document(path, what="vector-field file", max_bytes=MAX_TABLE_FILE_BYTES, allow_nonfinite=True)
     if not isinstance(doc, dict):
         raise FormatError(f"{path}: top level must be a JSON object, got {type(doc).__name__}")
     for key in ("format", "schema_version", "width", "height", "fields"):
@@ -191,14 +191,12 @@ def _read_json(path: Path, expected=(None, None)) -> list[VectorField]:
     _check_version(path, doc["format"], doc["schema_version"])
     unit = doc.get("vector_unit", "quarter-sample")
     if unit != "quarter-sample":
-        raise FormatError(f"{path}: vector_unit must be 'quarter-sample', got {unit!r}")
-    try:
-        width, height = check_picture_size(doc["width"], doc["height"])
-        _check_expected_size(path, width, height, expected)
-    except FormatError as exc:
-        raise FormatError(f"{path}: {exc}") from None
+        raise FormatError(f"{path}: vector_unit must be 'quarter-sample', got {_short(unit)}")
+    width, height = _picture_size(path, doc["width"], doc["height"], expected)
     if not isinstance(doc["fields"], list) or not doc["fields"]:
         raise FormatError(f"{path}: 'fields' must be a non-empty list")
+    if len(doc["fields"]) > MAX_FIELDS_PER_FILE:
+        raise FormatError(f"{path}: {len(doc['fields'])} fields is more than a file may hold ({MAX_FIELDS_PER_FILE})")
     out = []
     for k, fd in enumerate(doc["fields"]):
         label = f"{path}, field {k}"
@@ -208,14 +206,15 @@ def _read_json(path: Path, expected=(None, None)) -> list[VectorField]:
             if key not in fd:
                 raise FormatError(f"{label}: missing key {key!r}")
         cols = fd["columns"]
-        if not isinstance(cols, list) or sorted(map(str, cols)) != sorted(COLUMNS) or len(cols) != len(COLUMNS):
-            raise FormatError(f"{label}: columns must name {', '.join(COLUMNS)} once each, got {cols!r}")
+        if not isinstance(cols, list) or not all(isinstance(c, str) for c in cols) or sorted(cols) != sorted(COLUMNS):
+            raise FormatError(f"{label}: columns must name {', '.join(COLUMNS)} once each, got {_short(cols)}")
         blocks = fd["blocks"]
         if not isinstance(blocks, list):
             raise FormatError(f"{label}: 'blocks' must be a list of rows")
+        check_block_count(len(blocks), width, height, label=label)
         for i, row in enumerate(blocks):
             if not isinstance(row, list) or len(row) != len(cols):
-                raise FormatError(f"{label}, block {i}: a row must list {len(cols)} values, got {row!r}")
+                raise FormatError(f"{label}, block {i}: a row must list {len(cols)} values, got {_short(row)}")
         columns = {c: [row[j] for row in blocks] for j, c in enumerate(cols)}
         out.append(
             field_from_columns(
@@ -231,12 +230,84 @@ def _read_json(path: Path, expected=(None, None)) -> list[VectorField]:
     return out
 
 
-def _read_npz(path: Path, expected=(None, None)) -> list[VectorField]:
+#: Everything a damaged zip archive or .npy member can raise while it is read.
+_ARCHIVE_ERRORS = (
+    zipfile.BadZipFile,
+    zlib.error,
+    lzma.LZMAError,
+    EOFError,
+    OSError,
+    ValueError,
+    NotImplementedError,
+    RuntimeError,
+    struct.error,
+    KeyError,
+    IndexError,
+    TypeError,
+    OverflowError,
+    SyntaxError,
+)
+
+
+def _npy_member(zf: zipfile.ZipFile, info: zipfile.ZipInfo, path: Path) -> np.ndarray:
+    """One ``.npy`` member, its header checked against the member's size before any data is read."""
+    from numpy.lib import format as npy
+
+    name = info.filename[: -len(".npy")]
+    with zf.open(info) as fh:
+        version = npy.read_magic(fh)
+        if version == (1, 0):
+            shape, fortran, dtype = npy.read_array_header_1_0(fh)
+        elif version == (2, 0):
+            shape, fortran, dtype = npy.read_array_header_2_0(fh)
+        else:
+            raise FormatError(f"{path}: array {name!r} uses .npy version {version}, not 1.0 or 2.0")
+        if dtype.hasobject:
+            raise FormatError(f"{path}: array {name!r} holds Python objects (not read: no pickle)")
+        count = 1
+        for d in shape:
+            count *= int(d)
+        nbytes = count * dtype.itemsize
+        if nbytes != info.file_size - fh.tell():
+            raise FormatError(
+                f"{path}: array {name!r} declares {nbytes} bytes of data, its member holds {info.file_size - fh.tell()}"
+            )
+        data = fh.read(nbytes)
+    if len(data) != nbytes:
+        raise FormatError(f"{path}: array {name!r} is truncated")
+    a = np.frombuffer(data, dtype=dtype, count=count)
+    return a.reshape(shape[::-1]).transpose() if fortran else a.reshape(shape)
+
+
+def _load_npz(path: Path) -> dict[str, np.ndarray]:
+    """The arrays of an ``.npz`` archive, every size checked before it is read (no pickle)."""
+    size = path.stat().st_size
+    if size > MAX_TABLE_FILE_BYTES:
+        raise FormatError(f"{path}: {size} bytes is more than a vector-field file may hold ({MAX_TABLE_FILE_BYTES})")
+    data: dict[str, np.ndarray] = {}
     try:
-        with np.load(path, allow_pickle=False) as z:
-            data = {k: z[k] for k in z.files}
-    except (zipfile.BadZipFile, EOFError, OSError, ValueError) as exc:
-        raise FormatError(f"{path}: not a readable .npz archive ({exc})") from None
+        with zipfile.ZipFile(path) as zf:
+            members = zf.infolist()
+            if len(members) > 6 + 3 * MAX_FIELDS_PER_FILE:
+                raise FormatError(f"{path}: an archive of {len(members)} members is no vector-field file")
+            total = sum(m.file_size for m in members)
+            if total > MAX_TABLE_FILE_BYTES:
+                raise FormatError(
+                    f"{path}: its arrays hold {total} bytes, more than a vector-field file may ({MAX_TABLE_FILE_BYTES})"
+                )
+            for info in members:
+                if not info.filename.endswith(".npy"):
+                    raise FormatError(f"{path}: archive member {info.filename[:40]!r} is not a .npy array")
+                data[info.filename[: -len(".npy")]] = _npy_member(zf, info, path)
+    except FormatError:
+        raise
+    except _ARCHIVE_ERRORS as exc:
+        raise FormatError(f"{path}: not a readable .npz archive ({type(exc).__name__}: {str(exc)[:80]})") from None
+    return data
+
+
+def _read_npz(path: Path, expected=(None, None)) -> list[VectorField]:
+    data = _load_npz(path)
 
     def get(key: str) -> np.ndarray:
         if key not in data:
@@ -247,20 +318,18 @@ def _read_npz(path: Path, expected=(None, None)) -> list[VectorField]:
         a = get(key)
         if a.shape != () or a.dtype.kind not in kind:
             raise FormatError(f"{path}: array {key!r} must be a single value of kind {kind!r}, got {a.dtype} {a.shape}")
-        return a.item()
+        v = a.item()
+        return v.decode("latin-1") if isinstance(v, bytes) else v
 
     _check_version(path, scalar("format", "U"), scalar("schema_version", "iu"))
-    try:
-        width, height = check_picture_size(scalar("width", "iu"), scalar("height", "iu"))
-        _check_expected_size(path, width, height, expected)
-    except FormatError as exc:
-        raise FormatError(f"{path}: {exc}") from None
-    cols = [str(c) for c in get("columns").tolist()] if get("columns").ndim == 1 else None
-    if cols is None or sorted(cols) != sorted(COLUMNS) or len(cols) != len(COLUMNS):
+    width, height = _picture_size(path, scalar("width", "iu"), scalar("height", "iu"), expected)
+    col_array = get("columns")
+    cols = [str(c) for c in col_array.tolist()] if col_array.ndim == 1 and col_array.dtype.kind == "U" else None
+    if cols is None or sorted(cols) != sorted(COLUMNS):
         raise FormatError(f"{path}: columns must name {', '.join(COLUMNS)} once each")
     count = scalar("field_count", "iu")
-    if count < 1:
-        raise FormatError(f"{path}: field_count must be >= 1, got {count}")
+    if not 1 <= count <= MAX_FIELDS_PER_FILE:
+        raise FormatError(f"{path}: field_count must be in 1..{MAX_FIELDS_PER_FILE}, got {count}")
     out = []
     for k in range(count):
         label = f"{path}, field {k}"
@@ -270,6 +339,7 @@ def _read_npz(path: Path, expected=(None, None)) -> list[VectorField]:
         blocks = get(f"field{k}_blocks")
         if blocks.ndim != 2 or blocks.shape[1] != len(cols):
             raise FormatError(f"{label}: blocks must be an (n, {len(cols)}) array, got shape {blocks.shape}")
+        check_block_count(blocks.shape[0], width, height, label=label)
         columns = {c: blocks[:, j] for j, c in enumerate(cols)}
         gaps = get(f"field{k}_gaps_allowed")
         out.append(
@@ -308,11 +378,26 @@ def read_fields(path: str | os.PathLike, *, width: int | None = None, height: in
     """
     path = Path(path)
     kind = _suffix(path)
-    if not path.is_file():
+    try:
+        exists = path.is_file()
+    except OSError as exc:
+        raise FormatError(f"{path}: cannot read this file: {exc.strerror or exc}") from None
+    if not exists:
         raise FormatError(f"{path}: no such file")
     # The size is compared before any block is validated: validation allocates a coverage map of
     # the declared picture, which must not happen for a size the clip contradicts.
     return _read_json(path, (width, height)) if kind == ".json" else _read_npz(path, (width, height))
+
+
+def _picture_size(path: Path, width, height, expected) -> tuple[int, int]:
+    """The file's picture size: compared with the clip's first (the message names both), then
+    checked against the ceiling."""
+    if all(isinstance(v, (int, np.integer)) and not isinstance(v, (bool, np.bool_)) for v in (width, height)):
+        _check_expected_size(path, int(width), int(height), expected)
+    try:
+        return check_picture_size(width, height)
+    except FormatError as exc:
+        raise FormatError(f"{path}: {exc}") from None
 
 
 def _check_expected_size(path: Path, fw: int, fh: int, expected) -> None:

@@ -26,6 +26,7 @@ import numpy as np
 from synth.errors import FormatError, ParameterError
 from synth.io.atomic import atomic_write_bytes
 from synth.io.colour import check_matrix, picture_to_rgb, rgb_to_picture
+from synth.io.limits import MAX_PICTURE_SIDE
 from synth.io.planar import ReaderMixin, frame_index
 from synth.picture import ClipInfo, Picture, chroma_factors
 
@@ -65,6 +66,24 @@ def _name_for(pattern: str, number: int) -> Path:
         return p
     prefix, suffix, digits = parts
     return p.parent / f"{prefix}{number:0{digits}d}{suffix}"
+
+
+_PNG_MAGIC = b"\x89PNG\r\n\x1a\n"
+
+
+def _check_png_size(path: Path) -> None:
+    """Refuse a PNG whose header declares a side above the ceiling, before it is decoded."""
+    try:
+        with open(path, "rb") as fh:
+            head = fh.read(24)
+    except OSError as exc:
+        raise FormatError(f"{path}: cannot read this image: {exc.strerror or exc}") from None
+    if len(head) == 24 and head[:8] == _PNG_MAGIC and head[12:16] == b"IHDR":
+        w, h = int.from_bytes(head[16:20], "big"), int.from_bytes(head[20:24], "big")
+        if w > MAX_PICTURE_SIDE or h > MAX_PICTURE_SIDE:
+            raise FormatError(
+                f"{path}: a {w}x{h} image is beyond the largest side synth reads ({MAX_PICTURE_SIDE} samples)"
+            )
 
 
 class ImageSequenceReader(ReaderMixin):
@@ -159,7 +178,13 @@ class ImageSequenceReader(ReaderMixin):
         return [_name_for(self.pattern, n) for n in run]
 
     def _load(self, path: Path, index: int) -> np.ndarray:
-        img = cv2.imread(str(path), cv2.IMREAD_UNCHANGED)
+        _check_png_size(path)
+        try:
+            img = cv2.imread(str(path), cv2.IMREAD_UNCHANGED)
+        except cv2.error as exc:
+            raise FormatError(
+                f"{path}: OpenCV cannot decode this image (frame {index}): {str(exc).strip()[-80:]}"
+            ) from None
         if img is None:
             raise FormatError(f"{path}: OpenCV cannot decode this image (frame {index})")
         if img.dtype not in (np.uint8, np.uint16):

@@ -14,7 +14,6 @@ Version key ``schema_version``; files with the older ``version`` / ``format_vers
 
 from __future__ import annotations
 
-import json
 import math
 import os
 from pathlib import Path
@@ -23,6 +22,9 @@ import numpy as np
 
 from synth.errors import FormatError
 from synth.io.atomic import atomic_write_text
+from synth.io.jsonread import read_json_document
+from synth.io.limits import MAX_ABS_TIME, MAX_TABLE_FILE_BYTES
+from synth.io.limits import short_repr as _short
 from synth.offset_field import (
     OFFSET_COLUMNS,
     OFFSETS_FORMAT,
@@ -71,7 +73,7 @@ def _integers(label: str, name: str, values) -> np.ndarray:
     out = []
     for i, v in enumerate(values):
         if isinstance(v, bool) or not isinstance(v, int):
-            raise FormatError(f"{label}, block {i}: {name} must be an integer, got {v!r}")
+            raise FormatError(f"{label}, block {i}: {name} must be an integer, got {_short(v)}")
         if not -(2**31) <= v < 2**31:
             raise FormatError(f"{label}, block {i}: {name} = {v} does not fit a 32-bit integer")
         out.append(v)
@@ -103,21 +105,29 @@ def _check_blocks(label: str, width: int, height: int, x, y, w, h, dx, dy, intra
         raise FormatError(
             f"{where(i)}: offset (dx={dx[i]}, dy={dy[i]}) quarter samples points further than the picture"
         )
-    owner = np.full((height, width), -1, dtype=np.int32)
-    for i, (bx, by, bw, bh) in enumerate(zip(x.tolist(), y.tolist(), w.tolist(), h.tolist())):
-        region = owner[by : by + bh, bx : bx + bw]
-        taken = region >= 0
-        if taken.any():
-            j = int(region[taken][0])
-            raise FormatError(f"{where(i)}: block overlaps block {j} (x={x[j]}, y={y[j]}) listed before it")
-        region[...] = i
-    if not gaps_allowed and (owner < 0).any():
-        r, c = np.argwhere(owner < 0)[0]
+    from synth.field_checks import coverage_map, first_uncovered
+
+    owner, cell, clash = coverage_map(x, y, w, h, width, height)
+    if clash is not None:
+        i, j = clash
+        raise FormatError(f"{where(i)}: block overlaps block {j} (x={x[j]}, y={y[j]}) listed before it")
+    hole = None if gaps_allowed else first_uncovered(owner, cell)
+    if hole is not None:
+        c, r = hole
         raise FormatError(f"{label}: sample (x={c}, y={r}) is covered by no block and gaps_allowed is false")
 
 
-def read_offsets(path: str | os.PathLike) -> tuple[OffsetField, dict]:
+def read_offsets(
+    path: str | os.PathLike, *, width: int | None = None, height: int | None = None
+) -> tuple[OffsetField, dict]:
     """Read and validate an offsets file.
+
+    Parameters
+    ----------
+    path : path-like
+    width, height : int, optional
+        Size of the clip the offsets are meant for: a file made for another picture size is
+        refused (naming both sizes) before any block is checked.
 
     Returns
     -------
@@ -127,52 +137,74 @@ def read_offsets(path: str | os.PathLike) -> tuple[OffsetField, dict]:
     Raises
     ------
     FormatError
-        Missing or malformed file, wrong format or schema version, a bad time, or a block breaking
-        a rule of the module docstring (the message names the block).
+        Missing or malformed file, wrong format or schema version, a bad time, a picture size
+        other than `width` x `height`, or a block breaking a rule of the module docstring (the
+        message names the block).
     """
-    from synth.field_checks import check_picture_size
+    from synth.field_checks import check_block_count, check_picture_size
 
     path = Path(path)
     label = str(path)
-    if not path.is_file():
-        raise FormatError(f"{path}: no such file")
+    # NaN / Infinity are parsed (statistics of synth 0.1 files); the time and blocks refuse them
     try:
-        doc = json.loads(path.read_text(encoding="utf-8"))
-    except (UnicodeDecodeError, json.JSONDecodeError) as exc:
-        raise FormatError(f"{path}: not a JSON offsets file ({exc})") from None
+        doc = read_json_document(path, what="offsets file", max_bytes=MAX_TABLE_FILE_BYTES, allow_nonfinite=True)
+    except FormatError as exc:
+        raise FormatError(str(exc).replace(": not valid JSON (", ": not a JSON offsets file (", 1)) from None
     if not isinstance(doc, dict) or doc.get("format") != OFFSETS_FORMAT:
         raise FormatError(f"{path}: not an offsets file (format must be {OFFSETS_FORMAT!r})")
     version = next((doc[k] for k in _VERSION_KEYS if k in doc), None)
     if version != OFFSETS_SCHEMA_VERSION or isinstance(version, bool):
-        raise FormatError(f"{path}: unknown schema version {version!r} (this synth reads {OFFSETS_SCHEMA_VERSION})")
+        raise FormatError(
+            f"{path}: unknown schema version {_short(version)} (this synth reads {OFFSETS_SCHEMA_VERSION})"
+        )
     for key in ("width", "height", "time", "columns", "blocks"):
         if key not in doc:
             raise FormatError(f"{path}: missing key {key!r}")
     if doc.get("vector_unit", "quarter-sample") != "quarter-sample":
-        raise FormatError(f"{path}: vector_unit must be 'quarter-sample', got {doc.get('vector_unit')!r}")
+        raise FormatError(f"{path}: vector_unit must be 'quarter-sample', got {_short(doc.get('vector_unit'))}")
+    fw, fh = doc["width"], doc["height"]
+    if all(isinstance(v, int) and not isinstance(v, bool) for v in (fw, fh)) and (
+        (width is not None and fw != width) or (height is not None and fh != height)
+    ):
+        raise FormatError(
+            f"{path}: offsets made for {fw}x{fh} pictures, the clip's are "
+            f"{width if width is not None else fw}x{height if height is not None else fh}"
+        )
     try:
-        width, height = check_picture_size(doc["width"], doc["height"])
+        width, height = check_picture_size(fw, fh)
     except FormatError as exc:
         raise FormatError(f"{path}: {exc}") from None
     time = doc["time"]
-    if isinstance(time, bool) or not isinstance(time, (int, float)) or not math.isfinite(time):
-        raise FormatError(f"{path}: time must be a finite number (the target's display time), got {time!r}")
+    if (
+        isinstance(time, bool)
+        or not isinstance(time, (int, float))
+        or not math.isfinite(time)
+        or abs(time) > MAX_ABS_TIME
+    ):
+        raise FormatError(
+            f"{path}: time must be a finite number of magnitude at most 2**31 (the target's display time), got {_short(time)}"
+        )
     gaps_allowed = doc.get("gaps_allowed", False)
     if not isinstance(gaps_allowed, bool):
-        raise FormatError(f"{path}: gaps_allowed must be true or false, got {gaps_allowed!r}")
+        raise FormatError(f"{path}: gaps_allowed must be true or false, got {_short(gaps_allowed)}")
     cols, blocks = doc["columns"], doc["blocks"]
-    if not isinstance(cols, list) or sorted(map(str, cols)) != sorted(OFFSET_COLUMNS):
-        raise FormatError(f"{path}: columns must name {', '.join(OFFSET_COLUMNS)} once each, got {cols!r}")
+    if (
+        not isinstance(cols, list)
+        or not all(isinstance(c, str) for c in cols)
+        or sorted(cols) != sorted(OFFSET_COLUMNS)
+    ):
+        raise FormatError(f"{path}: columns must name {', '.join(OFFSET_COLUMNS)} once each, got {_short(cols)}")
     if not isinstance(blocks, list):
         raise FormatError(f"{path}: 'blocks' must be a list of rows")
+    check_block_count(len(blocks), width, height, label=label)
     for i, row in enumerate(blocks):
         if not isinstance(row, list) or len(row) != len(cols):
-            raise FormatError(f"{path}, block {i}: a row must list {len(cols)} values, got {row!r}")
+            raise FormatError(f"{path}, block {i}: a row must list {len(cols)} values, got {_short(row)}")
     raw = {c: [row[j] for row in blocks] for j, c in enumerate(cols)}
     ints = {c: _integers(label, c, raw[c]) for c in OFFSET_COLUMNS[:-1]}
     for i, v in enumerate(raw["intra"]):
         if not (isinstance(v, bool) or (isinstance(v, int) and v in (0, 1))):
-            raise FormatError(f"{path}, block {i}: intra must be true/false or 0/1, got {v!r}")
+            raise FormatError(f"{path}, block {i}: intra must be true/false or 0/1, got {_short(v)}")
     intra = np.array([bool(v) for v in raw["intra"]], dtype=bool)
     _check_blocks(label, width, height, *(ints[c] for c in OFFSET_COLUMNS[:-1]), intra, gaps_allowed)
     field = OffsetField.from_blocks(

@@ -15,6 +15,7 @@ import threading
 import numpy as np
 
 from synth.errors import FormatError, ParameterError
+from synth.io.limits import MAX_PICTURE_SIDE
 from synth.picture import CHROMA_FORMATS, ClipInfo, Picture, chroma_shape
 
 __all__ = [
@@ -37,15 +38,19 @@ def check_geometry(width: int, height: int, chroma_format: str, bit_depth: int, 
     Raises
     ------
     FormatError
-        Non-positive sizes, unknown chroma format, bit depth outside 8..16, odd width or height for
-        4:2:0, odd width for 4:2:2.
+        Non-positive sizes or sides above `synth.io.limits.MAX_PICTURE_SIDE`, unknown chroma format,
+        bit depth outside 8..16, odd width or height for 4:2:0, odd width for 4:2:2.
     """
     if chroma_format not in CHROMA_FORMATS:
         raise FormatError(f"{source}: chroma format must be one of {', '.join(CHROMA_FORMATS)}, got {chroma_format!r}")
-    if not isinstance(bit_depth, (int, np.integer)) or not 8 <= bit_depth <= 16:
+    if isinstance(bit_depth, bool) or not isinstance(bit_depth, (int, np.integer)) or not 8 <= bit_depth <= 16:
         raise FormatError(f"{source}: bit depth must be an integer 8..16, got {bit_depth!r}")
     if width <= 0 or height <= 0:
         raise FormatError(f"{source}: width and height must be positive, got {width}x{height}")
+    if width > MAX_PICTURE_SIDE or height > MAX_PICTURE_SIDE:
+        raise FormatError(
+            f"{source}: {width}x{height} pictures are beyond the largest side synth reads ({MAX_PICTURE_SIDE} samples)"
+        )
     if chroma_format == "420" and (width % 2 or height % 2):
         raise FormatError(f"{source}: 4:2:0 needs an even width and height, got {width}x{height}")
     if chroma_format == "422" and width % 2:

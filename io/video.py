@@ -22,6 +22,7 @@ import cv2
 
 from synth.errors import FormatError, ParameterError
 from synth.io.colour import MATRICES, check_matrix, rgb_to_ycbcr420
+from synth.io.limits import MAX_PICTURE_SIDE
 from synth.io.planar import ReaderMixin, frame_index
 from synth.picture import ClipInfo, Picture
 
@@ -67,6 +68,16 @@ class VideoReader(ReaderMixin):
         self._pos = 0  # index of the frame the open decoder returns next
         self._count: int | None = None
         self._open()
+        declared = (
+            int(self._cap.get(cv2.CAP_PROP_FRAME_WIDTH) or 0),
+            int(self._cap.get(cv2.CAP_PROP_FRAME_HEIGHT) or 0),
+        )
+        if max(declared) > MAX_PICTURE_SIDE:
+            self.close()
+            raise FormatError(
+                f"{self.path}: {declared[0]}x{declared[1]} video is beyond the largest side synth reads "
+                f"({MAX_PICTURE_SIDE} samples)"
+            )
         first = self._next_bgr()
         if first is None:
             self.close()
@@ -89,7 +100,12 @@ class VideoReader(ReaderMixin):
     def _open(self) -> None:
         if self._cap is not None:
             self._cap.release()
-        cap = cv2.VideoCapture(str(self.path))
+        try:
+            cap = cv2.VideoCapture(str(self.path))
+        except cv2.error as exc:
+            raise FormatError(
+                f"{self.path}: OpenCV cannot open this file as a video ({str(exc).strip()[-80:]})"
+            ) from None
         if not cap.isOpened():
             cap.release()
             raise FormatError(f"{self.path}: OpenCV cannot open this file as a video")
@@ -97,7 +113,10 @@ class VideoReader(ReaderMixin):
         self._pos = 0
 
     def _next_bgr(self):
-        ok, bgr = self._cap.read()
+        try:
+            ok, bgr = self._cap.read()
+        except cv2.error as exc:
+            raise FormatError(f"{self.path}: frame {self._pos} cannot be decoded ({str(exc).strip()[-80:]})") from None
         if not ok:
             return None
         self._pos += 1

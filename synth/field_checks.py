@@ -10,17 +10,22 @@ Rules (each failure raises :class:`synth.errors.FormatError` naming the field an
 - a vector points no further than the picture: the displaced block (x + dx/4, y + dy/4) keeps its
   top-left corner within [-w, width] x [-h, height], i.e. it at most touches the picture from
   outside (samples outside the reference picture repeat its edge, so going further is meaningless);
-- coded and reference times are finite and differ.
+- coded and reference times are finite numbers of magnitude at most 2**31 and differ;
+- the picture's sides are at most `synth.io.limits.MAX_PICTURE_SIDE`, and a field holds no more blocks
+  than non-overlapping 4x4 blocks fit in its picture (checked before any array is built).
 """
 
 from __future__ import annotations
 
+import math
 from collections.abc import Mapping, Sequence
 
 import numpy as np
 
 from synth.errors import FormatError
 from synth.field import VectorField
+from synth.io.limits import MAX_ABS_TIME, MAX_PICTURE_SIDE, max_blocks_for
+from synth.io.limits import short_repr as _short
 
 __all__ = [
     "COLUMNS",
@@ -28,6 +33,8 @@ __all__ = [
     "MAX_BLOCK",
     "MAX_PICTURE_SIDE",
     "check_picture_size",
+    "check_block_count",
+    "coverage_map",
     "field_from_columns",
     "validate_field",
 ]
@@ -36,8 +43,6 @@ __all__ = [
 COLUMNS = ("x", "y", "w", "h", "dx", "dy", "intra")
 MIN_BLOCK = 4
 MAX_BLOCK = 128
-#: Largest picture side accepted (a guard against absurd sizes in damaged files).
-MAX_PICTURE_SIDE = 65536
 
 
 def _describe(label: str, i: int, x, y, w, h) -> str:
@@ -45,27 +50,45 @@ def _describe(label: str, i: int, x, y, w, h) -> str:
 
 
 def check_picture_size(width, height) -> tuple[int, int]:
-    """Picture width and height must be integers in 1..65536."""
+    """Picture width and height must be integers in 1..`MAX_PICTURE_SIDE` (16384)."""
     for name, v in (("width", width), ("height", height)):
         if isinstance(v, (bool, np.bool_)) or not isinstance(v, (int, np.integer)):
-            raise FormatError(f"picture {name} must be an integer, got {v!r}")
+            raise FormatError(f"picture {name} must be an integer, got {_short(v)}")
         if not 1 <= int(v) <= MAX_PICTURE_SIDE:
             raise FormatError(f"picture {name} must be in 1..{MAX_PICTURE_SIDE}, got {v}")
     return int(width), int(height)
 
 
+def check_block_count(n: int, width: int, height: int, *, label: str) -> None:
+    """Refuse more blocks than non-overlapping 4x4 blocks fit in a `width` x `height` picture."""
+    most = max_blocks_for(width, height)
+    if n > most:
+        raise FormatError(
+            f"{label}: {n} blocks cannot fit a {width}x{height} picture (at most {most} blocks of 4x4 or larger)"
+        )
+
+
 def _check_time(label: str, name: str, t) -> float:
     if isinstance(t, (bool, np.bool_)) or not isinstance(t, (int, float, np.integer, np.floating)):
-        raise FormatError(f"{label}: {name} must be a number, got {t!r}")
-    if not np.isfinite(t):
+        raise FormatError(f"{label}: {name} must be a number, got {_short(t)}")
+    if isinstance(t, (int, np.integer)):
+        if not -MAX_ABS_TIME <= t <= MAX_ABS_TIME:
+            raise FormatError(f"{label}: {name} must be a number of magnitude at most 2**31, got {_short(t)}")
+        return float(t)
+    t = float(t)
+    if not math.isfinite(t):
         raise FormatError(f"{label}: {name} must be finite, got {t}")
-    return float(t)
+    if abs(t) > MAX_ABS_TIME:
+        raise FormatError(f"{label}: {name} must be a number of magnitude at most 2**31, got {t}")
+    return t
 
 
 def _integer_column(label: str, name: str, values, xs, ys) -> np.ndarray:
     """Return the column as int64 or raise naming the first bad block."""
     lo, hi = -(2**31), 2**31 - 1
-    a = np.asarray(values)
+    if not isinstance(values, np.ndarray):
+        return _integer_list(label, name, values, xs, ys, lo, hi)
+    a = values
     if a.dtype.kind == "f":
         bad = ~np.isfinite(a) | (np.floor(np.where(np.isfinite(a), a, 0)) != a)
         if bad.any():
@@ -77,32 +100,40 @@ def _integer_column(label: str, name: str, values, xs, ys) -> np.ndarray:
             raise FormatError(f"{where}: {name} must be {kind}, got {a[i]}")
         return a  # integral values stored as floating point: rejected by the caller after all columns
     if a.dtype.kind not in "iu":
-        lst = np.asarray(values, dtype=object).ravel().tolist()
-        for i, v in enumerate(lst):
-            if isinstance(v, (bool, np.bool_)) or not isinstance(v, (int, np.integer)):
-                where = f"{label}, block {i}"
-                if i < len(xs) and isinstance(xs[i], int) and isinstance(ys[i], int):
-                    where += f" (x={xs[i]}, y={ys[i]})"
-                if isinstance(v, (float, np.floating)) and not np.isfinite(v):
-                    raise FormatError(f"{where}: {name} must be a finite integer, got {v}")
-                raise FormatError(f"{where}: {name} must be an integer, got {v!r}")
-            if not lo <= v <= hi:
-                raise FormatError(f"{label}, block {i}: {name} = {v} does not fit a 32-bit integer")
-        return np.array(lst, dtype=np.int64)
+        return _integer_list(label, name, a.ravel().tolist(), xs, ys, lo, hi)
     if a.size and (a.max() > hi or a.min() < lo):
         i = int(np.argmax((a > hi) | (a < lo)))
         raise FormatError(f"{label}, block {i}: {name} = {a[i]} does not fit a 32-bit integer")
     return a.astype(np.int64).ravel()
 
 
-def _intra_column(label: str, values, n: int) -> np.ndarray:
-    a = np.asarray(values)
-    if a.dtype == bool:
-        return a.astype(bool)
-    lst = np.asarray(values, dtype=object).ravel().tolist()
+def _integer_list(label: str, name: str, values, xs, ys, lo: int, hi: int) -> np.ndarray:
+    """A sequence of Python values as int64, refusing anything but integers of 32 bits."""
+    lst = list(values)
     for i, v in enumerate(lst):
-        if not (isinstance(v, (bool, np.bool_)) or (isinstance(v, (int, np.integer)) and v in (0, 1))):
-            raise FormatError(f"{label}, block {i}: intra must be true/false or 0/1, got {v!r}")
+        if isinstance(v, (bool, np.bool_)) or not isinstance(v, (int, np.integer)):
+            where = f"{label}, block {i}"
+            if i < len(xs) and _is_int(xs[i]) and _is_int(ys[i]):
+                where += f" (x={xs[i]}, y={ys[i]})"
+            if isinstance(v, (float, np.floating)) and not math.isfinite(v):
+                raise FormatError(f"{where}: {name} must be a finite integer, got {v}")
+            raise FormatError(f"{where}: {name} must be an integer, got {_short(v)}")
+        if not lo <= v <= hi:
+            raise FormatError(f"{label}, block {i}: {name} = {_short(v)} does not fit a 32-bit integer")
+    return np.array(lst, dtype=np.int64)
+
+
+def _is_int(v) -> bool:
+    return isinstance(v, (int, np.integer)) and not isinstance(v, (bool, np.bool_))
+
+
+def _intra_column(label: str, values, n: int) -> np.ndarray:
+    if isinstance(values, np.ndarray) and values.dtype == bool:
+        return values.astype(bool).reshape(n)
+    lst = values.ravel().tolist() if isinstance(values, np.ndarray) else list(values)
+    for i, v in enumerate(lst):
+        if not (isinstance(v, (bool, np.bool_)) or (_is_int(v) and v in (0, 1))):
+            raise FormatError(f"{label}, block {i}: intra must be true/false or 0/1, got {_short(v)}")
     return np.array([bool(v) for v in lst], dtype=bool).reshape(n)
 
 
@@ -142,18 +173,25 @@ def field_from_columns(
     missing = [c for c in COLUMNS if c not in columns]
     if missing:
         raise FormatError(f"{label}: missing block column(s) {', '.join(missing)}")
+    for c in COLUMNS:
+        col = columns[c]
+        if isinstance(col, np.ndarray) and col.ndim != 1:
+            raise FormatError(f"{label}: column {c} must be one-dimensional, got shape {col.shape}")
+        if not isinstance(col, (np.ndarray, Sequence)) or isinstance(col, (str, bytes)):
+            raise FormatError(f"{label}: column {c} must be a sequence of values, got {type(col).__name__}")
     n = len(columns["x"])
     for c in COLUMNS:
         if len(columns[c]) != n:
             raise FormatError(f"{label}: column {c} has {len(columns[c])} values, column x has {n}")
+    check_block_count(n, width, height, label=label)
     if not isinstance(gaps_allowed, (bool, np.bool_)):
-        raise FormatError(f"{label}: gaps_allowed must be true or false, got {gaps_allowed!r}")
+        raise FormatError(f"{label}: gaps_allowed must be true or false, got {_short(gaps_allowed)}")
     ct = _check_time(label, "coded_time", coded_time)
     rt = _check_time(label, "reference_time", reference_time)
     if ct == rt:
         raise FormatError(f"{label}: coded_time and reference_time must differ, both are {ct}")
-    xs = list(np.asarray(columns["x"], dtype=object).ravel().tolist())
-    ys = list(np.asarray(columns["y"], dtype=object).ravel().tolist())
+    xs = columns["x"].tolist() if isinstance(columns["x"], np.ndarray) else list(columns["x"])
+    ys = columns["y"].tolist() if isinstance(columns["y"], np.ndarray) else list(columns["y"])
     ints = {c: _integer_column(label, c, columns[c], xs, ys) for c in COLUMNS[:-1]}
     for c, a in ints.items():
         if a.dtype.kind == "f":
@@ -223,21 +261,60 @@ def validate_field(field: VectorField, *, label: str = "field") -> None:
         raise FormatError(
             f"{where(i)}: vector (dx={dx[i]}, dy={dy[i]}) quarter samples points further than the {W}x{H} picture"
         )
-    label_map = np.full((H, W), -1, dtype=np.int32)
-    for i, (bx, by, bw, bh) in enumerate(zip(x.tolist(), y.tolist(), w.tolist(), h.tolist())):
-        region = label_map[by : by + bh, bx : bx + bw]
-        taken = region >= 0
-        if taken.any():
-            j = int(region[taken][0])
-            raise FormatError(
-                f"{where(i)}: block overlaps block {j} (x={x[j]}, y={y[j]}, {w[j]}x{h[j]}) coded before it"
-            )
-        region[...] = i
+    owner, cell, clash = coverage_map(x, y, w, h, W, H)
+    if clash is not None:
+        i, j = clash
+        raise FormatError(f"{where(i)}: block overlaps block {j} (x={x[j]}, y={y[j]}, {w[j]}x{h[j]}) coded before it")
     if not field.gaps_allowed:
-        gaps = label_map < 0
-        if gaps.any():
-            r, c = np.argwhere(gaps)[0]
+        hole = first_uncovered(owner, cell)
+        if hole is not None:
+            c, r = hole
             raise FormatError(
                 f"{label}: sample (x={c}, y={r}) is covered by no block; blocks must cover the {W}x{H} "
                 f"picture unless gaps_allowed is true"
             )
+
+
+def coverage_map(x, y, w, h, width: int, height: int) -> tuple[np.ndarray, int, tuple[int, int] | None]:
+    """Which block owns each cell of the picture, on the coarsest grid every block is aligned to.
+
+    The cell side is the greatest common divisor of every block position and size and of the
+    picture size (16 for a field of 16x16-aligned macroblocks), so the map holds
+    ``(height / cell) x (width / cell)`` entries, not one per sample.
+
+    Parameters
+    ----------
+    x, y, w, h : (n,) int64 ndarray
+        Blocks inside the picture (checked by the caller), in listing order.
+    width, height : int
+
+    Returns
+    -------
+    owner : (height // cell, width // cell) int32 ndarray
+        Index of the block owning each cell, -1 for none.
+    cell : int
+    clash : (int, int) or None
+        The first block ``i`` that overlaps an earlier one, and that earlier block ``j``.
+    """
+    cell = math.gcd(int(width), int(height))
+    for a in (x, y, w, h):
+        if a.size:
+            cell = math.gcd(cell, int(np.gcd.reduce(a)))
+    owner = np.full((height // cell, width // cell), -1, dtype=np.int32)
+    for i, (bx, by, bw, bh) in enumerate(zip((x // cell).tolist(), (y // cell).tolist(), (w // cell).tolist(),
+                                             (h // cell).tolist())):  # fmt: skip
+        region = owner[by : by + bh, bx : bx + bw]
+        taken = region >= 0
+        if taken.any():
+            return owner, cell, (i, int(region[taken][0]))
+        region[...] = i
+    return owner, cell, None
+
+
+def first_uncovered(owner: np.ndarray, cell: int) -> tuple[int, int] | None:
+    """(x, y) of the first sample, in raster order, that no block of `coverage_map` covers."""
+    gaps = owner < 0
+    if not gaps.any():
+        return None
+    r, c = np.argwhere(gaps)[0]
+    return int(c) * cell, int(r) * cell

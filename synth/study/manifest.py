@@ -36,6 +36,7 @@ from pathlib import Path
 from typing import Any
 
 from synth.errors import FormatError, ParameterError
+from synth.io.jsonread import read_text_document
 from synth.study.clipsource import raw_geometry_for
 from synth.study.kinds import get_kind
 
@@ -172,17 +173,10 @@ def _clip_entries(i: int, table: Any, root: Path) -> list[tuple[str | None, Path
     if "raw" in table:
         _expect(isinstance(table["raw"], dict), f"{where}.raw", f"expected a table, got {_type_name(table['raw'])}")
         _check_keys(table["raw"], {"width", "height", "chroma", "bit_depth", "rate"}, f"{where}.raw")
-    full = pattern if os.path.isabs(pattern) else str(root / pattern)
-    if glob.has_magic(pattern):
-        paths = sorted(Path(p) for p in glob.glob(full, recursive=True) if os.path.isfile(p))
-        _expect(bool(paths), f"{where}.path", f"glob {pattern!r} matches no file (relative to {root})")
-        _expect(
-            "name" not in table, f"{where}.name", "a glob's clips are named after their files; name only single files"
-        )
-    else:
-        path = Path(full)
-        _expect(path.is_file(), f"{where}.path", f"no such file {pattern!r} (relative to {root})")
-        paths = [path]
+    try:
+        paths = _clip_paths(pattern, root, where, named="name" in table)
+    except OSError as exc:
+        raise ParameterError(f"{where}.path: cannot use {_cut(pattern)!r}: {exc.strerror or exc}") from None
     name = table.get("name")
     if name is not None:
         _expect(
@@ -195,8 +189,29 @@ def _clip_entries(i: int, table: Any, root: Path) -> list[tuple[str | None, Path
             opts["raw"] = raw_geometry_for(p, table.get("raw"), where=f"{where}.raw")
         else:
             _expect("raw" not in table, f"{where}.raw", f"only for raw .yuv files, but {p.name} is not one")
-        out.append((name, p.resolve(), opts))
+        try:
+            out.append((name, p.resolve(), opts))
+        except OSError as exc:
+            raise ParameterError(f"{where}.path: cannot use {_cut(str(p))!r}: {exc.strerror or exc}") from None
     return out
+
+
+def _cut(text: str, most: int = 80) -> str:
+    """`text` for a one-line message: at most `most` characters."""
+    return text if len(text) <= most else text[: most - 3] + "..."
+
+
+def _clip_paths(pattern: str, root: Path, where: str, *, named: bool) -> list[Path]:
+    """The files a clip entry's path or glob names (OSError from the file system passes through)."""
+    full = pattern if os.path.isabs(pattern) else str(root / pattern)
+    if glob.has_magic(pattern):
+        paths = sorted(Path(p) for p in glob.glob(full, recursive=True) if os.path.isfile(p))
+        _expect(bool(paths), f"{where}.path", f"glob {_cut(pattern)!r} matches no file (relative to {root})")
+        _expect(not named, f"{where}.name", "a glob's clips are named after their files; name only single files")
+        return paths
+    path = Path(full)
+    _expect(path.is_file(), f"{where}.path", f"no such file {_cut(pattern)!r} (relative to {root})")
+    return [path]
 
 
 def _grid(task_where: str, grid: Any) -> dict[str, list]:
@@ -336,14 +351,15 @@ def load_manifest(path: str | os.PathLike) -> Manifest:
         or unavailable, or a grid value has the wrong type: one line, ``FILE: key.path: rule``.
     """
     path = Path(path)
-    if not path.is_file():
-        raise FormatError(f"{path}: no such manifest file")
+    text = read_text_document(path, what="manifest file")
     try:
-        data = tomllib.loads(path.read_text(encoding="utf-8"))
+        data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise FormatError(f"{path.name}: not valid TOML: {exc}") from None
-    except UnicodeDecodeError:
-        raise FormatError(f"{path.name}: not a UTF-8 text file") from None
+    except RecursionError:
+        raise FormatError(f"{path.name}: not readable TOML: nested too deeply") from None
+    except ValueError as exc:  # e.g. an integer beyond Python's conversion limit
+        raise FormatError(f"{path.name}: not readable TOML: {_cut(str(exc))}") from None
     try:
         return parse_manifest(data, path=path)
     except ParameterError as exc:
