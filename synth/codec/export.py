@@ -15,7 +15,10 @@ vector QP), ``pictures`` (one entry per written picture, in file order: ``positi
 file, ``time`` (display number in the source), ``past``, ``future``, ``t``, ``layer`` (1 for the
 GOP's middle picture, 2 for the next, ...), ``fields`` (the vector fields used: coded and
 reference time, block count, where they came from, QP)), and ``uncovered`` (source pictures after
-the last complete GOP, which have no future anchor). The layout is described in io/FORMATS.md.
+the last complete GOP, which have no future anchor), ``clip_sha256`` and ``clip_bytes`` (SHA-256
+and size of the picture file as written: a clip and a sidecar of different runs, e.g. after a run
+killed between the two renames, are told apart by `check_export_pair`). The layout is described in
+io/FORMATS.md.
 """
 
 from __future__ import annotations
@@ -25,7 +28,7 @@ from collections.abc import Callable, Iterator
 from dataclasses import dataclass
 from pathlib import Path
 
-from synth.errors import ParameterError
+from synth.errors import FormatError, ParameterError
 from synth.makers import Maker
 from synth.motion.sources import VectorSource
 from synth.picture import Picture
@@ -38,6 +41,8 @@ __all__ = [
     "synthetic_references",
     "write_reference_export",
     "sidecar_path",
+    "clip_digest",
+    "check_export_pair",
     "SIDECAR_SCHEMA_VERSION",
 ]
 
@@ -199,6 +204,54 @@ def synthetic_references(
             progress(i + 1, len(entries), f"picture {e.time}")
 
 
+def clip_digest(path: str | os.PathLike) -> tuple[str, int]:
+    """SHA-256 (hex) and size in bytes of a file, read in 4 MiB blocks."""
+    import hashlib
+
+    digest = hashlib.sha256()
+    size = 0
+    with open(path, "rb") as fh:
+        for block in iter(lambda: fh.read(1 << 22), b""):
+            digest.update(block)
+            size += len(block)
+    return digest.hexdigest(), size
+
+
+def check_export_pair(sidecar: dict, clip: str | os.PathLike, *, sidecar_name: str = "the sidecar") -> None:
+    """Refuse a picture file that is not the one its sidecar describes.
+
+    Parameters
+    ----------
+    sidecar : dict
+        The sidecar document (as read).
+    clip : path-like
+        The picture file beside it.
+    sidecar_name : str
+        How the sidecar is named in the message (its path).
+
+    Raises
+    ------
+    FormatError
+        When the sidecar's ``clip_bytes`` / ``clip_sha256`` differ from the file's (the two come
+        from different runs). Sidecars written before the hash was recorded pass unchecked.
+    """
+    want = sidecar.get("clip_sha256")
+    if want is None:
+        return
+    size = Path(clip).stat().st_size
+    if isinstance(sidecar.get("clip_bytes"), int) and sidecar["clip_bytes"] != size:
+        raise FormatError(
+            f"{clip}: {size} bytes, but {sidecar_name} describes a file of {sidecar['clip_bytes']} bytes: "
+            "the two come from different runs (export again)"
+        )
+    got, _ = clip_digest(clip)
+    if got != want:
+        raise FormatError(
+            f"{clip}: SHA-256 {got[:16]}..., but {sidecar_name} names {str(want)[:16]}...: "
+            "the two come from different runs (export again)"
+        )
+
+
 def sidecar_path(output: str | os.PathLike) -> Path:
     """The sidecar's default name: the output's name with ``.json`` appended."""
     p = Path(output)
@@ -246,7 +299,8 @@ def write_reference_export(
 
     Notes
     -----
-    Both files are written atomically (temporary name, then rename); the picture file first.
+    Both files are written atomically (temporary name, then rename); the picture file first, then
+    the sidecar naming its SHA-256, so a pair of different runs is detected (`check_export_pair`).
     """
     from synth.io import atomic_output, atomic_write_text, write_y4m
     from synth.io.jsonout import dumps_strict
@@ -283,6 +337,7 @@ def write_reference_export(
                 fh.write(pack_picture(pic))
     else:
         write_y4m(output, pictures(), info)
+    digest, size = clip_digest(output)
     doc = {
         "format": "synth-reference-sidecar",
         "schema_version": SIDECAR_SCHEMA_VERSION,
@@ -299,6 +354,8 @@ def write_reference_export(
         "qp": source.qp if source.kind == "estimate" else None,
         "pictures": records,
         "uncovered": uncovered,
+        "clip_sha256": digest,
+        "clip_bytes": size,
     }
     atomic_write_text(sidecar if sidecar is not None else sidecar_path(output), dumps_strict(doc, indent=2) + "\n")
     return doc

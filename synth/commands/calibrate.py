@@ -92,6 +92,9 @@ def run_calibrate(
     output = Path(output)
     if output.suffix.lower() != ".json":
         raise ParameterError(f"--output must end in .json (a parameter file), got {str(output)!r}")
+    from synth.commands.outputs import check_output_file
+
+    check_output_file(output, (".json",), option="--output")  # its folder must exist
     clips = [Path(c) for c in clips]
     if not clips:
         raise ParameterError("give at least one training clip")

@@ -39,7 +39,7 @@ def run_export(
     maker : str
         ``--maker``: registry name of the maker (`synth.makers`).
     vectors : str or path, optional
-        ``--vectors``: ``estimate`` (default) or a field file.
+        ``--vectors``: ``estimate`` (default), ``x264``, ``stream`` or a field file.
     vector_qp : int, optional
         ``--vector-qp``: QP of estimated vectors (default 27).
     params : path, optional
@@ -50,8 +50,9 @@ def run_export(
     Returns
     -------
     dict
-        ``output``, ``sidecar``, ``pictures`` (count), ``width``, ``height``, ``chroma_format``,
-        ``bit_depth``, ``gop_size``, ``maker``, ``vectors`` (the source's record), ``uncovered``.
+        ``format`` ('synth-export-summary'), ``schema_version``, ``output``, ``sidecar``,
+        ``pictures`` (count), ``width``, ``height``, ``chroma_format``, ``bit_depth``,
+        ``gop_size``, ``maker``, ``vectors`` (the source's record), ``uncovered``.
 
     Raises
     ------
@@ -61,14 +62,21 @@ def run_export(
     """
     from synth.codec.export import sidecar_path, write_reference_export
     from synth.commands.compare import load_params
+    from synth.commands.outputs import check_distinct, check_output_file
     from synth.io import open_clip
     from synth.makers import get_maker
     from synth.motion.sources import DEFAULT_VECTOR_QP, parse_vector_source
 
     raw = _check_output_format(output, raw)
+    if sidecar is not None:
+        check_output_file(sidecar, (".json",), option="--sidecar")
+    check_distinct(
+        {"--output": output, "--sidecar": sidecar if sidecar is not None else sidecar_path(output)},
+        {"clip": clip, "--vectors": vectors, "--params": params},
+    )
     the_maker = get_maker(maker, option="--maker")
     qp = _check_vector_qp(DEFAULT_VECTOR_QP if vector_qp is None else vector_qp)
-    source = parse_vector_source(vectors, qp=qp, name="--vectors")
+    source = parse_vector_source(vectors, qp=qp, name="--vectors", clip=clip).with_hierarchy(int(gop_size))
     syn_params = load_params(params)
     side = Path(sidecar) if sidecar is not None else sidecar_path(output)
     reader = open_clip(clip)
@@ -88,6 +96,8 @@ def run_export(
     finally:
         reader.close()
     return {
+        "format": "synth-export-summary",
+        "schema_version": 1,
         "output": str(output),
         "sidecar": str(side),
         "pictures": len(doc["pictures"]),
@@ -116,6 +126,11 @@ def format_export(summary: dict) -> str:
         f"{summary['pictures']} synthetic pictures ({summary['width']}x{summary['height']} {summary['chroma_format']} "
         f"{summary['bit_depth']}-bit) -> {summary['output']}; sidecar {summary['sidecar']}"
     ]
+    record = summary.get("vectors") or {}
+    if record.get("vectors") in ("x264", "stream"):
+        from synth.motion.sources import describe_record
+
+        lines.append(f"vectors: {describe_record(record)}")
     if summary["uncovered"]:
         lines.append(
             f"pictures {summary['uncovered'][0]}..{summary['uncovered'][-1]} lie after the last anchor and are not covered"
@@ -132,9 +147,12 @@ def _check_output_format(output, raw: bool) -> bool:
     ------
     ParameterError
     """
+    from synth.commands.outputs import check_output_file
     from synth.errors import ParameterError
 
     suffix = Path(output).suffix.lower()
+    if suffix in (".y4m", ".yuv"):
+        check_output_file(output, (".y4m", ".yuv"), option="--output")  # the folder must exist
     if suffix == ".y4m" and not raw:
         return False
     if suffix == ".yuv":

@@ -97,7 +97,7 @@ def run_offsets(
     output : path-like
         Offsets file (``.json``), written atomically.
     vectors : str or path-like, optional
-        ``estimate`` (default) or a field file (`synth.motion.sources.parse_vector_source`).
+        ``estimate`` (default), ``x264``, ``stream`` or a field file (`synth.motion.sources.parse_vector_source`).
     maker : str
         A registered maker (`synth.makers`), default ``lmmse``.
     vector_qp : int
@@ -108,7 +108,7 @@ def run_offsets(
         Block size and search range in luma samples (quarter-pel steps).
     metric : {'satd', 'sad'}
     prediction : path-like, optional
-        Also write the corrected prediction (``.y4m``).
+        Also write the corrected prediction (``.y4m``, or raw planar ``.yuv``).
 
     Returns
     -------
@@ -122,7 +122,8 @@ def run_offsets(
         Any bad option, before anything is computed.
     """
     from synth.commands.frame import check_output_suffix, read_pair
-    from synth.io import open_clip, write_y4m
+    from synth.commands.outputs import PICTURE_FORMATS, check_distinct
+    from synth.io import open_clip, write_clip
     from synth.io.jsonout import strict_json
     from synth.makers import get_maker
     from synth.motion.sources import parse_vector_source
@@ -130,10 +131,14 @@ def run_offsets(
 
     output = check_output_suffix(output, (".json",), option="--output")
     if prediction is not None:
-        prediction = check_output_suffix(prediction, (".y4m",), option="--prediction")
+        prediction = check_output_suffix(prediction, PICTURE_FORMATS, option="--prediction")
     check_offset_options(offset_block, offset_window, metric)
+    check_distinct(
+        {"--output": output, "--prediction": prediction},
+        {"clip": clip, "--vectors": vectors, "--params": params},
+    )
     the_maker = get_maker(maker, option="--maker")
-    source = parse_vector_source(vectors, qp=vector_qp)
+    source = parse_vector_source(vectors, qp=vector_qp, clip=clip)
     p = SynthParams.load(params) if params is not None else None
     with open_clip(clip) as reader:
         p_pic, f_pic, target = read_pair(reader, past=past, future=future, at=at)
@@ -148,7 +153,7 @@ def run_offsets(
         time=at, extra=extra,
     )  # fmt: skip
     if prediction is not None:
-        write_y4m(prediction, [search.prediction], info)
+        write_clip(prediction, [search.prediction], info)
     return strict_json({
         "clip": str(clip), "past": past, "future": future, "at": at, "maker": the_maker.name, "vectors": vec,
         **stats, "prediction": None if prediction is None else str(prediction),
@@ -159,6 +164,15 @@ def _db(value) -> str:
     return "inf" if value is None else f"{value:.2f}"
 
 
+def _coded_vectors_line(record) -> list[str]:
+    """The vectors line, for coded vectors (x264 or the clip's stream, with its assumption)."""
+    if not record or record.get("vectors") not in ("x264", "stream"):
+        return []
+    from synth.motion.sources import describe_record
+
+    return [f"vectors         {describe_record(record)}"]
+
+
 def format_offsets(summary: dict) -> str:
     """The text `synth offsets` prints for a `run_offsets` summary."""
     s = summary
@@ -166,6 +180,7 @@ def format_offsets(summary: dict) -> str:
         f"blocks          {s['blocks']} of {s['block']}x{s['block']}, window +-{s['window']}, {s['metric']}, "
         f"lambda {s['lagrangian']:.3f}",
         f"maker           {s['maker']}, picture {s['at']} from pictures {s['past']} and {s['future']}",
+        *_coded_vectors_line(s.get("vectors")),
         f"zero offsets    {100 * s['zero_share']:.1f} %",
         f"offset bits     {s['bits_total']} ({s['bits_per_block']:.2f} per block, {s['bits_per_pixel']:.4f} per pixel)",
     ]

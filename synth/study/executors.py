@@ -20,12 +20,16 @@ from __future__ import annotations
 import concurrent.futures as cf
 import multiprocessing
 import os
+import signal
+import sys
+import threading
+import time
 from collections.abc import Iterator
 
 from synth.errors import ParameterError
 from synth.study.worker import execute_job
 
-__all__ = ["Executor", "LocalExecutor", "DaskExecutor", "make_executor"]
+__all__ = ["Executor", "LocalExecutor", "DaskExecutor", "make_executor", "tune_allocator", "execute_job_tuned"]
 
 
 def _failure(job: dict, run_id: str, exc: BaseException, where: str) -> dict:
@@ -68,14 +72,122 @@ class Executor:
         self.close()
 
 
-def _quiet_worker() -> None:
-    # One job per process: keep OpenCV from starting its own thread pool in every worker.
+#: glibc ``mallopt`` parameters (``<malloc.h>``).
+_M_TRIM_THRESHOLD, _M_MMAP_THRESHOLD = -1, -3
+#: The thresholds a job runs with: glibc's dynamic mmap threshold settles at its ceiling (32 MiB on
+#: 64-bit systems, ``DEFAULT_MMAP_THRESHOLD_MAX``) and the trim threshold at twice that, which is
+#: what a plain process reaches after its first large arrays; fixing them there gives every worker
+#: that steady state from the first job, whatever its environment says.
+MMAP_THRESHOLD_BYTES = 32 << 20
+TRIM_THRESHOLD_BYTES = 64 << 20
+_ALLOCATOR_TUNED = False
+
+
+def tune_allocator() -> bool:
+    """Give this process glibc's steady-state malloc thresholds (once); True when they are set.
+
+    Dask's nanny starts workers with ``MALLOC_TRIM_THRESHOLD_=65536``. Setting any threshold through
+    the environment switches off glibc's dynamic mmap threshold, so every numpy temporary above
+    128 KiB is mapped and unmapped afresh, its pages faulted in and zeroed each time: one
+    ``synthesise`` job took 4.3 s of CPU time (1.1 million page faults) in a nanny's worker against
+    1.5 s (5 to 40 thousand) without the nanny, and 1.5 s (1 to 17 thousand) tuned; whole studies
+    in tests/benchmarks/cluster_speed.py. Fixing the mmap
+    threshold at 32 MiB and the trim threshold at 64 MiB with ``mallopt`` puts the process where a
+    plain one ends up. A no-op (False) without glibc or with ``SYNTH_KEEP_MALLOC=1``.
+    """
+    global _ALLOCATOR_TUNED
+    if _ALLOCATOR_TUNED:
+        return True
+    if os.environ.get("SYNTH_KEEP_MALLOC") == "1" or not sys.platform.startswith("linux"):
+        return False
+    try:
+        import ctypes
+
+        libc = ctypes.CDLL(None)
+        mallopt = libc.mallopt
+    except (OSError, AttributeError):  # not glibc (musl has no mallopt)
+        return False
+    mallopt.argtypes = [ctypes.c_int, ctypes.c_int]
+    mallopt.restype = ctypes.c_int
+    ok = mallopt(_M_MMAP_THRESHOLD, MMAP_THRESHOLD_BYTES) == 1
+    ok = mallopt(_M_TRIM_THRESHOLD, TRIM_THRESHOLD_BYTES) == 1 and ok
+    _ALLOCATOR_TUNED = ok
+    return ok
+
+
+_PR_SET_PDEATHSIG = 1
+#: Seconds between two checks of the coordinator by a local worker's watchdog thread.
+WATCHDOG_SECONDS = 0.5
+
+
+def _ask_kernel_to_kill_me_with_parent() -> None:
+    """Linux: SIGKILL this process when the process that forked it ends (``prctl(PR_SET_PDEATHSIG)``)."""
+    if not sys.platform.startswith("linux"):
+        return
+    try:
+        import ctypes
+
+        libc = ctypes.CDLL(None, use_errno=True)
+        libc.prctl(_PR_SET_PDEATHSIG, int(signal.SIGKILL), 0, 0, 0)
+    except (OSError, AttributeError):
+        pass
+
+
+def _coordinator_gone(coordinator: int, parent: int) -> bool:
+    if os.getppid() != parent:  # reparented: the forking process (pool or fork server) ended
+        return True
+    try:
+        os.kill(coordinator, 0)
+    except ProcessLookupError:
+        return True
+    except PermissionError:
+        return False
+    return False
+
+
+def _watch_coordinator(coordinator: int, parent: int) -> None:
+    while True:
+        if _coordinator_gone(coordinator, parent):
+            os._exit(1)  # the coordinator is gone: nobody will read this job's result
+        time.sleep(WATCHDOG_SECONDS)
+
+
+_WORKER_PREPARED = False
+
+
+def _prepare_worker_process() -> None:
+    """What every worker process gets once, local or on Dask: steady-state malloc thresholds
+    (`tune_allocator`) and one OpenCV thread (one job per process: no OpenCV pool per worker)."""
+    global _WORKER_PREPARED
+    if _WORKER_PREPARED:
+        return
+    _WORKER_PREPARED = True
+    tune_allocator()
     try:
         import cv2
 
         cv2.setNumThreads(1)
     except Exception:  # noqa: BLE001 - only a tuning hint
         pass
+
+
+def _quiet_worker(coordinator: int | None = None) -> None:
+    """Initializer of a local worker process: end with the coordinator (SIGKILL included), then
+    `_prepare_worker_process`."""
+    if coordinator is not None:
+        parent = os.getppid()
+        _ask_kernel_to_kill_me_with_parent()
+        if _coordinator_gone(coordinator, parent):  # died before prctl took effect
+            os._exit(1)
+        threading.Thread(target=_watch_coordinator, args=(coordinator, parent), daemon=True).start()
+    _prepare_worker_process()
+
+
+def execute_job_tuned(job: dict, *, run_id: str = "") -> dict:
+    """`execute_job` in a prepared worker process (`_prepare_worker_process`): what a Dask worker
+    runs, so that it runs jobs as a local worker process does whatever its environment says."""
+    _prepare_worker_process()
+    return execute_job(job, run_id=run_id)
 
 
 class LocalExecutor(Executor):
@@ -108,7 +220,9 @@ class LocalExecutor(Executor):
         if ctx.get_start_method() == "forkserver":
             # Workers fork from a server that has imported synth once, instead of each importing it.
             ctx.set_forkserver_preload(["synth.study.worker", "synth.study.builtin_kinds"])
-        self._pool = cf.ProcessPoolExecutor(max_workers=self.workers, mp_context=ctx, initializer=_quiet_worker)
+        self._pool = cf.ProcessPoolExecutor(
+            max_workers=self.workers, mp_context=ctx, initializer=_quiet_worker, initargs=(os.getpid(),)
+        )
         futures = {self._pool.submit(execute_job, job, run_id=run_id): job for job in jobs}
         try:
             for fut in cf.as_completed(futures):
@@ -126,10 +240,15 @@ class LocalExecutor(Executor):
 
 
 def _worker_environment() -> dict:
-    """What a Dask worker reports about itself (run on every worker by `DaskExecutor`)."""
+    """What a Dask worker reports about itself (run on every worker by `DaskExecutor`); tunes its
+    allocator on the way (`tune_allocator`)."""
     from synth.study.jobs import code_version
 
-    return {"code_version": code_version(), "malloc_trim_threshold": os.environ.get("MALLOC_TRIM_THRESHOLD_")}
+    return {
+        "code_version": code_version(),
+        "malloc_trim_threshold": os.environ.get("MALLOC_TRIM_THRESHOLD_"),
+        "allocator_tuned": tune_allocator(),
+    }
 
 
 class DaskExecutor(Executor):
@@ -152,8 +271,9 @@ class DaskExecutor(Executor):
     -----
     Dask's nanny starts workers with ``MALLOC_TRIM_THRESHOLD_=65536`` by default; that fixes glibc's
     mmap threshold, so every large numpy temporary is mapped and unmapped afresh, and synth's jobs
-    run several times slower (measured 1.4 s -> 5.0 s for one ``synthesise`` job). The executor does
-    not change the workers; it adds a note to `warnings` when it finds the setting.
+    ran several times slower. Every job therefore runs through `execute_job_tuned`, which first gives
+    its worker process glibc's steady-state thresholds (`tune_allocator`), nanny or not; a note goes
+    to `warnings` only when a worker could not be tuned (no glibc, or ``SYNTH_KEEP_MALLOC=1``).
     """
 
     name = "dask"
@@ -203,12 +323,15 @@ class DaskExecutor(Executor):
                     f"cluster: worker {worker} runs synth {env['code_version']}, this study needs {here}; "
                     "install the same synth on every worker"
                 )
-        trimmed = sorted(w for w, env in found.items() if env.get("malloc_trim_threshold"))
+        trimmed = sorted(
+            w for w, env in found.items() if env.get("malloc_trim_threshold") and not env.get("allocator_tuned")
+        )
         if trimmed:
             self.warnings.append(
                 f"{len(trimmed)} of {len(found)} Dask workers run with MALLOC_TRIM_THRESHOLD_="
-                f"{found[trimmed[0]]['malloc_trim_threshold']} (Dask's default), which makes synth's array work "
-                "several times slower; start workers without a nanny (dask worker --no-nanny) or unset it "
+                f"{found[trimmed[0]]['malloc_trim_threshold']} (Dask's default) and synth could not reset the "
+                "malloc thresholds there (no glibc, or SYNTH_KEEP_MALLOC=1), which makes its array work several "
+                "times slower; start workers without a nanny (dask worker --no-nanny) or unset it "
                 "(README, 'Where jobs run')"
             )
 
@@ -219,7 +342,7 @@ class DaskExecutor(Executor):
         from distributed import as_completed
 
         keys = [f"synth-job-{job['id']}-{run_id}" for job in jobs]
-        self._futures = self._client.map(execute_job, jobs, key=keys, pure=False, run_id=run_id)
+        self._futures = self._client.map(execute_job_tuned, jobs, key=keys, pure=False, run_id=run_id)
         by_key = dict(zip(keys, jobs))
         try:
             for fut in as_completed(self._futures, loop=self._client.loop):

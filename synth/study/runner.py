@@ -8,6 +8,8 @@ Study folder layout (``--out DIR``)::
     DIR/cache/clip-hashes.json  clip content hashes, reused while size and mtime are unchanged
     DIR/study.csv, study.json aggregated results (independent of executor and run history)
     DIR/report/index.html     tables and plots (PNG files beside it)
+    DIR/study.lock            while a run is going: its pid and host (`synth.study.lock`); a second
+                              run into the folder is refused, a lock left by a killed run taken over
 
 A run that is killed loses only the jobs in flight: every finished job is already on disk, and the
 next run submits only the jobs without a record (and, by default, the failed ones again).
@@ -37,6 +39,7 @@ from synth.study.jobs import (
     records_dir,
     write_record,
 )
+from synth.study.lock import StudyLock
 from synth.study.manifest import Manifest
 from synth.study.report import write_report
 
@@ -81,6 +84,7 @@ class StudyOutcome:
     tables: StudyTables
     report: Path | None = None
     paths: dict[str, Path] = field(default_factory=dict)
+    notes: list[str] = field(default_factory=list)
 
     @property
     def jobs_per_second(self) -> float:
@@ -176,6 +180,7 @@ def run_study(
     executor: Executor | None = None,
     retry_failed: bool = True,
     progress: Callable[[StudyProgress], None] | None = None,
+    lock_option: str = "--output",
 ) -> StudyOutcome:
     """Run every job of a study that has no record yet, then aggregate and report.
 
@@ -191,10 +196,18 @@ def run_study(
         Run jobs recorded as failed again (default); False keeps their failure records.
     progress : callable, optional
         Called with a `StudyProgress` after each clip hashed and each job finished.
+    lock_option : str
+        How the folder is named in the refusal when another run holds it.
 
     Returns
     -------
     StudyOutcome
+
+    Raises
+    ------
+    ParameterError
+        When another run is using the folder (`synth.study.lock.StudyLock`: the message names its
+        pid and host); a lock left by a killed run is taken over (noted in `StudyOutcome.notes`).
 
     Notes
     -----
@@ -204,6 +217,24 @@ def run_study(
     """
     out_dir = Path(out_dir)
     out_dir.mkdir(parents=True, exist_ok=True)
+    with StudyLock(out_dir, option=lock_option) as lock:
+        outcome = _run_locked(manifest, out_dir, executor=executor, retry_failed=retry_failed, progress=progress)
+    if lock.took_over is not None:
+        outcome.notes.append(
+            f"took over the lock of a run that is gone (pid {lock.took_over.get('pid', '?')} on "
+            f"{lock.took_over.get('host', '?')}); its finished jobs are kept, its jobs in flight run again"
+        )
+    return outcome
+
+
+def _run_locked(
+    manifest: Manifest,
+    out_dir: Path,
+    *,
+    executor: Executor | None,
+    retry_failed: bool,
+    progress: Callable[[StudyProgress], None] | None,
+) -> StudyOutcome:
     executor = executor or LocalExecutor(1)
     jobs = plan_study(manifest, out_dir, progress=progress)
     unique: dict[str, Job] = {}
