@@ -44,7 +44,10 @@ def test_vectors_writes_field_overlay_and_summary(pan_clip, tmp_path):
     inter = ~field.intra
     assert np.median(field.dx[inter]) == 36 and np.median(field.dy[inter]) == 24
     img = cv2.imread(str(png))
-    assert img is not None and img.shape == (192, 256, 3)  # drawn at twice the size
+    # the picture enlarged to at least 480 pixels (x4), with the title band and the legend panel
+    from synth.motion.overlay import overlay_size
+
+    assert img is not None and img.shape == (*overlay_size(96, 128), 3) == (96 * 4 + 60, 128 * 4 + 206, 3)
 
 
 @pytest.mark.parametrize(

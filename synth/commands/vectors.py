@@ -1,5 +1,5 @@
-"""What `synth vectors` does: the field between two pictures of a clip (estimated, or taken from a
-field file), saved (``.json`` / ``.npz``, or ``.csv`` for a spreadsheet) and described."""
+"""What `synth vectors` does: the field between two pictures of a clip (estimated, coded by x264,
+read from the clip's own stream, or taken from a field file), saved (``.json`` / ``.npz``, or ``.csv`` for a spreadsheet) and described."""
 
 from __future__ import annotations
 
@@ -65,7 +65,9 @@ def run_vectors(
         ``.json`` or ``.npz`` field file, or ``.csv`` for a spreadsheet export.
     vectors : str or path-like, optional
         ``estimate`` (default: `synth.motion.estimate_field` with `vector_qp`, `search_range`,
-        `block_sizes`) or a field file holding the field coded at `coded` against `reference`
+        `block_sizes`), ``x264`` (the pictures between the two coded by x264 at `vector_qp` as
+        one hierarchy anchored on them, `synth.motion.sources`), ``stream`` (the vectors coded in
+        `clip` itself) or a field file holding the field coded at `coded` against `reference`
         (re-summarised, and converted to the format of `output`).
     vector_qp, search_range, block_sizes
         Settings of the estimator (`block_sizes` a tuple or ``'64,32,16,8'``).
@@ -85,7 +87,7 @@ def run_vectors(
     FormatError
         Unreadable clip or field file, unknown output suffix.
     """
-    from synth.io import atomic_write_bytes, fields_to_csv, open_clip, read_fields, write_fields
+    from synth.io import atomic_write_bytes, fields_to_csv, open_clip, write_fields
     from synth.io.jsonout import strict_json
     from synth.motion.sources import ESTIMATE, parse_vector_source
     from synth.motion.summary import summarize_field
@@ -96,12 +98,18 @@ def run_vectors(
         raise FormatError(f"--output {output}: the field file must end in .json, .npz or .csv")
     if overlay is not None and Path(overlay).suffix.lower() != ".png":
         raise FormatError(f"--overlay {overlay}: the overlay is written as PNG and must end in .png")
+    from synth.commands.outputs import check_distinct, check_output_file
+
+    check_output_file(output, (".json", ".npz", ".csv"), option="--output")  # its folder must exist
+    if overlay is not None:
+        check_output_file(overlay, (".png",), option="--overlay")
+    check_distinct({"--output": output, "--overlay": overlay}, {"clip": clip, "--vectors": vectors})
     vector_qp = check_vector_qp(vector_qp)
     if isinstance(search_range, bool) or not isinstance(search_range, int) or not 1 <= search_range <= 1024:
         raise ParameterError(f"--range must be an integer in 1..1024 (luma samples), got {search_range!r}")
     if not isinstance(block_sizes, tuple):
         block_sizes = parse_block_sizes(block_sizes)
-    source = parse_vector_source(vectors, qp=vector_qp)
+    source = parse_vector_source(vectors, qp=vector_qp, clip=clip)
     with open_clip(clip) as reader:
         n = len(reader)
         coded = check_picture_number(coded, count=n, name="--coded")
@@ -119,30 +127,17 @@ def run_vectors(
             block_sizes=block_sizes,
         )  # fmt: skip
     else:
-        every = read_fields(source.path, width=cur.width, height=cur.height)
-        match = [f for f in every if (float(f.coded_time), float(f.reference_time)) == (float(coded), float(reference))]
-        if not match:
-            held = ", ".join(f"{f.coded_time:g}->{f.reference_time:g}" for f in every) or "none"
-            raise ParameterError(
-                f"--vectors {source.path}: no field coded at picture {coded} against picture {reference} "
-                f"(the file holds {held})"
-            )
-        field = match[0]
+        field = _field_of_source(source, cur, ref, coded=coded, reference=reference)
     seconds = time.perf_counter() - t0
     if output.suffix.lower() == ".csv":
         fields_to_csv(output, [field])
     else:
         write_fields(output, [field])
     if overlay is not None:
-        import cv2
+        from synth.motion.overlay import overlay_png
 
-        from synth.motion.overlay import draw_field_overlay
-
-        img = draw_field_overlay(cur, field, scale=2 if cur.width < 640 else 1)
-        ok, png = cv2.imencode(".png", img)
-        if not ok:
-            raise FormatError(f"{overlay}: PNG encoding failed")
-        atomic_write_bytes(overlay, png.tobytes())
+        title = f"Vectors of picture {coded} against picture {reference}, {Path(str(clip)).name}"
+        atomic_write_bytes(overlay, overlay_png(cur, field, title=title))
     summary = summarize_field(field, coded=cur, reference=ref)
     estimated = source.kind == ESTIMATE
     return strict_json({
@@ -150,7 +145,8 @@ def run_vectors(
         "coded": coded,
         "reference": reference,
         "vectors": source.label,
-        "vector_qp": vector_qp if estimated else None,
+        "vector_qp": vector_qp if source.qp_matters else None,
+        "reference_assumption": source.reference_assumption,
         "search_range": search_range if estimated else None,
         "block_sizes": list(block_sizes) if estimated else None,
         **summary,
@@ -158,6 +154,34 @@ def run_vectors(
         "output": str(output),
         "overlay": None if overlay is None else str(overlay),
     })  # fmt: skip
+
+
+def _field_of_source(source, cur, ref, *, coded: int, reference: int):
+    """The field coded at `coded` against `reference` from a field file or a coded source.
+
+    Raises
+    ------
+    ParameterError
+        When the source holds no such field (naming what it holds).
+    """
+    if source.kind == "file":
+        from synth.io import read_fields
+
+        every = read_fields(source.path, width=cur.width, height=cur.height)
+        where = "the file holds"
+    else:
+        past, future = (ref, cur) if reference < coded else (cur, ref)
+        every = source.fields_for(
+            past, future, past_time=min(coded, reference), future_time=max(coded, reference)
+        )  # refuses a pair without fields, naming what the source holds
+        where = "between the two it holds"
+    for f in every:
+        if (float(f.coded_time), float(f.reference_time)) == (float(coded), float(reference)):
+            return f
+    held = ", ".join(f"{f.coded_time:g}->{f.reference_time:g}" for f in every) or "none"
+    raise ParameterError(
+        f"--vectors {source.label}: no field coded at picture {coded} against picture {reference} ({where} {held})"
+    )
 
 
 def format_vectors(summary: dict) -> str:
@@ -169,6 +193,10 @@ def format_vectors(summary: dict) -> str:
     db = lambda v: "inf" if v is None else f"{v:.2f}"  # noqa: E731
     if s["vectors"] == "estimate":
         how = f"estimated in {s['seconds']:.2f} s (QP {s['vector_qp']}, range +-{s['search_range']})"
+    elif s["vectors"] == "x264":
+        how = f"coded by x264 at QP {s['vector_qp']} and read back in {s['seconds']:.2f} s"
+    elif s["vectors"] == "stream":
+        how = f"read from the clip's own stream ({s['reference_assumption']})"
     else:
         how = f"read from {s['vectors']}"
     lines = [

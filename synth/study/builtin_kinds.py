@@ -45,7 +45,7 @@ def _at_least(n: int) -> Callable[[Any], str | None]:
 
 
 def _one_of(options) -> Callable[[Any], str | None]:
-    return lambda v: None if v in options else f"must be one of {', '.join(options)}"
+    return lambda v: None if v in options else f"must be one of {', '.join(map(str, options))}"
 
 
 def _with_defaults(kind: str, params: dict) -> dict:
@@ -157,11 +157,37 @@ register_kind(
 # --- synthesis with the product's estimator ------------------------------------------------------
 
 
-def _source_and_params(params: dict, *, qp: int | None):
-    """The job's `VectorSource` (``vectors``, at `qp`) and synthesis parameters (``params`` file)."""
-    from synth.motion.sources import DEFAULT_VECTOR_QP, parse_vector_source
+def _job_vector_source(clip_path, params: dict, *, qp: int | None, gop: int | None = None):
+    """The job's `VectorSource` (``vectors`` at `qp`) for its clip: ``x264`` codes the job's
+    pictures (the clip options applied), as one hierarchy of `gop` when given; ``stream`` reads
+    the clip file itself, so it refuses the clip options that renumber pictures."""
+    from synth.motion.sources import DEFAULT_VECTOR_QP, STREAM, parse_vector_source
 
-    source = parse_vector_source(params.get("vectors"), qp=DEFAULT_VECTOR_QP if qp is None else qp, name="vectors")
+    value = params.get("vectors")
+    if value == STREAM and (params.get("pictures") or params.get("window") or params.get("raw")):
+        raise ParameterError(
+            "vectors: 'stream' reads the clip file as it is; it cannot be combined with raw, pictures or window"
+        )
+    key = tuple(repr(params.get(k)) for k in ("raw", "pictures", "window"))
+    source = parse_vector_source(
+        value,
+        qp=DEFAULT_VECTOR_QP if qp is None else qp,
+        name="vectors",
+        clip=None if clip_path is None else clip_path,
+        open_clip=None if clip_path is None else (lambda: open_job_clip(clip_path, params)),
+        clip_key=key,
+    )
+    return source if gop is None else source.with_hierarchy(gop, option="gap")
+
+
+def _source_and_params(params: dict, *, qp: int | None, clip_path=None, gap: int | None = None):
+    """The job's `VectorSource` (``vectors``, at `qp`, for `clip_path`; x264 coded as one
+    hierarchy of GOP `gap` when that gives every pair its fields) and synthesis parameters
+    (``params`` file)."""
+    from synth.commands.compare import x264_gop_for_gaps
+
+    gop = x264_gop_for_gaps([gap]) if gap is not None else None
+    source = _job_vector_source(clip_path, params, qp=qp, gop=gop)
     syn = None
     if params.get("params"):
         from synth.synthesis.params import SynthParams
@@ -210,7 +236,7 @@ def synthesise_rows(clip_path, params: dict, *, progress=None) -> list[dict]:
         raise ParameterError(
             f"stripe_rows: maker {maker.name!r} does not run in stripes (only {', '.join(_STRIPED_METHODS)}); use 0"
         )
-    source, syn = _source_and_params(params, qp=int(params["vector_qp"]))
+    source, syn = _source_and_params(params, qp=int(params["vector_qp"]), clip_path=clip_path, gap=gap)
 
     def predictor(a, past, future):
         pair, _ = prepare_pair(maker, past, future, past_time=a, future_time=a + gap, source=source, params=syn)
@@ -267,7 +293,7 @@ def rd_rows(clip_path, params: dict, *, progress=None) -> list[dict]:
 
     params = _with_defaults("rd", params)
     vector_qp = params.get("vector_qp")
-    source, syn = _source_and_params(params, qp=vector_qp)
+    source, syn = _source_and_params(params, qp=vector_qp, clip_path=clip_path, gap=int(params["gap"]))
     with open_job_clip(clip_path, params) as clip:
         result = measure_clip(
             clip.read,
@@ -324,6 +350,7 @@ def _adapter(
     metrics: tuple[str, ...] | None,
     group_by: tuple[str, ...],
     summary: str,
+    vector_gop: Callable[[dict], int | None] | None = None,
 ) -> JobKind:
     def available() -> str | None:
         if _library_function(module, name) is None:
@@ -338,6 +365,12 @@ def _adapter(
             raise KindUnavailable(available())
         options = {k: v for k, v in params.items() if k not in ("raw", "pictures", "window")}
         with clip_as_y4m(clip_path, params) as path:
+            if vector_gop is not None and isinstance(options.get("vectors"), str):
+                # the coded sources need the clip (x264 codes it, stream reads it)
+                qp = options.get("vector_qp")
+                first_qp = int(str(qp).split(",")[0]) if qp is not None else None
+                options["vectors"] = _job_vector_source(path, {"vectors": options["vectors"]}, qp=first_qp,
+                                                        gop=vector_gop(options))  # fmt: skip
             rows = _rows_of(fn(path, **options))
         return [{k: v for k, v in r.items() if k != "clip"} for r in rows]  # the study names clips itself
 
@@ -384,6 +417,9 @@ def _maker_names(*, several: bool) -> Callable[[Any], str | None]:
     return check
 
 
+_VECTORS_HELP = "'estimate', 'x264', 'stream' (H.264/MPEG-4/MPEG-2 clips) or a vector-field file (.json/.npz)"
+
+
 def _vector_source(v) -> str | None:
     from synth.motion.sources import parse_vector_source
 
@@ -403,7 +439,7 @@ def _params_file(v) -> str | None:
 def _vector_params(*, qp_default) -> dict[str, Param]:
     """The ``vectors``, ``vector_qp`` and ``params`` parameters of the kinds that synthesise."""
     return {
-        "vectors": Param((str,), "estimate", _vector_source, "'estimate' or a vector-field file (.json/.npz)"),
+        "vectors": Param((str,), "estimate", _vector_source, _VECTORS_HELP),
         "vector_qp": Param((int,), qp_default, _int_range(0, 51), "QP of the estimated vectors"),
         "params": Param((str,), "", _params_file, "synthesis parameter file ('': built-in values)"),
     }
@@ -473,6 +509,12 @@ def _qp_list(v) -> str | None:
     return None
 
 
+def _x264_gop_for_gap(gap) -> int | None:
+    from synth.commands.compare import x264_gop_for_gaps
+
+    return x264_gop_for_gaps([int(gap)])
+
+
 def _positive(v) -> str | None:
     return None if v >= 1 else "must be at least 1"
 
@@ -487,7 +529,7 @@ register_kind(
             "gap": Param((int,), 8, _at_least(2), "distance between the two references"),
             "makers": Param((str,), None, _maker_names(several=True), "comma-separated makers (default: all)"),
             "predictors": Param((str,), None, None, "former name of makers"),
-            "vectors": Param((str,), None, _vector_source, "'estimate' or a vector-field file (.json/.npz)"),
+            "vectors": Param((str,), None, _vector_source, _VECTORS_HELP),
             "vector_qp": Param((int, str), None, _qp_list, "QP(s) of the estimated vectors"),
             "params": Param((str,), None, _params_file, "synthesis parameter file"),
             "frames": Param((int,), None, _positive, "use only the first N pictures"),
@@ -496,6 +538,7 @@ register_kind(
         metrics=_WORKBENCH_METRICS,
         group_by=("method",),
         summary="every maker on every in-between picture (workbench)",
+        vector_gop=lambda o: _x264_gop_for_gap(o.get("gap", 8)),
     )
 )
 register_kind(
@@ -510,7 +553,7 @@ register_kind(
             "decoded_refs": Param((int,), None, _int_range(0, 51), "references after an H.264 encode at this QP"),
             "makers": Param((str,), None, _maker_names(several=True), "comma-separated makers (default: all)"),
             "predictors": Param((str,), None, None, "former name of makers"),
-            "vectors": Param((str,), None, _vector_source, "'estimate' or a vector-field file (.json/.npz)"),
+            "vectors": Param((str,), None, _vector_source, _VECTORS_HELP),
             "vector_qp": Param((int, str), None, _qp_list, "QP(s) of the estimated vectors"),
             "params": Param((str,), None, _params_file, "synthesis parameter file"),
             "frames": Param((int,), None, _positive, "use only the first N pictures"),
@@ -519,5 +562,6 @@ register_kind(
         metrics=_WORKBENCH_METRICS,
         group_by=("method", "layer"),
         summary="hierarchical GOP synthesis per temporal layer (workbench)",
+        vector_gop=lambda o: int(o.get("size", 16)),
     )
 )
