@@ -222,20 +222,20 @@ def test_rd_command_writes_json_csv_and_plots(crop_clip, tmp_path):
     summary = run_rd([crop_clip], gaps="8", qps="24,30,36,42", makers="average,dis-medium", limit=1, report=rep)
     text = format_rd(summary)
     assert "(b) + average reference (synthetic)" in text and "(d) + optical-flow dis-medium reference" in text
-    assert f"report: {rep}" in text
+    assert f"report: {rep}" in text and "target coded as a B picture" in text
     doc = json.loads((rep / "rd.json").read_text())
-    assert doc["format"] == "synth-rd" and doc["schema_version"] == 1
+    assert doc["format"] == "synth-rd" and doc["schema_version"] == 2
     assert doc["settings"]["qps"] == [24, 30, 36, 42] and doc["settings"]["makers"] == ["average", "dis-medium"]
+    assert doc["settings"]["target_picture"] == "B"
     assert "real+average" in doc["clips"][0]["bd"]
+    assert doc["clips"][0]["reference_mismatches"] == 0 and doc["clips"][0]["qp_mismatches"] == 0
     with open(rep / "rd.csv") as fh:
         rows = list(csv.DictReader(fh))
-    # (d): optical-flow interpolation (OpenCV DIS, medium preset) as the third reference
-    assert len(rows) == 4 * 4 and {r["config"] for r in rows} == {
-        "real",
-        "real+average",
-        "average-only",
-        "real+dis-medium",
-    }
+    # (d): optical-flow interpolation (OpenCV DIS, medium preset) as the third reference; a B
+    # target has no "extra only" configuration
+    assert len(rows) == 3 * 4 and {r["config"] for r in rows} == {"real", "real+average", "real+dis-medium"}
+    # --limit 1 takes the middle picture of the pair (0, 8) first, the hierarchy's layer 1
+    assert {(r["target"], r["layer"], r["picture_type"]) for r in rows} == {("4", "1", "B")}
     img = mpimg.imread(rep / "rd_crop.png")
     assert img.shape[0] > 100 and img.shape[1] > 100
 
@@ -255,7 +255,9 @@ def test_rd_over_several_gaps(crop_clip, tmp_path):
     assert [(c["gap"], c["targets"]) for c in summary["clips"]] == [(2, 1), (4, 1)]
     assert set(summary["gaps"]) == {"2", "4"}
     assert calls[-1] == (8, 8)  # 2 gaps x 1 target x 4 QPs, counted over the whole run
-    assert {p.name for p in rep.glob("*.png")} == {"rd_crop_gap2.png", "rd_crop_gap4.png"}
+    assert {p.name for p in rep.glob("rd_*.png")} == {"rd_crop_gap2.png", "rd_crop_gap4.png"}
+    # the reference map of the default target (the middle of the first pair, picture 1) once per clip
+    assert {p.name for p in rep.glob("map_*.png")} == {"map_crop_gap2.png"}
     assert "mean, gap 2" in format_rd(summary)
 
 
@@ -273,8 +275,9 @@ def test_rd_command_line(crop_clip, tmp_path):
 
 
 def test_parameter_errors_of_the_measurement():
-    with pytest.raises(ParameterError, match="--qps must be at least four distinct"):
-        parse_qps("22,27")
+    with pytest.raises(ParameterError, match="--qps must be at least two distinct"):
+        parse_qps("22")
+    assert parse_qps("27,22") == [22, 27]
     with pytest.raises(ParameterError, match="--qps must be comma-separated"):
         parse_qps("22,x")
     with pytest.raises(ParameterError, match="--gaps must be"):

@@ -6,7 +6,8 @@ Files written by :func:`write_rd_report` into a directory:
   configuration), BD-rate / BD-PSNR of each configuration against ``real``, mean PSNR-Y of the
   extra pictures before coding, offset statistics per QP, and the average over clips;
 - ``rd.csv``: one row per clip, target picture, configuration and QP;
-- ``rd_<clip>.png``: PSNR-Y over bits per target picture, one curve per configuration.
+- ``report.html`` and its PNGs (:mod:`synth.codec.rdpage`): RD curves with the BD figures in the
+  legend (``rd_<clip>.png``), bits per temporal layer, per-block reference maps.
 """
 
 from __future__ import annotations
@@ -27,15 +28,16 @@ __all__ = [
     "config_label",
     "format_rd_table",
     "write_rd_report",
-    "plot_rd_curves",
 ]
 
 #: ``schema_version`` of the rd.json this module writes.
-RD_SCHEMA_VERSION = 1
+RD_SCHEMA_VERSION = 2
 
 CSV_COLUMNS = (
     "clip",
     "gap",
+    "layer",
+    "picture_type",
     "past",
     "future",
     "target",
@@ -96,9 +98,9 @@ def format_rd_table(summary: dict) -> str:
     head = ["clip", "configuration", "BD-rate %", "BD-PSNR dB", "extra ref PSNR-Y dB"]
     rows = []
     gaps = summary.get("gaps") or {}
+    several = len(gaps) > 1 or bool(summary.get("hierarchy"))
     for c in summary["clips"]:
-        gap = f" gap {c['gap']}" if len(gaps) > 1 and "gap" in c else ""
-        name = f"{Path(c['clip']).name}{gap} ({c['targets']} targets)"
+        name = f"{Path(c['clip']).name}{_entry_name(c, several)} ({c['targets']} targets)"
         for k in sorted(c["bd"], key=order):
             bd = c["bd"][k]
             rows.append(
@@ -111,11 +113,13 @@ def format_rd_table(summary: dict) -> str:
                 ]
             )
             name = ""
-    means = [(f"mean of {len(summary['clips'])} clip(s)", summary["average"])]
+    flat = [c for c in summary["clips"] if c.get("structure", "gap") == "gap"]
+    means = [(f"mean of {len(flat)} clip(s)", summary["average"])] if flat else []
     if len(gaps) > 1:
         means = [(f"mean, gap {g}", avg) for g, avg in gaps.items()] + [
-            (f"mean of all {len(summary['clips'])}", summary["average"])
+            (f"mean of all {len(flat)}", summary["average"])
         ]
+    means += [(f"mean, GOP {n} (whole GOP)", avg) for n, avg in (summary.get("hierarchy") or {}).items()]
     for name, avg in means:
         for k in sorted(avg, key=order):
             a = avg[k]
@@ -130,8 +134,27 @@ def format_rd_table(summary: dict) -> str:
     out.append(
         f"BD-rate/BD-PSNR against {config_label(ANCHOR)!r} (VCEG-M33 cubic fit); negative BD-rate = fewer bits for the same PSNR-Y."
     )
+    kinds = {c.get("target_picture") for c in summary["clips"]} - {None}
+    if kinds:
+        out.append("target coded as " + " and ".join(f"a {k} picture" for k in sorted(kinds)))
     for c in summary["clips"]:
-        gap = f" gap {c['gap']}" if len(gaps) > 1 and "gap" in c else ""
+        if c.get("structure") == "hierarchy":
+            for layer, figures in sorted(c.get("layers", {}).items(), key=lambda kv: int(kv[0])):
+                parts = []
+                anchor = figures["curves"].get(ANCHOR, [])
+                if anchor:
+                    parts.append("(a) " + "/".join(f"{p['bits']:.0f}" for p in anchor) + " bits")
+                for k in sorted(figures["bd"], key=order):
+                    parts.append(f"{k} {_fmt(figures['bd'][k].get('bd_rate'), '+.2f')} %")
+                out.append(f"{Path(c['clip']).name} GOP {c['gop_size']} layer {layer}: " + ", ".join(parts))
+        bad = c.get("reference_mismatches", 0) + c.get("qp_mismatches", 0)
+        if bad:
+            out.append(
+                f"{Path(c['clip']).name}{_entry_name(c, True)}: {c.get('reference_mismatches', 0)} reference mismatches, "
+                f"{c.get('qp_mismatches', 0)} QP mismatches (expected 0)"
+            )
+    for c in summary["clips"]:
+        gap = _entry_name(c, len(gaps) > 1)
         for o in c.get("offsets", []):
             out.append(
                 f"offsets {Path(c['clip']).name}{gap} QP {o['qp']}: PSNR-Y {o['psnr_before_y']:.2f} -> {o['psnr_after_y']:.2f} dB "
@@ -141,52 +164,24 @@ def format_rd_table(summary: dict) -> str:
     return "\n".join(out)
 
 
+def _entry_name(entry: dict, several: bool) -> str:
+    """`` gap 8`` / `` GOP 8`` after a clip's name when the run measured more than one structure."""
+    if entry.get("structure") == "hierarchy":
+        return f" GOP {entry['gop_size']}"
+    return f" gap {entry['gap']}" if several and entry.get("gap") is not None else ""
+
+
 def _slug(name: str) -> str:
     return re.sub(r"[^A-Za-z0-9_.-]+", "_", Path(name).stem) or "clip"
 
 
-def plot_rd_curves(clip: ClipRD, title: str | None = None) -> bytes:
-    """PNG bytes of the clip's RD curves: PSNR-Y over mean bits per target picture (log axis)."""
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
-    curves = clip.curves()
-    fig, ax = plt.subplots(figsize=(6.4, 4.4), dpi=100)
-    markers = "osD^vx*"
-    for i, (cfg, pts) in enumerate(sorted(curves.items(), key=lambda kv: config_order(kv[0], clip.synthetic))):
-        ax.plot(
-            [p["bits"] for p in pts],
-            [p["psnr_y"] for p in pts],
-            marker=markers[i % len(markers)],
-            label=config_label(cfg, clip.synthetic),
-        )
-        if i == 0:
-            for p in pts:
-                ax.annotate(
-                    f"QP {p['qp']}", (p["bits"], p["psnr_y"]), textcoords="offset points", xytext=(4, -10), fontsize=7
-                )
-    ax.set_xscale("log")
-    ax.set_xlabel("bits per target picture (mean)")
-    ax.set_ylabel("PSNR-Y of the target (dB, mean)")
-    ax.set_title(title or f"{Path(clip.clip).name}, gap {clip.gap}")
-    ax.grid(True, which="both", alpha=0.3)
-    ax.legend(fontsize=8)
-    fig.tight_layout()
-    buf = _stdio.BytesIO()
-    fig.savefig(buf, format="png")
-    plt.close(fig)
-    return buf.getvalue()
-
-
 def write_rd_report(directory: str | os.PathLike, clips: Sequence[ClipRD], summary: dict, settings: dict) -> list[Path]:
-    """Write rd.json, rd.csv and one rd_<clip>.png per clip and gap (atomically); return the paths.
+    """Write rd.json, rd.csv and the report page with its PNGs (atomically); return the paths.
 
-    The PNG of a clip is ``rd_<clip>.png`` when one gap was measured, ``rd_<clip>_gap<G>.png`` when
-    several were.
+    The RD-curve PNG of a clip is ``rd_<clip>.png`` when one gap was measured, ``rd_<clip>_gap<G>.png``
+    when several were (``rd_<clip>_gop<N>.png`` for a hierarchy); see :mod:`synth.codec.rdpage`.
     """
-    from synth.io import atomic_write_bytes, atomic_write_text
+    from synth.io import atomic_write_text
     from synth.io.jsonout import dumps_strict
 
     d = Path(directory)
@@ -203,14 +198,7 @@ def write_rd_report(directory: str | os.PathLike, clips: Sequence[ClipRD], summa
             w.writerow({k: ("" if r.get(k) is None else r.get(k)) for k in CSV_COLUMNS})
     atomic_write_text(d / "rd.csv", buf.getvalue())
     written.append(d / "rd.csv")
-    used = set()
-    several_gaps = len({c.gap for c in clips}) > 1
-    for c in clips:
-        name = _slug(c.clip) + (f"_gap{c.gap}" if several_gaps else "")
-        while name in used:
-            name += "_"
-        used.add(name)
-        p = d / f"rd_{name}.png"
-        atomic_write_bytes(p, plot_rd_curves(c))
-        written.append(p)
+    from synth.codec.rdpage import write_rd_page
+
+    written += write_rd_page(d, clips, summary, settings)
     return written

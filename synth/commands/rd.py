@@ -10,7 +10,7 @@ import os
 from collections.abc import Callable, Sequence
 from pathlib import Path
 
-__all__ = ["DEFAULT_RD_MAKERS", "run_rd", "measure_rd_file", "format_rd"]
+__all__ = ["DEFAULT_RD_MAKERS", "run_rd", "rd_warnings", "measure_rd_file", "format_rd"]
 
 #: ``--makers`` of `synth rd`: the product's picture (b, c) and optical-flow interpolation (d).
 DEFAULT_RD_MAKERS = "lmmse,dis-medium"
@@ -32,8 +32,14 @@ def _settings(
     offset_block,
     offset_window,
     limit,
+    target_picture,
+    gop_size,
+    at,
 ) -> dict:
     return {
+        "target_picture": target_picture,
+        "gop_size": gop_size,
+        "map_at": at,
         "gaps": gaps,
         "qps": qps,
         "codec": codec,
@@ -60,6 +66,17 @@ def _check_int(value, option: str, lo: int, hi: int | None = None):
     return value
 
 
+def rd_warnings(*, qps="22,27,32,37") -> list[str]:
+    """One-line warnings about the options, printed before the run (none for values `run_rd` refuses)."""
+    from synth.codec.rdmeasure import parse_qps, qps_warning
+    from synth.errors import ParameterError
+
+    try:
+        return [w for w in [qps_warning(parse_qps(qps))] if w]
+    except ParameterError:
+        return []
+
+
 def run_rd(
     clips: Sequence[str | os.PathLike],
     *,
@@ -77,10 +94,13 @@ def run_rd(
     offset_block: int = 16,
     offset_window: int = 2,
     limit: int | None = None,
+    target_picture: str = "B",
+    gop_size: int | None = None,
+    at: int | None = None,
     report: str | os.PathLike | None = None,
     progress: Callable[[int, int, str], None] | None = None,
 ) -> dict:
-    """Measure what an extra reference saves x264 / x265 on every clip and gap.
+    """Measure what an extra reference saves x264 / x265 on every clip and gap (and hierarchy).
 
     Parameters
     ----------
@@ -89,7 +109,8 @@ def run_rd(
     gaps : str or sequence of int
         ``--gaps``: reference distances, e.g. ``"8"`` or ``"4,8"``.
     qps : str or sequence of int
-        ``--qps``: four or more encoder QPs.
+        ``--qps``: two or more encoder QPs (BD figures need four; fewer give null BD figures and
+        a warning in ``warnings``).
     codec : {'h264', 'hevc'}
     makers : str or sequence of str
         ``--makers``: one extra-reference configuration per maker; the first is the synthetic one
@@ -101,9 +122,18 @@ def run_rd(
     offsets, offset_block, offset_window
         ``--offsets``: also run the offset search (block size and search range in luma samples).
     limit : int, optional
-        ``--limit``: only the first N target pictures per clip and gap.
+        ``--limit``: only N target pictures per clip and gap (or hierarchy), middle layer first.
+    target_picture : {'B', 'P'}
+        ``--target-picture``: the target as a B picture between its references (default) or as a
+        P picture with forward references only.
+    gop_size : int, optional
+        ``--gop-size``: also measure the B pictures of dyadic GOPs of this size, each between its
+        own hierarchy references (per-layer and whole-GOP figures).
+    at : int, optional
+        ``--at``: the target whose per-block reference choice the report page maps (default: the
+        middle picture of the first reference pair).
     report : path, optional
-        ``--report``: folder for rd.json, rd.csv and RD-curve PNGs.
+        ``--report``: folder for report.html, rd.json, rd.csv and the page's PNGs.
     progress : callable, optional
         ``progress(done, total, label)`` over every clip.
 
@@ -111,31 +141,61 @@ def run_rd(
     -------
     dict
         ``settings``, the summary of `synth.codec.rdmeasure.summarise_clips` (``clips``,
-        ``synthetic``, ``average``, ``gaps``) and ``report`` (the paths written, or None).
+        ``synthetic``, ``average``, ``gaps``, ``hierarchy``), ``warnings`` (one-line texts) and
+        ``report`` (the paths written, or None).
 
     Notes
     -----
     BD-rate after G. Bjontegaard, VCEG-M33 (2001); encoders x264 / x265 through PyAV.
     """
-    from synth.codec.rdmeasure import parse_gaps, parse_qps, rd_targets, summarise_clips
+    from synth.codec.rdmeasure import (
+        TARGET_PICTURES,
+        hierarchy_targets,
+        parse_gaps,
+        parse_qps,
+        qps_warning,
+        rd_targets,
+        summarise_clips,
+    )
     from synth.codec.rdreport import write_rd_report
     from synth.commands.compare import load_params
+    from synth.errors import ParameterError
     from synth.io import open_clip
     from synth.makers import resolve_makers
     from synth.motion.sources import parse_vector_source
 
     gap_list = parse_gaps(gaps)
+    if report is not None:
+        from synth.commands.outputs import check_output_dir
+
+        check_output_dir(report, option="--report")  # before the run: a missing parent is an error
     qp_list = parse_qps(qps)
     maker_list = resolve_makers(makers if makers is not None else DEFAULT_RD_MAKERS, option="--makers")
     vector_qp = _check_int(vector_qp, "--vector-qp", 0, 51)
     extra_qp = _check_int(extra_qp, "--extra-qp", 0, 51)
     limit = _check_int(limit, "--limit", 1)
+    at = _check_int(at, "--at", 0)
+    if target_picture not in TARGET_PICTURES:
+        raise ParameterError(f"--target-picture must be B or P, got {target_picture!r}")
+    if gop_size is not None:
+        from synth.hierarchy import check_gop_size
+
+        try:
+            gop_size = check_gop_size(gop_size)
+        except ParameterError:
+            raise ParameterError(f"--gop-size must be a power of two from 2 to 64, got {gop_size!r}") from None
+    if target_picture == "B" and codec == "h264":
+        from synth.codec.bpicture import x264_qp_plan
+
+        for q in qp_list:
+            x264_qp_plan(q, extra_qp, ("extra",))
+    warnings = [w for w in [qps_warning(qp_list)] if w]
     source = parse_vector_source(vectors, qp=27 if vector_qp is None else vector_qp, name="--vectors")
     syn_params = load_params(params)
     settings = _settings(
         gaps=gap_list, qps=qp_list, codec=codec, makers=maker_list, source=source, vector_qp=vector_qp, params=params,
         refs=refs, extra_qp=extra_qp, preset=preset, offsets=offsets, offset_block=offset_block,
-        offset_window=offset_window, limit=limit,
+        offset_window=offset_window, limit=limit, target_picture=target_picture, gop_size=gop_size, at=at,
     )  # fmt: skip
     # the work ahead, so progress counts over every clip and gap
     plan = []
@@ -144,11 +204,16 @@ def run_rd(
             n = len(reader)
         for g in gap_list:
             count = len(rd_targets(n, g))
-            plan.append((path, g, min(count, limit) if limit else count))
-    total = sum(c for _, _, c in plan) * len(qp_list)
+            plan.append((path, g, None, min(count, limit) if limit else count))
+        if gop_size is not None:
+            count = len(hierarchy_targets(n, gop_size))
+            plan.append((path, None, gop_size, min(count, limit) if limit else count))
+    total = sum(c for *_, c in plan) * len(qp_list)
+    map_at = at if at is not None else gap_list[0] // 2
     results = []
     base = 0
-    for path, g, count in plan:
+    mapped = set()
+    for path, g, size, count in plan:
 
         def step(done, _total, label, _base=base):
             if progress is not None:
@@ -157,11 +222,14 @@ def run_rd(
         results.append(
             measure_rd_file(
                 path,
-                gap=g,
+                gap=g if g is not None else gap_list[0],
+                gop_size=size,
+                target_picture=target_picture,
+                map_target=None if path in mapped else map_at,
                 qps=qp_list,
                 codec=codec,
                 makers=maker_list,
-                source=source,
+                source=source.with_clip(path),
                 params=syn_params,
                 vector_qp=vector_qp,
                 refs=refs,
@@ -176,7 +244,10 @@ def run_rd(
             )  # fmt: skip
         )
         base += count * len(qp_list)
+        if results[-1].maps:
+            mapped.add(path)
     summary = summarise_clips(results)
+    summary["warnings"] = warnings
     written = write_rd_report(report, results, summary, settings) if report is not None else None
     return {"settings": settings, **summary, "report": None if written is None else [str(p) for p in written]}
 
@@ -198,6 +269,9 @@ def measure_rd_file(
     offset_block: int = 16,
     offset_window: int = 2,
     limit: int | None = None,
+    target_picture: str = "B",
+    gop_size: int | None = None,
+    map_target: int | None = None,
     name: str | None = None,
     progress=None,
 ):
@@ -228,6 +302,9 @@ def measure_rd_file(
             preset=preset,
             offsets={"block": int(offset_block), "window": int(offset_window)} if offsets else None,
             limit=limit,
+            target_picture=target_picture,
+            gop_size=gop_size,
+            map_target=map_target,
             progress=progress,
         )
     finally:
