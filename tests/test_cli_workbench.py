@@ -39,7 +39,7 @@ def test_compare_writes_report_and_table(small_y4m, tmp_path):
     assert proc.returncode == 0, proc.stderr
     assert "PSNR-YUV" in proc.stdout and "dis-fast" in proc.stdout and "report:" in proc.stdout
     doc = json.loads((tmp_path / "rep" / "results.json").read_text())
-    assert doc["schema_version"] == 1
+    assert doc["schema_version"] == 2
     assert doc["runs"][0]["settings"]["gaps"] == [4, 2] and doc["runs"][0]["settings"]["pictures_used"] == 5
     assert (tmp_path / "rep" / "report.html").stat().st_size > 10_000
 
@@ -103,7 +103,10 @@ def test_gop_export_writes_a_clip(small_y4m, tmp_path):
         (["compare", "{clip}", "--gaps", "2,x"], "--gaps must be comma-separated integers, got '2,x'"),
         (["compare", "{clip}", "--makers", "optical"], "--makers must be one of lmmse, projection"),
         (["compare", "{clip}", "--vector-qp", "22,99"], "--vector-qp values must be in 0..51, got 99"),
-        (["compare", "{clip}", "--vectors", "v.txt"], "--vectors must be 'estimate' or a vector-field file"),
+        (
+            ["compare", "{clip}", "--vectors", "v.txt"],
+            "--vectors must be 'estimate', 'x264', 'stream' or a vector-field file",
+        ),
         (["compare", "{clip}", "--pictures", "5:2"], "--pictures must have 0 <= FIRST <= LAST, got '5:2'"),
         (["compare", "missing.y4m"], "missing.y4m: no such file"),
         (["gop", "{clip}", "--gop-size", "4", "--export", "out.mp4"], "--export must name a .y4m file"),

@@ -12,29 +12,39 @@ __all__ = ["DEFAULT_DEMO_REPORT", "run_demo_command", "format_demo"]
 DEFAULT_DEMO_REPORT = Path("synth-demo")
 
 
-def run_demo_command(report: str | os.PathLike | None = None, *, progress=None) -> dict:
+def run_demo_command(report: str | os.PathLike | None = None, *, baseline: str | None = None, progress=None) -> dict:
     """Run ``synth demo`` and return its JSON-ready summary.
 
     Parameters
     ----------
     report : path, optional
         ``--report`` folder; default `DEFAULT_DEMO_REPORT`.
+    baseline : str, optional
+        ``--baseline``: a maker name; default dis-medium.
     progress : callable, optional
         ``progress(done, total, label)`` over all pictures of all runs.
 
     Returns
     -------
     dict
-        ``command``, ``clips``, ``overview`` (`synth.evaluation.workbench.overview`),
-        ``vector_qp_runs`` (per run with several vector QPs: ``clip``, ``gaps``, ``run``, the run
-        document without per-picture records) and ``report`` (paths by name); strict JSON.
+        ``format`` ('synth-demo-summary'), ``schema_version``, ``command``, ``clips``,
+        ``baseline``, ``overview`` (`synth.evaluation.workbench.overview`, with ``differences``
+        per column and ``clip_differences`` per clip as in results.json), ``vector_qp_runs`` (per
+        run with several vector QPs: ``clip``, ``gaps``, ``run``, the run document without
+        per-picture records) and ``report`` (paths by name); strict JSON.
     """
+    from synth.commands.compare import SUMMARY_SCHEMA_VERSION, check_baseline
     from synth.demo.run import demo_plan, run_demo
-    from synth.evaluation.workbench import overview, run_document
+    from synth.evaluation.report import results_document
+    from synth.evaluation.workbench import run_document
     from synth.io.jsonout import strict_json
 
-    out = Path(report) if report is not None else DEFAULT_DEMO_REPORT
-    results, paths = run_demo(demo_plan(), out=out, progress=progress)
+    check_baseline(baseline, None)
+    from synth.commands.outputs import check_output_dir
+
+    out = check_output_dir(report if report is not None else DEFAULT_DEMO_REPORT, option="--report")
+    results, paths = run_demo(demo_plan(), out=out, progress=progress, baseline=baseline)
+    doc = results_document(results, baseline=baseline, inspect=False)
     clips = sorted({r.clip for r in results}, key=[r.clip for r in results].index)
     sweeps = [
         {"clip": r.clip, "gaps": r.settings.get("gaps"), "run": run_document(r, i, pictures=False)}
@@ -42,13 +52,22 @@ def run_demo_command(report: str | os.PathLike | None = None, *, progress=None) 
         if len(r.settings.get("vector_qps") or []) > 1
     ]
     return strict_json(
-        {"command": "demo", "clips": clips, "overview": overview(results), "vector_qp_runs": sweeps, "report": paths}
+        {
+            "format": "synth-demo-summary",
+            "schema_version": SUMMARY_SCHEMA_VERSION,
+            "command": "demo",
+            "clips": clips,
+            "baseline": doc["baseline"],
+            "overview": doc["overview"],
+            "vector_qp_runs": sweeps,
+            "report": paths,
+        }
     )
 
 
 def format_demo(summary: dict) -> str:
     """The text of ``synth demo``: the overview, the vector-QP tables and the report's paths."""
-    from synth.evaluation.tables import format_overview, vector_qp_table
+    from synth.evaluation.tables import format_differences, format_overview, vector_qp_table
 
     clips = summary["clips"]
     lines = [
@@ -57,6 +76,16 @@ def format_demo(summary: dict) -> str:
         "between references N apart; wins = pictures on which the method is best.",
         format_overview(summary["overview"]),
     ]
+    ov = summary["overview"]
+    if ov.get("differences"):
+        lines += [
+            "",
+            f"Difference to {summary['baseline']} (paired per picture; mean and 95% Student-t interval; wins/losses"
+            " = pictures above/below it):",
+            format_differences(ov["differences"], "pictures", "column"),
+            "",
+            format_differences(ov["clip_differences"], "clip", "clip"),
+        ]
     for sweep in summary["vector_qp_runs"]:
         table = vector_qp_table(sweep["run"])
         if table:

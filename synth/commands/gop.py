@@ -26,6 +26,7 @@ def run_gop_command(
     report=None,
     export=None,
     export_maker: str | None = None,
+    baseline: str | None = None,
     progress=None,
 ) -> dict:
     """Run ``synth gop`` and return its JSON-ready summary.
@@ -46,11 +47,14 @@ def run_gop_command(
     export_maker : str, optional
         ``--export-maker``: whose pictures; the default is picked by the library
         (`synth.evaluation.gop.export_maker_label`).
+    baseline : str, optional
+        ``--baseline`` (as in `synth.commands.compare.run_compare`).
 
     Returns
     -------
     dict
-        ``command``, ``clip``, ``run`` (run document without per-picture records), ``export``
+        ``format`` ('synth-gop-summary'), ``schema_version``, ``command``, ``clip``, ``run`` (run
+        document without per-picture records, with ``baseline`` and ``differences``), ``export``
         (``output``, ``sidecar``, ``maker``, ``pictures``, or None) and ``report``; strict JSON.
 
     Raises
@@ -59,9 +63,14 @@ def run_gop_command(
         For a bad option value (the message names the option).
     """
     from synth.codec.export import sidecar_path
-    from synth.commands.compare import run_inputs, write_run_report
+    from synth.commands.compare import (
+        SUMMARY_SCHEMA_VERSION,
+        check_baseline,
+        run_inputs,
+        summary_run_document,
+        write_run_report,
+    )
     from synth.evaluation.gop import DEFAULT_GOP_SIZE, run_gop, write_gop_export
-    from synth.evaluation.workbench import run_document
     from synth.hierarchy import check_gop_size
     from synth.io.jsonout import strict_json
 
@@ -74,10 +83,17 @@ def run_gop_command(
         raise ParameterError(f"--export must name a .y4m file, got {str(export)!r}")
     if export is None and export_maker is not None:
         raise ParameterError("--export-maker needs --export")
+    from synth.commands.outputs import check_output_dir, check_output_file
+
+    if export is not None:
+        check_output_file(export, (".y4m",), option="--export")  # its folder must exist
+    if report is not None:
+        check_output_dir(report, option="--report")
     if decoded_refs is not None and not (isinstance(decoded_refs, int) and 0 <= decoded_refs <= 51):
         raise ParameterError(f"--decoded-refs QP must be an integer 0..51, got {decoded_refs!r}")
     reader, inputs = run_inputs(clip, vectors=vectors, vector_qp=vector_qp, two_way=two_way, params=params,
-                                pictures=pictures)  # fmt: skip
+                                pictures=pictures, gop=size)  # fmt: skip
+    check_baseline(baseline, makers)
     result = run_gop(
         reader,
         size=size,
@@ -89,6 +105,7 @@ def run_gop_command(
         export_maker=export_maker,
         frame_rate=reader.info.frame_rate,
         progress=progress,
+        baseline=baseline,
     )
     exported = None
     if export is not None:
@@ -107,9 +124,11 @@ def run_gop_command(
     paths = write_run_report(result, report, "gop")
     return strict_json(
         {
+            "format": "synth-gop-summary",
+            "schema_version": SUMMARY_SCHEMA_VERSION,
             "command": "gop",
             "clip": str(clip),
-            "run": run_document(result, pictures=False),
+            "run": summary_run_document(result),
             "export": exported,
             "report": paths,
         }

@@ -36,10 +36,12 @@ def plan_rows(manifest, output: str | os.PathLike) -> dict:
         'failed' or 'to do'), ``kind``, ``clip``, ``params`` without the raw-clip options),
         ``total`` (distinct jobs), ``done``, ``failed``, ``to_do``.
     """
+    from synth.commands.outputs import check_output_dir
     from synth.study import plan_study
     from synth.study.runner import load_records
 
     spec = _manifest(manifest)
+    output = check_output_dir(output, option="--output")
     jobs = plan_study(spec, output)
     ids = {j.id for j in jobs}
     records = load_records(output, ids)
@@ -56,6 +58,8 @@ def plan_rows(manifest, output: str | os.PathLike) -> dict:
         for j in jobs
     ]
     return {
+        "format": "synth-study-plan",
+        "schema_version": 1,
         "plan": True,
         "jobs": rows,
         "total": len(ids),
@@ -100,6 +104,7 @@ def run_study_command(
     cluster: str | None = None,
     keep_failed: bool = False,
     progress: Callable[[str], Callable[[int, int, str], None]] | None = None,
+    baseline: str | None = None,
 ) -> dict:
     """Run every job of a study that is not done yet, then aggregate and report.
 
@@ -118,6 +123,9 @@ def run_study_command(
         A factory ``progress(description) -> callback(done, total, label)`` (e.g.
         `synth.commands.progress.Progress`): one callback per phase (hashing, jobs, report), each
         closed (``close()``, when it has one) as the next phase starts.
+    baseline : str, optional
+        ``--baseline``: the maker the report's differences are taken to (default dis-medium when
+        run); the report is written again with it after the run.
 
     Returns
     -------
@@ -125,11 +133,19 @@ def run_study_command(
         ``plan`` (False), ``total``, ``ran``, ``skipped``, ``failed`` (counts), ``seconds``,
         ``executor``, ``jobs_per_second``, ``notes`` (executor notes), ``tables`` (per job kind:
         ``columns``, ``fixed`` parameters, ``rows`` = the means over clips), ``failures`` (``job``,
-        ``kind``, ``clip``, ``setting``, ``error``) and ``paths`` (csv, json, report).
+        ``kind``, ``clip``, ``setting``, ``error``), ``differences`` (per kind that compares
+        methods: `synth.study.report.study_differences` rows), ``baseline``, ``paths`` (csv, json,
+        report); ``format`` 'synth-study-summary' and ``schema_version``.
     """
+    from synth.commands.outputs import check_output_dir
     from synth.study import get_kind, make_executor, run_study
 
     spec = _manifest(manifest)  # validation errors before anything runs
+    output = check_output_dir(output, option="--output")
+    if baseline is not None:
+        from synth.makers import get_maker
+
+        get_maker(baseline, option="--baseline")
     executor = make_executor(workers=workers, cluster=cluster)
     phases = _Phases(progress, executor.describe())
     try:
@@ -138,6 +154,11 @@ def run_study_command(
     finally:
         phases.close()
     tables = outcome.tables
+    from synth.study.report import rewrite_report, study_differences
+
+    if baseline is not None:
+        rewrite_report(tables, output, baseline=baseline)
+    diffs = study_differences(tables, baseline=baseline)
     per_kind = {}
     for kind in dict.fromkeys(m["kind"] for m in tables.means):
         group = list(get_kind(kind).group_by)
@@ -148,6 +169,8 @@ def run_study_command(
             "rows": [m for m in tables.means if m["kind"] == kind],
         }
     return {
+        "format": "synth-study-summary",
+        "schema_version": 1,
         "plan": False,
         "total": len({j.id for j in outcome.jobs}),
         "ran": outcome.ran,
@@ -156,9 +179,11 @@ def run_study_command(
         "seconds": outcome.seconds,
         "executor": outcome.executor,
         "jobs_per_second": outcome.jobs_per_second,
-        "notes": list(executor.warnings),
+        "notes": list(executor.warnings) + list(outcome.notes),
         "tables": per_kind,
         "failures": list(tables.failures),
+        "baseline": diffs["baseline"],
+        "differences": diffs["kinds"],
         "paths": {k: str(v) for k, v in outcome.paths.items()},
     }
 

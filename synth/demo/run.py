@@ -62,7 +62,9 @@ def demo_clip_dir() -> Path | None:
 
 def demo_plan(directory: Path | None = None) -> list[DemoStep]:
     """The demo's runs: per clip a GOP run (size `DEMO_GOP_SIZE`) and a comparison at `DEMO_GAPS`;
-    on the first clip a comparison at the widest gap with vectors at `DEMO_VECTOR_QPS`.
+    on the first clip a comparison at the widest gap with vectors at `DEMO_VECTOR_QPS`. Only the
+    comparisons keep pictures to inspect (the GOP runs and the sweep make the same pictures again),
+    which keeps the report folder small.
 
     Steps read the clip files of `directory` (default `demo_clip_dir()`); with no folder found
     their path is None and the clips are rendered in memory.
@@ -71,7 +73,9 @@ def demo_plan(directory: Path | None = None) -> list[DemoStep]:
     d = found if found is not None else Path("<rendered>")
     steps = []
     for name in DEMO_CLIPS:
-        steps.append(DemoStep("gop", name, d / name, {"size": DEMO_GOP_SIZE, "limit": DEMO_PICTURES}))
+        steps.append(
+            DemoStep("gop", name, d / name, {"size": DEMO_GOP_SIZE, "limit": DEMO_PICTURES, "highlights": False})
+        )
     for name in DEMO_CLIPS:
         steps.append(DemoStep("compare", name, d / name, {"gaps": list(DEMO_GAPS), "limit": DEMO_PICTURES}))
     steps.append(
@@ -79,7 +83,12 @@ def demo_plan(directory: Path | None = None) -> list[DemoStep]:
             "compare",
             DEMO_CLIPS[0],
             d / DEMO_CLIPS[0],
-            {"gaps": [max(DEMO_GAPS)], "limit": DEMO_PICTURES, "vector_qps": list(DEMO_VECTOR_QPS)},
+            {
+                "gaps": [max(DEMO_GAPS)],
+                "limit": DEMO_PICTURES,
+                "vector_qps": list(DEMO_VECTOR_QPS),
+                "highlights": False,
+            },
         )
     )
     if found is None:
@@ -95,6 +104,7 @@ def run_demo(
     progress: Callable[[int, int, str], None] | None = None,
     makers=None,
     vectors=None,
+    baseline: str | None = None,
 ) -> tuple[list[RunResult], dict[str, Path]]:
     """Run every step of `plan` and write one report into `out`.
 
@@ -107,6 +117,8 @@ def run_demo(
         ``progress(done, total, label)`` over all pictures of all steps.
     makers, vectors
         Passed to the runs (defaults: every registered maker, vectors from the built-in estimator).
+    baseline : str, optional
+        ``--baseline``: the method the report compares every other one with (default dis-medium).
 
     Returns
     -------
@@ -135,7 +147,7 @@ def run_demo(
             if progress is not None:
                 progress(base + done, grand, f"{step.kind} {step.clip}: {label}")
 
-        opts = dict(step.options)
+        opts = dict(step.options, baseline=baseline)
         if step.kind == "gop":
             r = run_gop(
                 readers[step.clip], clip_name=step.clip, makers=makers, vectors=vectors, progress=step_progress, **opts
@@ -148,5 +160,7 @@ def run_demo(
             raise FormatError(f"unknown demo step kind {step.kind!r}")
         results.append(r)
         offset += count
-    paths = write_report(results, out, title="synth demo: interpolated reference frames on the demo clips")
+    paths = write_report(
+        results, out, title="synth demo: interpolated reference frames on the demo clips", baseline=baseline
+    )
     return results, paths

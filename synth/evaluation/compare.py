@@ -5,6 +5,7 @@ from __future__ import annotations
 from collections.abc import Sequence
 
 from synth.errors import ParameterError
+from synth.evaluation.differences import resolve_baseline
 from synth.evaluation.workbench import FrameSource, Job, RunResult, parse_vector_qps, run_jobs
 
 __all__ = ["DEFAULT_GAPS", "compare_jobs", "compare_clip", "compare"]
@@ -64,6 +65,8 @@ def compare_clip(
     limit: int | None = None,
     clip_name: str = "clip",
     progress=None,
+    baseline: str | None = None,
+    highlights: bool = True,
 ) -> RunResult:
     """Compare makers on a clip: every picture between references `gap` apart, every maker.
 
@@ -89,6 +92,12 @@ def compare_clip(
         Name shown in tables and reports.
     progress : callable, optional
         ``progress(done, total, label)``.
+    baseline : str, optional
+        ``--baseline``: the method every other one is compared with (default
+        `synth.evaluation.differences.resolve_baseline`: dis-medium when it ran); recorded in
+        the settings.
+    highlights : bool
+        Keep every method's worst and median picture for the report (default).
 
     Returns
     -------
@@ -99,7 +108,15 @@ def compare_clip(
     qps = parse_vector_qps(vector_qps)
     jobs = compare_jobs(len(source), list(gaps), first=source.first)
     methods, records, pairs, highlights = run_jobs(
-        jobs, source, makers=makers, vectors=vectors, vector_qps=qps, params=params, progress=progress
+        jobs,
+        source,
+        makers=makers,
+        vectors=vectors,
+        vector_qps=qps,
+        params=params,
+        progress=progress,
+        baseline=baseline,
+        keep_highlights=highlights,
     )
     settings = {
         "gaps": [int(g) for g in gaps],
@@ -107,6 +124,7 @@ def compare_clip(
         "first_picture": source.first,
         "predictors": sorted({r["predictor"] for r in records}, key=[r["predictor"] for r in records].index),
         "vector_qps": qps,
+        "baseline": resolve_baseline(methods, baseline),
     }
     if vectors is not None and hasattr(vectors, "describe"):
         settings["vectors"] = vectors.describe()
@@ -158,4 +176,5 @@ def compare(
         limit=frames,
         clip_name=Path(path).name,
         progress=progress,
+        highlights=False,  # a study keeps the rows only
     )

@@ -12,6 +12,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 from synth.errors import ParameterError
+from synth.evaluation.differences import resolve_baseline
 from synth.evaluation.workbench import (
     FrameSource,
     Job,
@@ -133,6 +134,8 @@ def run_gop(
     export_maker: str | None = None,
     frame_rate=None,
     progress=None,
+    baseline: str | None = None,
+    highlights: bool = True,
 ) -> GopRun:
     """Synthesise every non-anchor picture of a hierarchical GOP and measure it per temporal layer.
 
@@ -154,6 +157,8 @@ def run_gop(
         That method (see `export_maker_label`, which picks the default); implies `export`.
     frame_rate : Fraction, optional
         Passed to the encoder for decoded references.
+    baseline, highlights
+        As in `synth.evaluation.compare.compare_clip`.
 
     Returns
     -------
@@ -192,6 +197,8 @@ def run_gop(
         params=params,
         progress=progress,
         on_prediction=keep if method is not None else None,
+        baseline=baseline,
+        keep_highlights=highlights,
     )
     settings = {
         "gop_size": int(size),
@@ -203,6 +210,7 @@ def run_gop(
         "predictors": [m.name for m in chosen],
         "vector_qps": qps,
         "export_maker": method,
+        "baseline": resolve_baseline(methods, baseline),
     }
     if vectors is not None and hasattr(vectors, "describe"):
         settings["vectors"] = vectors.describe()
@@ -248,6 +256,7 @@ def gop(
         clip_name=Path(path).name,
         frame_rate=reader.info.frame_rate,
         progress=progress,
+        highlights=False,  # a study keeps the rows only
     )
 
 

@@ -2,12 +2,13 @@
 
 A run is a list of `Job`s (a target picture, its two references and the target time). For every
 reference pair the vectors are fetched once per vector QP from a `synth.motion.sources.VectorSource`
-(``--vectors``: the built-in estimator or a field file) and shared by all vector makers; every
+(``--vectors``: the built-in estimator, x264, the clip's stream or a field file) and shared by all vector makers; every
 maker (`synth.makers`) is prepared once per reference pair (``maker.prepare``: optical flows and
 the like are computed once per pair, not per picture) and makes every target with
 ``pair.at(t)``; each picture is measured against the true one (`synth.metrics.picture_metrics`).
 The result is a `RunResult`: one record per picture and method, per-pair vector timing, and the
-best and worst pictures (with predictions and maps) for reports.
+worst and the median picture of every method by its difference to the baseline (with
+predictions and maps) for reports.
 """
 
 from __future__ import annotations
@@ -22,7 +23,7 @@ import numpy as np
 
 from synth.errors import ParameterError
 from synth.field import VectorField
-from synth.makers import DEFAULT_MAKER, Maker, Prediction, get_maker, resolve_makers
+from synth.makers import Maker, Prediction, get_maker, resolve_makers
 from synth.metrics import finite_or_none, picture_metrics
 from synth.motion.sources import DEFAULT_VECTOR_QP, VectorSource, parse_vector_source
 from synth.picture import Picture
@@ -72,9 +73,11 @@ class Job:
 
 @dataclass
 class Highlight:
-    """A picture kept for the report (the best or the worst one for the key maker)."""
+    """A picture kept for the report: the worst or the median one of a method (`key_method`) by
+    its PSNR-YUV difference to the baseline (`key_value`, dB); `predictions` holds the method's
+    and the baseline's pictures."""
 
-    label: str  # 'best' or 'worst'
+    label: str  # 'worst' or 'median'
     job: Job
     key_method: str
     key_value: float
@@ -83,6 +86,7 @@ class Highlight:
     future: Picture
     predictions: dict[str, Prediction]
     fields: list[VectorField]
+    baseline: str | None = None
 
 
 @dataclass
@@ -105,7 +109,8 @@ class RunResult:
         seconds (the picture's time plus its share of the pair's preparation).
     pairs : list of dict
         One per reference pair and vector QP: past, future, vector_qp, vector_seconds, blocks,
-        fields (coded_time, reference_time and blocks of each field).
+        intra_share, mean_vector_length, fields (coded_time, reference_time and blocks of each
+        field).
     highlights : list of Highlight
     group_key : str
         Tag the summary groups by ('gap' or 'layer').
@@ -146,6 +151,23 @@ class RunResult:
             out.append(row)
         return out
 
+    def vector_statistics(self) -> list[dict]:
+        """Per vector QP (when several ran): mean over reference pairs of the fields' intra share
+        and mean vector length (`_field_statistics`)."""
+        qps = self.settings.get("vector_qps") or []
+        if len(qps) < 2:
+            return []
+        out = []
+        for qp in qps:
+            rows = [p for p in self.pairs if p["vector_qp"] == qp]
+            out.append({
+                "vector_qp": qp,
+                "pairs": len(rows),
+                "intra_share": _mean(p.get("intra_share") for p in rows),
+                "mean_vector_length": _mean(p.get("mean_vector_length") for p in rows),
+            })  # fmt: skip
+        return out
+
 
 def run_document(run: RunResult, run_id: int = 0, *, pictures: bool = True) -> dict:
     """One run as a JSON-ready dict (not yet passed through `strict_json`): ``id``, ``kind``,
@@ -160,6 +182,7 @@ def run_document(run: RunResult, run_id: int = 0, *, pictures: bool = True) -> d
         "group_key": run.group_key,
         "summary": run.summary(),
         "vector_qp_table": run.vector_qp_table(),
+        "vector_statistics": run.vector_statistics(),
         "pairs": run.pairs,
     }
     if pictures:
@@ -276,6 +299,23 @@ def method_label(maker: Maker, qp: int | None, several_qps: bool) -> str:
     return maker.name
 
 
+def _field_statistics(fields) -> dict:
+    """Area share of intra blocks and mean vector length (luma samples, area-weighted over inter
+    blocks) of a pair's fields, as `synth.motion.summary.summarize_field` defines them."""
+    area = intra = length = 0.0
+    for f in fields:
+        a = f.w.astype(np.float64) * f.h.astype(np.float64)
+        area += a.sum()
+        intra += a[f.intra].sum()
+        v = np.hypot(f.dx.astype(np.float64), f.dy.astype(np.float64)) / 4.0
+        length += (v * a)[~f.intra].sum()
+    inter = area - intra
+    return {
+        "intra_share": float(intra / area) if area else None,
+        "mean_vector_length": float(length / inter) if inter else None,
+    }
+
+
 def _mean(values: Iterable) -> float | None:
     vals = [float(v) for v in values if v is not None and math.isfinite(float(v))]
     return float(np.mean(vals, dtype=np.float64)) if vals else None
@@ -293,6 +333,7 @@ def run_jobs(
     progress: ProgressCallback | None = None,
     keep_highlights: bool = True,
     on_prediction: Callable[[Job, str, Prediction], None] | None = None,
+    baseline: str | None = None,
 ) -> tuple[list[str], list[dict], list[dict], list[Highlight]]:
     """Make and measure every job with every maker.
 
@@ -316,9 +357,14 @@ def run_jobs(
     progress : callable, optional
         Called as ``progress(done, total, label)`` after each job.
     keep_highlights : bool
-        Keep the best and worst picture (by the key maker) with its predictions.
+        Keep the worst and the median picture of every method by its difference to the baseline
+        (`synth.evaluation.differences.pick_pictures`) with its and the baseline's predictions;
+        the worst are kept while running, the medians are made again after the run.
     on_prediction : callable, optional
         Called as ``on_prediction(job, method, prediction)`` for every picture (e.g. export).
+    baseline : str, optional
+        The method the highlights are chosen against (``--baseline``; default
+        `synth.evaluation.differences.resolve_baseline`).
 
     Returns
     -------
@@ -335,18 +381,18 @@ def run_jobs(
         vectors = parse_vector_source(vectors)
     qps = list(vector_qps) if vector_qps else [int(getattr(vectors, "qp", DEFAULT_VECTOR_QP))]
     several = len(qps) > 1
-    if several and getattr(vectors, "kind", "estimate") != "estimate":
-        raise ParameterError(
-            "--vector-qp takes one value with a field file as --vectors (the file's vectors are fixed)"
-        )
+    if several and not getattr(vectors, "qp_matters", True):
+        raise ParameterError(f"--vector-qp takes one value with --vectors {vectors.label} (its vectors are fixed)")
     sources = {qp: vectors.with_qp(qp) for qp in qps}
     any_vectors = any(m.needs_vectors for m in makers)
     methods: list[str] = []
     for m in makers:
         for qp in qps if m.needs_vectors else [None]:
             methods.append(method_label(m, qp, several))
-    key_maker = next((m for m in makers if m.name == DEFAULT_MAKER), makers[0])
-    key_method = method_label(key_maker, qps[0] if key_maker.needs_vectors else None, several)
+    if keep_highlights:
+        from synth.evaluation.differences import resolve_baseline
+
+        base_method = resolve_baseline(methods, baseline)
 
     for j in jobs:
         for idx in (j.target, j.past, j.future):
@@ -358,9 +404,9 @@ def run_jobs(
     records: list[dict] = []
     pairs: list[dict] = []
     field_cache: dict[tuple[int, int, int], list[VectorField]] = {}
+    kept_fields: dict[tuple[int, int, int], list[VectorField]] = {}  # for the medians made again
     prepared: dict[tuple[int, int, str], object] = {}
-    best: Highlight | None = None
-    worst: Highlight | None = None
+    worst: dict[str, Highlight] = {}
     total = len(jobs)
     for done, job in enumerate(jobs, start=1):
         past = references[job.past]
@@ -376,6 +422,8 @@ def run_jobs(
                     start = time.perf_counter()
                     fl = sources[qp].fields_for(past, future, past_time=float(job.past), future_time=float(job.future))
                     field_cache[key] = list(fl)
+                    if keep_highlights:
+                        kept_fields[key] = field_cache[key]
                     pairs.append(
                         {
                             "past": job.past,
@@ -383,6 +431,7 @@ def run_jobs(
                             "vector_qp": qp,
                             "vector_seconds": time.perf_counter() - start,
                             "blocks": int(sum(len(f) for f in fl)),
+                            **_field_statistics(fl),
                             "fields": [
                                 {"coded_time": f.coded_time, "reference_time": f.reference_time, "blocks": len(f)}
                                 for f in fl
@@ -426,13 +475,17 @@ def run_jobs(
                 rec["seconds"] = float(pred.seconds) + pair.prepare_seconds / per_pair[(job.past, job.future)]
                 records.append(rec)
         if keep_highlights:
-            value = next(r["psnr_yuv"] for r in records[-len(predictions) :] if r["method"] == key_method)
-            value = float("inf") if value is None else value
+            now = {r["method"]: r["psnr_yuv"] for r in records[-len(predictions) :]}
             fields0 = fields_by_qp.get(qps[0], [])
-            if worst is None or value < worst.key_value:
-                worst = Highlight("worst", job, key_method, value, truth, past, future, predictions, fields0)
-            if best is None or value > best.key_value:
-                best = Highlight("best", job, key_method, value, truth, past, future, predictions, fields0)
+            for label, value in now.items():
+                if label == base_method or value is None or now.get(base_method) is None:
+                    continue
+                diff = value - now[base_method]
+                if label not in worst or diff < worst[label].key_value:
+                    kept = {label: predictions[label], base_method: predictions[base_method]}
+                    worst[label] = Highlight(
+                        "worst", job, label, diff, truth, past, future, kept, fields0, baseline=base_method
+                    )
         if progress is not None:
             progress(done, total, f"picture {job.target}")
         # Caches: keep only the pairs later jobs still need.
@@ -441,8 +494,60 @@ def run_jobs(
             del field_cache[key]
         for key in [k for k in prepared if (k[0], k[1]) not in remaining]:
             del prepared[key]
-    highlights = [h for h in (worst, best) if h is not None]
+    highlights = []
+    if keep_highlights:
+        highlights = _highlights(
+            jobs, records, methods, worst, base_method, targets=targets, references=references, makers=makers,
+            vectors=_KeptFields(kept_fields), qps=qps, params=params,
+        )  # fmt: skip
     return methods, records, pairs, highlights
+
+
+class _KeptFields:
+    """A vector source serving the fields a run already fetched (the medians made again after the
+    run reuse them: no second estimation, the same vectors)."""
+
+    kind = "kept"
+
+    def __init__(self, fields: dict[tuple[int, int, int], list[VectorField]], qp: int | None = None):
+        self.fields, self.qp = fields, qp
+
+    def with_qp(self, qp: int) -> _KeptFields:
+        return _KeptFields(self.fields, qp)
+
+    def fields_for(self, past, future, *, past_time: float, future_time: float) -> list[VectorField]:
+        return self.fields[(int(past_time), int(future_time), self.qp)]
+
+
+def _highlights(jobs, records, methods, worst, baseline, *, targets, references, makers, vectors, qps, params):
+    """The worst (kept while running) and the median picture of every method by its difference
+    to the baseline; medians are made again, from the same inputs (same pictures, bit for bit)."""
+    from synth.evaluation.differences import pick_pictures
+
+    group_key = "layer" if any("layer" in r for r in records) else "gap"
+    by_job = {(j.target, j.past, j.future, j.t): j for j in jobs}
+    out = []
+    for pick in pick_pictures(records, methods, baseline=baseline, group_key=group_key):
+        job = by_job[(pick["target"], pick["past"], pick["future"], pick["t"])]
+        kept = worst.get(pick["method"])
+        if kept is not None and kept.job == job:
+            out.append(kept if pick["label"] == "worst" else Highlight(**{**kept.__dict__, "label": "median"}))
+            continue
+        wanted = {pick["method"], baseline}
+        made: dict[str, Prediction] = {}
+        chosen = [m for m in makers if any(method_label(m, q, len(qps) > 1) in wanted for q in qps)]
+        run_jobs(
+            [job], targets, references=references, makers=chosen, vectors=vectors, params=params,
+            vector_qps=qps, keep_highlights=False,
+            on_prediction=lambda _j, label, pred, made=made, wanted=wanted: made.update({label: pred}) if label in wanted else None,
+        )  # fmt: skip
+        out.append(
+            Highlight(
+                pick["label"], job, pick["method"], pick["difference"], targets[job.target], references[job.past],
+                references[job.future], made, [], baseline=baseline,
+            )
+        )  # fmt: skip
+    return out
 
 
 def summarise(records: Sequence[dict], methods: Sequence[str], *, group_key: str = "gap") -> list[dict]:
