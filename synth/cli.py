@@ -32,10 +32,7 @@ class _OneLineErrors(TyperGroup):
         except (typer.Exit, typer.Abort, TyperException):
             raise
         except BrokenPipeError:  # output piped into a reader that stopped (e.g. head): end quietly
-            try:
-                sys.stdout = open(os.devnull, "w")
-            except OSError:
-                pass
+            _silence_stdout()
             raise typer.Exit(0) from None
         except SynthError as exc:
             typer.echo(f"synth: error: {exc}", err=True)
@@ -45,9 +42,10 @@ class _OneLineErrors(TyperGroup):
                 raise
             typer.echo(f"synth: error: {exc}", err=True)
             raise typer.Exit(EXIT_INPUT_ERROR) from None
-        except KeyboardInterrupt:
-            typer.echo("synth: interrupted", err=True)
-            raise typer.Exit(130) from None
+        except KeyboardInterrupt as exc:  # SIGINT; SIGTERM/SIGHUP too (synth.io.atomic.TerminatedBySignal)
+            signum = getattr(exc, "signum", 2)
+            typer.echo("synth: interrupted" if signum == 2 else f"synth: {exc}", err=True)
+            raise typer.Exit(128 + signum) from None
         except Exception as exc:  # noqa: BLE001 - last line of defence: never a traceback
             if os.environ.get("SYNTH_DEBUG"):
                 raise
@@ -79,6 +77,7 @@ _MAKERS = typer.Option(None, "--makers", help=HELP["shared.makers"])
 _VECTOR_QPS = typer.Option(None, "--vector-qp", help=HELP["shared.vector_qps"])
 _PICTURES = typer.Option(None, "--pictures", help=HELP["shared.pictures"])
 _REPORT = typer.Option(None, "--report", help=HELP["shared.report"])
+_BASELINE = typer.Option(None, "--baseline", help=HELP["shared.baseline"])
 
 
 @app.callback()
@@ -265,17 +264,23 @@ def rd(
     offset_block: int = typer.Option(16, "--offset-block", help=HELP["rd.offset_block"]),
     offset_window: int = typer.Option(2, "--offset-window", help=HELP["rd.offset_window"]),
     limit: int | None = typer.Option(None, "--limit", help=HELP["rd.limit"]),
+    target_picture: str = typer.Option("B", "--target-picture", help=HELP["rd.target_picture"]),
+    gop_size: int | None = typer.Option(None, "--gop-size", help=HELP["rd.gop_size"]),
+    at: int | None = typer.Option(None, "--at", help=HELP["rd.at"]),
     report: Path | None = typer.Option(None, "--report", help=HELP["rd.report"]),
     as_json: bool = _JSON,
 ) -> None:
     """Bits an extra reference saves a real encoder: BD-rate against the two real references."""
-    from synth.commands.rd import format_rd, run_rd
+    from synth.commands.rd import format_rd, rd_warnings, run_rd
 
+    for line in rd_warnings(qps=qps):
+        typer.echo(line, err=True)
     with Progress("rd") as bar:
         summary = run_rd(
             clips, gaps=gaps, qps=qps, codec=codec, makers=makers, vectors=vectors, vector_qp=vector_qp, params=params,
             refs=refs, extra_qp=extra_qp, preset=preset, offsets=offsets, offset_block=offset_block,
-            offset_window=offset_window, limit=limit, report=report, progress=bar,
+            offset_window=offset_window, limit=limit, target_picture=target_picture, gop_size=gop_size, at=at,
+            report=report, progress=bar,
         )  # fmt: skip
     _emit(summary, as_json, format_rd)
 
@@ -291,6 +296,7 @@ def compare(
     params: Path | None = _PARAMS,
     pictures: str | None = _PICTURES,
     report: Path | None = _REPORT,
+    baseline: str | None = _BASELINE,
     as_json: bool = _JSON,
 ) -> None:
     """Make every picture between references a gap apart with every maker and compare them."""
@@ -299,7 +305,7 @@ def compare(
     with Progress(f"compare {clip.name}") as bar:
         summary = run_compare(
             clip, gaps=gaps, makers=makers, vectors=vectors, vector_qp=vector_qp, two_way=two_way, params=params,
-            pictures=pictures, report=report, progress=bar,
+            pictures=pictures, report=report, baseline=baseline, progress=bar,
         )  # fmt: skip
     _emit(summary, as_json, format_compare)
 
@@ -319,6 +325,7 @@ def gop(
     report: Path | None = _REPORT,
     export: Path | None = typer.Option(None, "--export", help=HELP["gop.export"]),
     export_maker: str | None = typer.Option(None, "--export-maker", help=HELP["gop.export_maker"]),
+    baseline: str | None = _BASELINE,
     as_json: bool = _JSON,
 ) -> None:
     """Synthesise every B picture of a dyadic hierarchical GOP from its references; statistics per layer."""
@@ -328,7 +335,7 @@ def gop(
         summary = run_gop_command(
             clip, gop_size=gop_size, flat=flat, decoded_refs=decoded_refs, makers=makers, vectors=vectors,
             vector_qp=vector_qp, two_way=two_way, params=params, pictures=pictures, report=report, export=export,
-            export_maker=export_maker, progress=bar,
+            export_maker=export_maker, baseline=baseline, progress=bar,
         )  # fmt: skip
     _emit(summary, as_json, format_gop)
 
@@ -336,13 +343,14 @@ def gop(
 @app.command()
 def demo(
     report: Path = typer.Option(Path("synth-demo"), "--report", "-o", help=HELP["demo.report"]),
+    baseline: str | None = _BASELINE,
     as_json: bool = _JSON,
 ) -> None:
     """Run the main job on the bundled demo clips: GOP runs and comparisons, with a report."""
     from synth.commands.demo import format_demo, run_demo_command
 
     with Progress("demo") as bar:
-        summary = run_demo_command(report, progress=bar)
+        summary = run_demo_command(report, baseline=baseline, progress=bar)
     _emit(summary, as_json, format_demo)
 
 
@@ -354,6 +362,7 @@ def study(
     cluster: str | None = typer.Option(None, "--cluster", help=HELP["study.cluster"]),
     keep_failed: bool = typer.Option(False, "--keep-failed", help=HELP["study.keep_failed"]),
     plan: bool = typer.Option(False, "--plan", help=HELP["study.plan"]),
+    baseline: str | None = _BASELINE,
     as_json: bool = _JSON,
 ) -> None:
     """Run a whole study: every job kind on every clip over every parameter setting, resumably."""
@@ -365,8 +374,9 @@ def study(
         summary = plan_rows(manifest, output)
     else:
         summary = run_study_command(
-            manifest, output, workers=workers, cluster=cluster, keep_failed=keep_failed, progress=Progress
-        )
+            manifest, output, workers=workers, cluster=cluster, keep_failed=keep_failed, progress=Progress,
+            baseline=baseline,
+        )  # fmt: skip
         for note in summary["notes"]:
             typer.echo(f"synth: note: {note}", err=True)
         for f in summary["failures"]:
@@ -379,9 +389,36 @@ def study(
         raise typer.Exit(1)  # some jobs failed (their records say why); the others finished
 
 
+def _silence_stdout() -> None:
+    """Point stdout at the null device, so no later write or the flush at exit reports a closed pipe."""
+    try:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+        os.close(devnull)
+    except (OSError, ValueError, AttributeError):
+        pass
+
+
 def main() -> None:
-    """Console-script entry point."""
-    app()
+    """Console-script entry point: SIGTERM/SIGHUP clean up like Ctrl-C (temporary files removed), a
+    closed stdout ends quietly, and stale temporary files removed on the way are noted on stderr."""
+    from synth.io.atomic import install_signal_cleanup, take_stale_notes
+
+    install_signal_cleanup()
+    try:
+        app()
+    finally:
+        for note in take_stale_notes():
+            try:
+                typer.echo(f"synth: note: {note}", err=True)
+            except OSError:
+                pass
+        try:
+            sys.stdout.flush()
+        except BrokenPipeError:
+            _silence_stdout()
+        except (OSError, ValueError):
+            pass
 
 
 if __name__ == "__main__":
