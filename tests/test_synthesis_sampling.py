@@ -91,4 +91,4 @@ def test_sixtap_half_samples_follow_h264_equations():
 
 def test_unknown_filter_is_refused():
     with pytest.raises(ParameterError, match="interpolation"):
-        PlaneSampler(_photo(), interpolation="lanczos")
+        PlaneSampler(_photo(), interpolation="nearest-neighbour")

@@ -1,6 +1,6 @@
 """Sampling the references: observations along candidate trajectories and endpoint patches.
 
-Sub-sample positions are interpolated by one of three named filters:
+Sub-sample positions are interpolated by one of four named filters:
 
 - 'sixtap' (default): the luma reference is first upsampled by two in each direction, the half-sample
   positions computed with the six-tap filter (1, -5, 20, 20, -5, 1) / 32 of ITU-T H.264 clause
@@ -12,6 +12,12 @@ Sub-sample positions are interpolated by one of three named filters:
   digital image processing", IEEE TASSP 29(6), 1981, doi:10.1109/TASSP.1981.1163711, with OpenCV's
   coefficient), on float32 samples.
 - 'bilinear': the 2x2 linear kernel on float32 samples.
+- 'lanczos': the Lanczos windowed sinc with a = 4, an 8x8 kernel (C. E. Duchon, "Lanczos
+  filtering in one and two dimensions", J. Applied Meteorology 18(8), 1979,
+  doi:10.1175/1520-0450(1979)018<1016:LFIOAT>2.0.CO;2; OpenCV's ``INTER_LANCZOS4``), on float32
+  samples. Of the four it keeps the most of the references' detail at fractional positions, which
+  is what an encoder using the picture as a reference values: its own motion search can follow a
+  shift but cannot undo blur (measured in `tests/benchmarks/results/encoder-value.md`).
 
 All use OpenCV's ``remap`` (positions quantised to 1/32 of its grid). Outside the picture the
 nearest edge sample is used (replicated border, as in motion-compensated prediction in ITU-T H.264
@@ -28,7 +34,7 @@ from synth.synthesis.project import LandedVectors
 
 __all__ = ["PlaneSampler", "remap_plane", "endpoint_patches", "INTERPOLATION_FLAGS", "SIXTAP"]
 
-INTERPOLATION_FLAGS = {"bicubic": cv2.INTER_CUBIC, "bilinear": cv2.INTER_LINEAR}
+INTERPOLATION_FLAGS = {"bicubic": cv2.INTER_CUBIC, "bilinear": cv2.INTER_LINEAR, "lanczos": cv2.INTER_LANCZOS4}
 #: Half-sample filter of ITU-T H.264 clause 8.4.2.2.1.
 SIXTAP = np.array([1, -5, 20, 20, -5, 1], np.float32) / 32.0
 
@@ -68,7 +74,7 @@ class PlaneSampler:
     ----------
     plane : ndarray, 2-D
         Integer or float samples.
-    interpolation : {'sixtap', 'bicubic', 'bilinear'}
+    interpolation : {'sixtap', 'bicubic', 'bilinear', 'lanczos'}
     chroma : bool
         With 'sixtap', a chroma plane is interpolated bilinearly (as chroma in ITU-T H.264 clause
         8.4.2.2.2) instead of through the half-sample grid.

@@ -2,6 +2,9 @@
 
 Pipeline (equations in :mod:`synth.synthesis.lmmse`, projection in :mod:`synth.synthesis.project`):
 
+0. with ``motion_cell`` (default 4), re-cut every field into small cells whose vectors vary
+   smoothly between the blocks' (`synth.synthesis.smooth_motion`): zoom, rotation and deformation
+   are not translations, and an encoder values a reference that follows them;
 1. project every block of the fields onto the target time (landing spot, past and future
    displacements); measure each block's endpoint agreement on its footprint (luma);
 2. per group of ``group_size`` x ``group_size`` luma samples, the K landed vectors nearest to the
@@ -18,6 +21,14 @@ Pipeline (equations in :mod:`synth.synthesis.lmmse`, projection in :mod:`synth.s
 Holes and failures: a pixel with no candidate within reach takes the co-located average of the two
 references; a pixel whose candidates all have an endpoint agreement below
 ``disagreement_threshold`` takes its nearest candidate; both get confidence 0.
+
+Maps (`synthesise_with_maps`): besides the candidate count, the confidence ``r^T w`` and the share of
+the past reference, the predicted error of every pixel (:mod:`synth.synthesis.reliability`, "Predicted
+error"): the estimator's posterior variance ``s^2 (1 - r^T R^{-1} r)``, ``s^2`` the local variance of
+the two references around the pixel, the endpoint mismatch
+``sum_k |c_k| (P_k - F_k)^2 / sum_k |c_k|`` of its candidates and the co-located difference of the
+two references, combined with calibrated coefficients into a predicted RMS error in 8-bit code
+values. Computing the maps never changes the picture.
 
 The picture is processed in bands of 64 luma rows aligned to the top of the picture; every pixel's
 result depends only on full-picture inputs and on its own band's computation, so synthesising a
@@ -44,10 +55,13 @@ from synth.synthesis.lmmse import (
     innovation_correlation,
     link_correlation,
     lmmse_weights_structured,
+    posterior_variance,
 )
 from synth.synthesis.params import METHODS, SynthParams
 from synth.synthesis.project import LandedVectors, project_fields, reference_times
+from synth.synthesis.reliability import LOCAL_VARIANCE_WINDOW, predicted_rms_error
 from synth.synthesis.sampling import PlaneSampler, endpoint_patches
+from synth.synthesis.smooth_motion import smooth_fields
 from synth.timebase import check_t
 
 __all__ = ["synthesise", "synthesise_with_maps", "SynthesisResult", "BAND_ROWS", "MAP_NAMES"]
@@ -55,7 +69,7 @@ __all__ = ["synthesise", "synthesise_with_maps", "SynthesisResult", "BAND_ROWS",
 #: Luma rows per processing band (a multiple of every group size and chroma factor).
 BAND_ROWS = 64
 #: Names of the per-pixel maps returned by `synthesise_with_maps`.
-MAP_NAMES = ("candidates", "confidence", "past_weight")
+MAP_NAMES = ("candidates", "confidence", "past_weight", "posterior_variance", "endpoint_mismatch", "predicted_error")
 #: Chunks of vectors the endpoint agreement is computed in (in parallel; results do not depend on it).
 _AGREEMENT_CHUNKS = 4
 
@@ -71,7 +85,10 @@ class SynthesisResult:
     maps : dict of str -> ndarray of float32, luma-sized
         'candidates': number of candidates of the pixel; 'confidence': share of the pixel's variance
         the estimator explains (0 at fallbacks); 'past_weight': share of the estimate taken from the
-        past reference.
+        past reference; 'posterior_variance': the estimator's posterior (error) variance, 8-bit code
+        values squared; 'endpoint_mismatch': weighted mean squared difference of the candidates' past
+        and future samples, 8-bit code values squared; 'predicted_error': the calibrated predicted RMS
+        error, 8-bit code values (:func:`synth.synthesis.reliability.predicted_rms_error`).
     rows : (int, int)
         The luma rows computed.
     landed : LandedVectors
@@ -181,6 +198,15 @@ def _resample_axis(a: np.ndarray, axis: int, cell: int, sample: int) -> np.ndarr
     return out
 
 
+def _local_variance(plane: np.ndarray, *, size: int, unit: float) -> np.ndarray:
+    """Variance of the samples in the ``size`` x ``size`` window around every sample (replicated
+    border), in 8-bit units squared (``unit`` = 1 / 2 ** (bit_depth - 8)); float32."""
+    f = plane.astype(np.float32) * np.float32(unit)
+    m = cv2.boxFilter(f, cv2.CV_32F, (size, size), borderType=cv2.BORDER_REPLICATE)
+    m2 = cv2.boxFilter(f * f, cv2.CV_32F, (size, size), borderType=cv2.BORDER_REPLICATE)
+    return np.maximum(m2 - m * m, np.float32(0))
+
+
 class _Synthesiser:
     """Everything computed once per call (full-picture inputs), and the per-band computation."""
 
@@ -194,9 +220,10 @@ class _Synthesiser:
         group_rows,
         pool,
         learned=None,
+        want_maps: bool = True,
     ):
         self.p = params
-        self.want_maps = True  # per-pixel maps computed with the planes (off for the picture only)
+        self.want_maps = want_maps  # per-pixel maps computed with the planes (off for the picture only)
         self.learned = learned  # synth.synthesis.reliability.LearnedReliability or None
         self.k = k
         self.g = params.group_size
@@ -221,6 +248,16 @@ class _Synthesiser:
         rho = self._agreement(made[0].result(), made[1].result(), pool)
         flat = [m.result() for m in made]
         self.samplers = [(flat[2 * i], flat[2 * i + 1]) for i in range(len(flat) // 2)]
+        # local variance of each luma reference (8-bit units squared), for the posterior variance map
+        self.unit = 1.0 / (1 << (past.bit_depth - 8))
+        self.local_variance = self.temporal_difference = None
+        if want_maps:
+            # full-picture terms of the predicted error, padded to whole groups (as the bands are)
+            pad = ((0, -self.H % self.g), (0, -self.W % self.g))
+            s2 = [_local_variance(pic.y, size=LOCAL_VARIANCE_WINDOW, unit=self.unit) for pic in (past, future)]
+            self.local_variance = np.pad(np.float32(0.5) * (s2[0] + s2[1]), pad, mode="edge")
+            z = (past.y.astype(np.float32) - future.y.astype(np.float32)) * np.float32(self.unit)
+            self.temporal_difference = np.pad(z * z, pad, mode="edge")
         self.idx = query.result()  # (rows, cols, K)
         self._cols = {
             "cx": landed.cx,
@@ -372,16 +409,19 @@ class _Synthesiser:
                 conf[:, hole] = 0
         alpha = coef * share
         beta = coef - alpha
+        model_conf = conf  # the correlation model's r^T R^{-1} r (before any learned mixing)
+        learned_var, lam = None, np.float32(0)
         if self.learned is not None and p.method == "lmmse":
             # learned side weights, mixed with the correlation model's by learned_share
             agreement = np.where(valid, col["srho"] * col["srho"], zero)
-            la, lb, lconf = self.learned.weights(
+            la, lb, lconf, learned_var = self.learned.weights(
                 self.samplers[0], {**col, "agreement": agreement}, safe, valid, share, Xc, Yc, dist
             )
             if hole.any():
                 la[0][:, hole] = near
                 lb[0][:, hole] = np.float32(1) - near
                 lconf[:, hole] = 0
+                learned_var[:, hole] = np.nan  # no learned variance: the prior's below
             lam = np.float32(p.learned_share)
             if lam >= 1:
                 alpha, beta, conf = la, lb, lconf
@@ -402,11 +442,16 @@ class _Synthesiser:
         alpha_cells = cells_to_plane(alpha)
         beta_cells = cells_to_plane(beta)
         planes = []
+        terms = {} if self.want_maps else None  # luma error terms, filled by _combine
         for pi in range(len(self.samplers)):
             fy, fx = (1, 1) if pi == 0 else (self.fy, self.fx)
             A = _resample_axis(_resample_axis(alpha_cells, 1, c, fy), 2, c, fx)
             B = _resample_axis(_resample_axis(beta_cells, 1, c, fy), 2, c, fx)
-            planes.append(self._combine(pi, A, B, act_a, act_b, col, Gr, Gx, gy0 * g // fy, fy, fx))
+            planes.append(
+                self._combine(
+                    pi, A, B, act_a, act_b, col, Gr, Gx, gy0 * g // fy, fy, fx, terms=terms if pi == 0 else None
+                )
+            )
         if not self.want_maps:  # synthesise(): the picture only
             return planes, {}
         total = alpha_cells.sum(axis=0) + beta_cells.sum(axis=0)
@@ -417,12 +462,32 @@ class _Synthesiser:
             "confidence": up(cells_to_plane(conf)),
             "past_weight": up(np.clip(pw, 0, 1).astype(np.float32)),
         }
+        # posterior variance s^2 (1 - r^T R^{-1} r): s^2 the references' local variance at the pixel
+        # (the prior variance of the pixel around its local mean), 1 - r^T R^{-1} r the normalised
+        # error of the correlation model (1 where it gives no weights: fallbacks, holes, the controls)
+        rows = slice(gy0 * g, gy0 * g + Gr * g)
+        s2 = self.local_variance[rows, : Gx * g]
+        if model_conf is None or (self.learned is not None and p.learned_share >= 1):
+            model_conf = np.zeros(conf.shape, np.float32)
+        posterior = posterior_variance(up(cells_to_plane(model_conf)), s2)
+        if learned_var is not None:  # the learned model's own error variance, mixed like the weights
+            lv = up(cells_to_plane(learned_var.astype(np.float32)))
+            lv = np.where(np.isfinite(lv), lv, s2)
+            posterior = lam * lv + (np.float32(1) - lam) * posterior
+        maps["posterior_variance"] = posterior.astype(np.float32)
+        maps["endpoint_mismatch"] = terms["mismatch"]
+        maps["predicted_error"] = predicted_rms_error(
+            posterior, terms["mismatch"], self.temporal_difference[rows, : Gx * g]
+        )
         return planes, maps
 
-    def _combine(self, pi, A, B, act_a, act_b, col, Gr, Gx, row0, fy, fx):
+    def _combine(self, pi, A, B, act_a, act_b, col, Gr, Gx, row0, fy, fx, terms=None):
         """sum_k A_k past(p + d_past_k) + B_k future(p + d_future_k) on plane pi.
 
         A, B: (K, Pr, Pc) coefficients; act_a, act_b: (K, G) whether a group uses the slot.
+        With ``terms`` (a dict, luma only) the endpoint mismatch of the maps is put into it:
+        'mismatch', the mean of (P_k - F_k)^2 weighted by ``|c_k| = |A_k| + |B_k|``, 8-bit units
+        squared. It is computed beside the estimate and never changes it.
         """
         g = self.g
         sp, sf = self.samplers[pi]
@@ -436,6 +501,8 @@ class _Synthesiser:
         sx, sy = np.float32(scale / fx), np.float32(scale / fy)
         est = np.zeros((Pr, Pc), np.float32)
         kappa = np.float32(self.kappa)  # d_future = kappa * d_past for every vector
+        if terms is not None:
+            weight_sum, mismatch = np.zeros((Pr, Pc), np.float32), np.zeros((Pr, Pc), np.float32)
         for k in range(self.k):
             use_a, use_b = act_a[k].any(), act_b[k].any()
             if not (use_a or use_b):
@@ -443,14 +510,37 @@ class _Synthesiser:
             # group displacement repeated over the group's columns (broadcast over its rows below)
             rx_k = np.repeat((col["dpx"][k] * sx).reshape(Gr, Gx), rx, axis=1)[:, None, :]
             ry_k = np.repeat((col["dpy"][k] * sy).reshape(Gr, Gx), rx, axis=1)[:, None, :]
+            obs_a = obs_b = None
             if use_a:
-                obs = sp.sample_xy((base_x + rx_k).reshape(Pr, Pc), (base_y + ry_k).reshape(Pr, Pc))
-                cv2.accumulateProduct(obs, A[k], est)
+                obs_a = sp.sample_xy((base_x + rx_k).reshape(Pr, Pc), (base_y + ry_k).reshape(Pr, Pc))
+                cv2.accumulateProduct(obs_a, A[k], est)
             if use_b:
                 fx_k, fy_k = rx_k * kappa, ry_k * kappa
-                obs = sf.sample_xy((base_x + fx_k).reshape(Pr, Pc), (base_y + fy_k).reshape(Pr, Pc))
-                cv2.accumulateProduct(obs, B[k], est)
+                obs_b = sf.sample_xy((base_x + fx_k).reshape(Pr, Pc), (base_y + fy_k).reshape(Pr, Pc))
+                cv2.accumulateProduct(obs_b, B[k], est)
+            if terms is not None:
+                self._mismatch_term(k, A, B, obs_a, obs_b, base_x, base_y, rx_k, ry_k, weight_sum, mismatch)
+        if terms is not None:
+            # in 8-bit units squared
+            unit2 = np.float32(self.unit * self.unit)
+            terms["mismatch"] = mismatch * unit2 / np.where(weight_sum > 0, weight_sum, np.float32(1))
         return est
+
+    def _mismatch_term(self, k, A, B, obs_a, obs_b, base_x, base_y, rx_k, ry_k, weight_sum, mismatch):
+        """Add candidate k's share of the endpoint mismatch (see `_combine`) to the accumulators."""
+        sp, sf = self.samplers[0]
+        Pr, Pc = A.shape[1:]
+        kappa = np.float32(self.kappa)
+        if obs_a is None:  # the side the estimate does not use still tells whether the two agree
+            obs_a = sp.sample_xy((base_x + rx_k).reshape(Pr, Pc), (base_y + ry_k).reshape(Pr, Pc))
+        if obs_b is None:
+            obs_b = sf.sample_xy((base_x + rx_k * kappa).reshape(Pr, Pc), (base_y + ry_k * kappa).reshape(Pr, Pc))
+        cabs = np.abs(A[k])
+        cabs += np.abs(B[k])
+        weight_sum += cabs
+        d = obs_a - obs_b
+        d *= d
+        cv2.accumulateProduct(d, cabs, mismatch)
 
 
 def _learned_reliability(params: SynthParams, fields, landed: LandedVectors, past: Picture):
@@ -547,10 +637,13 @@ def _synthesise(past, future, fields, *, t, params, rows, past_time, future_time
     dpt, dft = reference_times(fields)
     pt = dpt if past_time is None else past_time
     ft = dft if future_time is None else future_time
+    if params.motion_cell:
+        fields = smooth_fields(fields, cell=params.motion_cell, smoothing=params.motion_smoothing)
     landed = project_fields(fields, past_time=pt, future_time=ft, t=float(t))
     _check_reach(landed, past.width, past.height)
     H, W = past.height, past.width
     fx, fy = (1, 1) if past.chroma_format == "mono" else past.chroma_factors
+    params.check_chroma(past.chroma_format, fx, fy)  # a group must hold whole chroma samples
     if rows is None:
         y0, y1 = 0, H
     else:
@@ -579,8 +672,9 @@ def _synthesise(past, future, fields, *, t, params, rows, past_time, future_time
             cv2.setNumThreads(1)
         with ThreadPoolExecutor(max_workers=workers) if workers > 1 else _InlineExecutor() as pool:
             learned = _learned_reliability(params, fields, landed, past)
-            eng = _Synthesiser(past, future, landed, params, k, (b_first // g, -(-b_last // g)), pool, learned)
-            eng.want_maps = want_maps
+            eng = _Synthesiser(
+                past, future, landed, params, k, (b_first // g, -(-b_last // g)), pool, learned, want_maps=want_maps
+            )
             starts = list(range((y0 // BAND_ROWS) * BAND_ROWS, y1, BAND_ROWS))
             results = pool.map(lambda b0: (b0, eng.band_samples(b0, min(H, b0 + BAND_ROWS))), starts)
             results = list(results)
