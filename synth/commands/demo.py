@@ -47,7 +47,12 @@ def run_demo_command(report: str | os.PathLike | None = None, *, baseline: str |
     doc = results_document(results, baseline=baseline, inspect=False)
     clips = sorted({r.clip for r in results}, key=[r.clip for r in results].index)
     sweeps = [
-        {"clip": r.clip, "gaps": r.settings.get("gaps"), "run": run_document(r, i, pictures=False)}
+        {
+            "clip": r.clip,
+            "gaps": r.settings.get("gaps"),
+            "vectors": (r.settings.get("vectors") or {}).get("vectors", "estimate"),
+            "run": run_document(r, i, pictures=False),
+        }
         for i, r in enumerate(results)
         if len(r.settings.get("vector_qps") or []) > 1
     ]
@@ -90,7 +95,12 @@ def format_demo(summary: dict) -> str:
         table = vector_qp_table(sweep["run"])
         if table:
             gaps = ", ".join(str(g) for g in sweep["gaps"] or [])
-            lines += ["", f"Vector QP on {sweep['clip']} (gap {gaps}): mean PSNR-YUV of the vector makers", table]
+            source = sweep.get("vectors", "estimate")
+            lines += [
+                "",
+                f"Vector QP on {sweep['clip']} (gap {gaps}, {source} vectors): mean PSNR-YUV of the vector makers",
+                table,
+            ]
     p = summary["report"]
     lines += [
         "",

@@ -62,7 +62,8 @@ def demo_clip_dir() -> Path | None:
 
 def demo_plan(directory: Path | None = None) -> list[DemoStep]:
     """The demo's runs: per clip a GOP run (size `DEMO_GOP_SIZE`) and a comparison at `DEMO_GAPS`;
-    on the first clip a comparison at the widest gap with vectors at `DEMO_VECTOR_QPS`. Only the
+    on the first clip a comparison at the widest gap with vectors at `DEMO_VECTOR_QPS`, from the
+    built-in estimator and (when the clip files are there to code) from x264. Only the
     comparisons keep pictures to inspect (the GOP runs and the sweep make the same pictures again),
     which keeps the report folder small.
 
@@ -91,7 +92,24 @@ def demo_plan(directory: Path | None = None) -> list[DemoStep]:
             },
         )
     )
-    if found is None:
+    if found is not None:
+        # the same sweep with x264's coded vectors (the clip coded as a hierarchy at each QP): the
+        # rate constraint of a real encoder next to the estimator's
+        steps.append(
+            DemoStep(
+                "compare",
+                DEMO_CLIPS[0],
+                d / DEMO_CLIPS[0],
+                {
+                    "gaps": [max(DEMO_GAPS)],
+                    "limit": DEMO_PICTURES,
+                    "vector_qps": list(DEMO_VECTOR_QPS),
+                    "highlights": False,
+                    "vectors": "x264",
+                },
+            )
+        )
+    else:
         for step in steps:
             step.path = None
     return steps
@@ -148,13 +166,30 @@ def run_demo(
                 progress(base + done, grand, f"{step.kind} {step.clip}: {label}")
 
         opts = dict(step.options, baseline=baseline)
+        step_vectors = vectors
+        if opts.get("vectors") is not None:  # a step with its own vector source (the x264 sweep)
+            from synth.motion.sources import parse_vector_source
+
+            step_vectors = parse_vector_source(opts.pop("vectors"), clip=step.path)
+        opts.pop("vectors", None)
+        vectors_for_step = step_vectors
         if step.kind == "gop":
             r = run_gop(
-                readers[step.clip], clip_name=step.clip, makers=makers, vectors=vectors, progress=step_progress, **opts
+                readers[step.clip],
+                clip_name=step.clip,
+                makers=makers,
+                vectors=vectors_for_step,
+                progress=step_progress,
+                **opts,
             )
         elif step.kind == "compare":
             r = compare_clip(
-                readers[step.clip], clip_name=step.clip, makers=makers, vectors=vectors, progress=step_progress, **opts
+                readers[step.clip],
+                clip_name=step.clip,
+                makers=makers,
+                vectors=vectors_for_step,
+                progress=step_progress,
+                **opts,
             )
         else:
             raise FormatError(f"unknown demo step kind {step.kind!r}")

@@ -94,7 +94,7 @@ CROP = 64
 PICTURE_QUALITY = 60
 MAP_QUALITY = 50
 CROP_QUALITY = 90
-OVERLAY_QUALITY = 50
+OVERLAY_QUALITY = 40
 
 
 # --------------------------------------------------------------------------------------------
@@ -607,7 +607,7 @@ def _run_section(run: RunResult, rdoc: dict, i: int, images: ImageFolder, conten
             )
         )  # fmt: skip
     out.append(details("Levels: mean PSNR, SSIM, MAE and time per " + group_title, "".join(levels)))
-    if run.records and diffs:
+    if run.records and diffs and not rdoc["vector_qp_table"]:  # a QP sweep repeats the comparison's pictures
         out.append(
             details(
                 f"Difference to {html.escape(base)} of every picture",
@@ -621,7 +621,13 @@ def _run_section(run: RunResult, rdoc: dict, i: int, images: ImageFolder, conten
         )  # fmt: skip
     if rdoc["vector_qp_table"]:
         qps = list(s["vector_qps"])
-        out.append("<h3>Vector QP: how the rate constraint on coded vectors degrades each vector maker</h3>")
+        source = (
+            (s.get("vectors") or {}).get("vectors", "estimate") if isinstance(s.get("vectors"), dict) else "estimate"
+        )
+        out.append(
+            f"<h3>Vector QP ({html.escape(str(source))} vectors): how the rate constraint on coded vectors "
+            "degrades each vector maker</h3>"
+        )
         out.append(_qp_table(i, rdoc["vector_qp_table"], qps))
         out.append(
             images.figure(
