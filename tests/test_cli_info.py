@@ -46,7 +46,8 @@ def test_info_on_raw_with_geometry_options(tmp_path):
     assert res.exit_code == 0, res.output
     data = json.loads(res.stdout)
     assert (data["frames"], data["chroma_format"], data["bit_depth"], data["frame_rate"]) == (3, "422", 10, "50/1")
-    assert data["format"] == "raw planar YUV"
+    assert data["clip_format"] == "raw planar YUV"
+    assert (data["format"], data["schema_version"]) == ("synth-info-summary", 2)
 
 
 def test_info_on_real_footage_with_matrix(real_clip):

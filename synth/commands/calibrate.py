@@ -111,6 +111,8 @@ def run_calibrate(
     atomic_write_text(output, result.to_json())
     p = result.params
     return strict_json({
+        "format": "synth-calibrate-summary",
+        "schema_version": 1,
         "cases": len(cases),
         "clips": [str(c) for c in clips],
         "output": str(output),

@@ -235,13 +235,15 @@ def run_frame(
     conf = prediction.maps.get("confidence")
     predicted = prediction.maps.get("predicted_error")
     summary = {
+        "format": "synth-frame-summary",
+        "schema_version": 2,
         "clip": str(clip),
         "past": past,
         "future": future,
         "at": at,
         "t": frac,
         "size": f"{p_pic.width}x{p_pic.height}",
-        "format": f"{p_pic.chroma_format} {p_pic.bit_depth}-bit",
+        "picture_format": f"{p_pic.chroma_format} {p_pic.bit_depth}-bit",
         "maker": the_maker.name,
         "vectors": source.describe() if the_maker.needs_vectors else None,
         "fields": len(fields),
@@ -293,7 +295,7 @@ def format_frame(summary: dict) -> str:
     s = summary
     target = f"picture {s['at']}" if s["at"] is not None else f"t = {s['t']:.4g}"
     lines = [
-        f"synthesised    {target} from pictures {s['past']} and {s['future']} ({s['size']}, {s['format']})",
+        f"synthesised    {target} from pictures {s['past']} and {s['future']} ({s['size']}, {s['picture_format']})",
         f"vectors        {_describe_vectors(s['vectors'], s['fields'])}",
     ]
     maker = f"maker          {s['maker']}"

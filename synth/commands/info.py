@@ -18,7 +18,7 @@ CHROMA_NAMES = {"420": "4:2:0", "422": "4:2:2", "444": "4:4:4", "mono": "4:0:0 (
 #: Keys of `describe_clip` shown by `format_info`, with their labels.
 _LABELS = {
     "file": "file",
-    "format": "format",
+    "clip_format": "format",
     "width": "width",
     "height": "height",
     "frames": "frames",
@@ -73,8 +73,10 @@ def describe_clip(path: str | os.PathLike, *, frame: int = 0, **options) -> dict
         }
         kind = clip_kind(path)
         return {
+            "format": "synth-info-summary",
+            "schema_version": 2,
             "file": str(path),
-            "format": describe_kind(kind),
+            "clip_format": describe_kind(kind),
             "container": info.container,
             "width": info.width,
             "height": info.height,

@@ -155,6 +155,7 @@ def run_offsets(
     if prediction is not None:
         write_clip(prediction, [search.prediction], info)
     return strict_json({
+        "format": "synth-offsets-summary", "schema_version": 1,
         "clip": str(clip), "past": past, "future": future, "at": at, "maker": the_maker.name, "vectors": vec,
         **stats, "prediction": None if prediction is None else str(prediction),
     })  # fmt: skip

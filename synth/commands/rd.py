@@ -249,7 +249,13 @@ def run_rd(
     summary = summarise_clips(results)
     summary["warnings"] = warnings
     written = write_rd_report(report, results, summary, settings) if report is not None else None
-    return {"settings": settings, **summary, "report": None if written is None else [str(p) for p in written]}
+    return {
+        "format": "synth-rd-summary",
+        "schema_version": 1,
+        "settings": settings,
+        **summary,
+        "report": None if written is None else [str(p) for p in written],
+    }
 
 
 def measure_rd_file(

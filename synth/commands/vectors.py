@@ -141,6 +141,8 @@ def run_vectors(
     summary = summarize_field(field, coded=cur, reference=ref)
     estimated = source.kind == ESTIMATE
     return strict_json({
+        "format": "synth-vectors-summary",
+        "schema_version": 1,
         "clip": str(clip),
         "coded": coded,
         "reference": reference,
