@@ -29,12 +29,9 @@ import numpy as np
 from synth.codec.bpicture import USAGE_CLASSES
 from synth.codec.rdmeasure import ANCHOR, ClipRD
 from synth.codec.rdreport import config_label, config_order
+from synth.evaluation.page_style import OKABE_ITO, PAGE_CSS
 
 __all__ = ["OKABE_ITO", "write_rd_page", "plot_rd_curves", "plot_layer_bits", "plot_reference_maps"]
-
-#: Okabe-Ito colour-blind-safe palette (orange, sky blue, bluish green, yellow, blue, vermillion,
-#: reddish purple, black).
-OKABE_ITO = ("#E69F00", "#56B4E9", "#009E73", "#F0E442", "#0072B2", "#D55E00", "#CC79A7", "#000000")
 
 #: Colour of each reference-use class on the maps.
 USAGE_COLOURS = {0: "#000000", 1: "#E69F00", 2: "#0072B2", 3: "#F0E442", 4: "#D55E00", 5: "#56B4E9"}
@@ -180,16 +177,6 @@ def _img(name: str, alt: str) -> str:
     return f'<p><img src="{html.escape(name)}" alt="{html.escape(alt)}" loading="lazy"></p>'
 
 
-_STYLE = """
-body { font-family: sans-serif; max-width: 70em; margin: 1em auto; padding: 0 1em; color: #111; }
-table { border-collapse: collapse; margin: 0.5em 0 1em; font-size: 0.9em; }
-th, td { border: 1px solid #bbb; padding: 0.2em 0.5em; text-align: right; }
-th:first-child, td:first-child { text-align: left; }
-img { max-width: 100%; height: auto; }
-nav li { margin: 0.1em 0; }
-"""
-
-
 def write_rd_page(directory: str | os.PathLike, clips: Sequence[ClipRD], summary: dict, settings: dict) -> list[Path]:
     """Write report.html and its PNGs into `directory` (atomically); return the paths written.
 
@@ -299,7 +286,7 @@ def write_rd_page(directory: str | os.PathLike, clips: Sequence[ClipRD], summary
     doc = (
         '<!DOCTYPE html>\n<html lang="en"><head><meta charset="utf-8">'
         "<title>synth rd: encoder in the loop</title>"
-        f"<style>{_STYLE}</style></head><body>\n"
+        f"<style>{PAGE_CSS}</style></head><body>\n"
         "<h1>Encoder in the loop: bits an extra reference saves</h1>\n"
         f'{warn}<nav><h2>Contents</h2><ul><li><a href="#summary">Summary</a></li>{"".join(toc)}'
         '<li><a href="#settings">Settings</a></li></ul></nav>\n'
