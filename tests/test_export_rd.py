@@ -114,6 +114,20 @@ def test_failed_export_leaves_no_files(crop_clip, tmp_path):
     assert list(tmp_path.iterdir()) == [crop_clip]
 
 
+def test_an_export_interrupted_before_its_sidecar_leaves_no_picture_file(crop_clip, tmp_path, monkeypatch):
+    # The picture file is renamed into place first; an interrupt before the sidecar is written must
+    # not leave a clip without the sidecar that names it.
+    import synth.codec.export as export
+
+    def interrupted(path):
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(export, "clip_digest", interrupted)
+    with open_clip(crop_clip) as reader, pytest.raises(KeyboardInterrupt):
+        write_reference_export(reader, tmp_path / "refs.y4m", gop=4, maker=get_maker("average"))
+    assert sorted(p.name for p in tmp_path.iterdir()) == [crop_clip.name]
+
+
 def test_export_to_a_yuv_name_writes_raw_samples(crop_clip, tmp_path):
     """A .yuv output holds headerless samples: its size is a whole number of pictures."""
     summary = run_export(crop_clip, output=tmp_path / "refs.yuv", gop_size=4, maker="average")

@@ -23,6 +23,7 @@ io/FORMATS.md.
 
 from __future__ import annotations
 
+import contextlib
 import os
 from collections.abc import Callable, Iterator
 from dataclasses import dataclass
@@ -302,8 +303,7 @@ def write_reference_export(
     Both files are written atomically (temporary name, then rename); the picture file first, then
     the sidecar naming its SHA-256, so a pair of different runs is detected (`check_export_pair`).
     """
-    from synth.io import atomic_output, atomic_write_text, write_y4m
-    from synth.io.jsonout import dumps_strict
+    from synth.io import atomic_output, write_y4m
     from synth.io.y4m import pack_picture
     from synth.motion.sources import parse_vector_source
 
@@ -337,6 +337,21 @@ def write_reference_export(
                 fh.write(pack_picture(pic))
     else:
         write_y4m(output, pictures(), info)
+    try:
+        return _write_sidecar(output, sidecar, info, raw, gop, maker, source, records, uncovered, source_name, reader)
+    except BaseException:
+        # interrupted (or failed) after the picture file was renamed into place but before its
+        # sidecar was: remove the picture file, so no clip is left without the sidecar naming it
+        with contextlib.suppress(FileNotFoundError):
+            output.unlink()
+        raise
+
+
+def _write_sidecar(output, sidecar, info, raw, gop, maker, source, records, uncovered, source_name, reader) -> dict:
+    """Write the sidecar of `output` (the body of `write_reference_export` after the picture file)."""
+    from synth.io import atomic_write_text
+    from synth.io.jsonout import dumps_strict
+
     digest, size = clip_digest(output)
     doc = {
         "format": "synth-reference-sidecar",
