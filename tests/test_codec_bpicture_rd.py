@@ -117,3 +117,18 @@ def test_rd_command_line_warns_about_two_qps_and_refuses_bad_options(crop_clip):
     assert bad.exit_code == 2 and "at most 38 below" in bad.output
     bad = runner.invoke(app, ["rd", str(crop_clip), "--gop-size", "6"])
     assert bad.exit_code == 2 and "--gop-size must be a power of two" in bad.output
+
+
+def test_rd_page_renders_in_headless_chromium(crop_clip, tmp_path):
+    # The same page checks as the other reports (tests/test_evaluation_report.py): no console errors,
+    # every image decodes, every table-of-contents link resolves.
+    from test_evaluation_report import CHROMIUM, render_checks
+
+    if CHROMIUM is None:
+        pytest.skip("chromium is not installed (CI installs it)")
+    rep = tmp_path / "rep"
+    run_rd([crop_clip], gaps="8", qps="26,34", makers="average", gop_size=4, at=4, report=rep)
+    checks = render_checks(rep / "report.html", tmp_path)
+    assert checks["errors"] == []
+    assert checks["images"] >= 3 and checks["decoded"] == checks["images"]
+    assert checks["links"] and all(ok for _, ok in checks["links"])

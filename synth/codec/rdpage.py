@@ -288,7 +288,7 @@ def write_rd_page(directory: str | os.PathLike, clips: Sequence[ClipRD], summary
         "<title>synth rd: encoder in the loop</title>"
         f"<style>{PAGE_CSS}</style></head><body>\n"
         "<h1>Encoder in the loop: bits an extra reference saves</h1>\n"
-        f'{warn}<nav><h2>Contents</h2><ul><li><a href="#summary">Summary</a></li>{"".join(toc)}'
+        f'{warn}<nav id="contents"><h2>Contents</h2><ul><li><a href="#summary">Summary</a></li>{"".join(toc)}'
         '<li><a href="#settings">Settings</a></li></ul></nav>\n'
         '<h2 id="summary">Summary</h2>'
         + _table(["", "configuration", "BD-rate %", "BD-PSNR dB"], means)
