@@ -341,6 +341,28 @@ def gop(
 
 
 @app.command()
+def predict(
+    clip: Path = typer.Argument(..., help=HELP["predict.clip"]),
+    pictures: str | None = typer.Option(None, "--pictures", help=HELP["predict.pictures"]),
+    vectors: str | None = typer.Option(None, "--vectors", help=HELP["predict.vectors"]),
+    vector_qp: int | None = typer.Option(None, "--vector-qp", help=HELP["predict.vector_qp"]),
+    params: Path | None = typer.Option(None, "--params", help=HELP["predict.params"]),
+    report: Path | None = typer.Option(None, "--report", help=HELP["predict.report"]),
+    output: Path | None = typer.Option(None, "--output", "-o", help=HELP["predict.output"]),
+    as_json: bool = _JSON,
+) -> None:
+    """Predict inter pictures from their reference with their own vectors: block MC, OBMC and the LMMSE estimator."""
+    from synth.commands.predict import format_predict, run_predict
+
+    with Progress(f"predict {clip.name}") as bar:
+        summary = run_predict(
+            clip, pictures=pictures, vectors=vectors, vector_qp=vector_qp, params=params, report=report,
+            output=output, progress=bar,
+        )  # fmt: skip
+    _emit(summary, as_json, format_predict)
+
+
+@app.command()
 def demo(
     report: Path = typer.Option(Path("synth-demo"), "--report", "-o", help=HELP["demo.report"]),
     baseline: str | None = _BASELINE,

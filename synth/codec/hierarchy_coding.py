@@ -245,7 +245,8 @@ def coded_hierarchy_fields(
     structure : tuple
         ``('gop', g)`` or ``('gop', g, first)`` (clip-wide from picture `first`, default 0, to the
         end; g a power of two 2..8) or ``('pair', past, future)`` (the pictures past..future as one
-        hierarchy anchored on the two; module docstring).
+        hierarchy anchored on the two; module docstring) or ``('ippp', first, last)`` (the
+        pictures first..last as I P P ..., each P picture against the one before it, ``ref=1``).
     open_reader : callable, optional
         Returns a clip reader (``len``, ``read(i)``, context manager); default
         ``synth.io.open_clip(clip)``.
@@ -299,6 +300,13 @@ def coded_hierarchy_fields(
                                 f.intra, f.gaps_allowed)
                     for f in _code_and_read(pictures, qp=qp, gop=1, offset=0)
                 )  # fmt: skip
+        elif structure[0] == "ippp":
+            first = int(structure[1]) if len(structure) > 1 else 0
+            last = int(structure[2]) if len(structure) > 2 else n - 1
+            if not 0 <= first < last < n:
+                raise ParameterError(f"pictures {first}..{last}: the clip has pictures 0..{n - 1}")
+            pictures = [reader.read(k) for k in range(first, last + 1)]
+            fields = _code_and_read(pictures, qp=qp, gop=1, offset=first)
         else:
             raise ParameterError(f"unknown coding structure {structure!r}")
     _CACHE[key] = fields

@@ -98,4 +98,11 @@ HELP: dict[str, str] = {
     "study.cluster": "Run on a Dask distributed scheduler, e.g. tcp://HOST:8786 (extra 'cluster').",
     "study.keep_failed": "Do not retry jobs recorded as failed.",
     "study.plan": "Validate, list the jobs and how many are done; run nothing.",
+    "predict.clip": "Clip file (.y4m, or any video OpenCV decodes).",
+    "predict.pictures": "Pictures FIRST:LAST (display numbers, both included); FIRST+1..LAST are predicted, each from the one before. Default: the whole clip.",
+    "predict.vectors": "Vector input: 'estimate' (default), 'x264' (the clip coded by x264 as I P P ... with one reference at --vector-qp, each P picture's own vectors), 'stream' or a field file (.json/.npz) holding each picture's field against the one before.",
+    "predict.vector_qp": "QP of the vectors, 0..51 (the estimator's rate constraint; x264's QP). Default 27.",
+    "predict.params": "One-reference predictor parameter file (JSON, format synth-one-reference-params).",
+    "predict.report": "Folder for results.json and results.csv (one row per picture and method).",
+    "predict.output": "Write the LMMSE predictions (display order) to this .y4m file.",
 }
