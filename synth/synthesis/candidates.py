@@ -7,9 +7,12 @@ group's centre, and no further than ``reach``, are its candidates, ordered by th
 without a candidate hold -1. Per-pixel quantities (distance to the landing spot, reliability,
 weights) are computed later per pixel from these shared candidates.
 
-Searching per group instead of per pixel divides the search cost by ``group**2``; the default 8x8
-groups cost 0.01 dB of PSNR-Y against 4x4 groups on real footage (measured, issue 4), since the
-K nearest to the group centre are nearly always the K nearest to each of its pixels too. The search is a k-d tree over the landing centres (SciPy's ``cKDTree``; J. L. Bentley,
+Searching per group instead of per pixel divides the search cost by ``group**2``. 8x8 groups cost
+only 0.01 dB of PSNR-Y against 4x4 groups on real footage, since the K nearest to the group centre
+are nearly always the K nearest to each of its pixels too; but where the candidate set changes, at
+group borders, the picture gets seams an encoder pays for. The default is 4x4 groups: in the
+encoder loop they save 0.6 / 0.4 / 0.0 points more BD-rate than 8x8 on carphone / bikes /
+bigbuckbunny, for about 12 % more synthesis time (`tests/benchmarks/results/encoder-value.md`). The search is a k-d tree over the landing centres (SciPy's ``cKDTree``; J. L. Bentley,
 "Multidimensional binary search trees used for associative searching", CACM 18(9), 1975,
 doi:10.1145/361002.361007).
 """

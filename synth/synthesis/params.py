@@ -56,7 +56,8 @@ class SynthParams:
     candidates_both_directions : int
         K when the fields cover both coding directions (future-to-past and past-to-future).
     group_size : int
-        Candidates are chosen per square group of this many luma samples; distances, reliabilities
+        Candidates are chosen per square group of this many luma samples (default 4: larger groups
+        leave seams where the candidate set changes); distances, reliabilities
         and weights stay per pixel. A group must hold whole chroma samples: 1 serves 4:4:4 and
         monochrome clips only (4:2:0 and 4:2:2 need 2 or more, see `check_chroma`).
     reach : float
@@ -121,7 +122,7 @@ class SynthParams:
     method: str = "lmmse"
     candidates: int = 8
     candidates_both_directions: int = 12
-    group_size: int = 8
+    group_size: int = 4
     reach: float = 48.0
     spatial_correlation: float = 0.69
     innovation_nugget: float = 0.05
