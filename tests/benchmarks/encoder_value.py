@@ -41,7 +41,7 @@ QPS = (22, 27, 32, 37)
 #: Synthesiser parameter variants (changes to the defaults).
 VARIANTS = {
     "default": {},
-    "blocks-sixtap": {"interpolation": "sixtap", "motion_cell": 0},
+    "blocks-sixtap": {"interpolation": "sixtap", "motion_cell": 0, "group_size": 8},
     "blocks-bicubic": {"motion_cell": 0},
     "cells-sixtap": {"interpolation": "sixtap"},
     "cells-unsmoothed": {"motion_smoothing": 1},

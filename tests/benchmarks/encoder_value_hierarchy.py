@@ -32,7 +32,7 @@ from synth.motion.sources import parse_vector_source
 from synth.synthesis.params import SynthParams
 
 #: The synthesiser's defaults before this release's encoder-loop measurements.
-PREVIOUS_DEFAULTS = SynthParams(interpolation="sixtap", motion_cell=0)
+PREVIOUS_DEFAULTS = SynthParams(interpolation="sixtap", motion_cell=0, group_size=8)
 
 
 def with_params(name: str, params: SynthParams) -> Maker:

@@ -28,7 +28,7 @@ from synth.motion.estimator import estimate_field, estimate_reference_fields
 from synth.synthesis.params import SynthParams
 
 B = 16
-OLD = SynthParams(interpolation="sixtap", motion_cell=0)
+OLD = SynthParams(interpolation="sixtap", motion_cell=0, group_size=8)
 
 
 def mb_sum(a):
