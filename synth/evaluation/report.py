@@ -92,7 +92,7 @@ _DECIMALS = {"psnr_yuv": 2, "psnr_y": 2, "psnr_cb": 2, "psnr_cr": 2, "ssim_y": 4
 CROP = 64
 #: WebP quality of the pictures and of the error maps (the demo page stays under 3 MB).
 PICTURE_QUALITY = 60
-MAP_QUALITY = 50
+MAP_QUALITY = 45
 CROP_QUALITY = 90
 OVERLAY_QUALITY = 40
 
