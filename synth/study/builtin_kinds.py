@@ -313,6 +313,7 @@ def rd_rows(clip_path, params: dict, *, progress=None) -> list[dict]:
             if params["offsets"]
             else None,
             limit=int(params["limit"]) or None,
+            target_picture=params["target_picture"],
             progress=progress,
         )
     bd = result.bd()
@@ -482,6 +483,12 @@ register_kind(
                 (str,), "decoded", _one_of(("decoded", "source")), "synthesise from decoded or source references"
             ),
             "extra_qp": Param((int,), 4, _int_range(0, 51), "QP of the extra reference picture"),
+            "target_picture": Param(
+                (str,),
+                "B",
+                _one_of(("B", "P")),
+                "the target coded as a B picture (default, as synth rd) or a P picture",
+            ),
             "preset": Param((str,), "medium", None, "encoder speed preset"),
             "offsets": Param((bool,), False, None, "also measure the offset-corrected synthetic picture"),
             "offset_block": Param((int,), 16, _one_of((8, 16, 32)), "offset block size (with offsets)"),
