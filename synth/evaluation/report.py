@@ -371,7 +371,10 @@ def _run_title(run: RunResult) -> str:
     if run.kind == "compare":
         gaps = ", ".join(str(g) for g in s.get("gaps", []))
         qps = s.get("vector_qps") or []
-        sweep = f", vector QPs {', '.join(str(q) for q in qps)}" if len(qps) > 1 else ""
+        vectors = s.get("vectors")
+        source = vectors.get("vectors", "estimate") if isinstance(vectors, dict) else "estimate"
+        named = "" if source == "estimate" else f" ({source} vectors)"
+        sweep = f", vector QPs {', '.join(str(q) for q in qps)}{named}" if len(qps) > 1 else named
         return f"{run.clip}: comparison at reference gap {gaps}{sweep}"
     refs = (
         f"references decoded at QP {s['decoded_refs_qp']}"
