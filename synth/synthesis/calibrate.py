@@ -245,12 +245,14 @@ def fit_exponential_decay(distance, correlation, *, weights=None) -> tuple[float
     return a, nu
 
 
-def _binned(x: np.ndarray, y: np.ndarray, edges: np.ndarray):
+def binned(x: np.ndarray, edges: np.ndarray, *, min_count: int = 50) -> list[tuple[float, np.ndarray]]:
+    """``(mean of x, mask)`` for every bin of `x` between consecutive `edges` holding at least
+    `min_count` points (the bins the statistics are measured in)."""
     idx = np.digitize(x, edges) - 1
     out = []
     for b in range(len(edges) - 1):
         m = idx == b
-        if m.sum() >= 50:
+        if m.sum() >= min_count:
             out.append((float(x[m].mean()), m))
     return out
 
@@ -307,7 +309,7 @@ def measure_statistics(
     delta = np.concatenate(deltas)
     ei, ej = np.concatenate(prods_i), np.concatenate(prods_j)
     pairs = []
-    for centre, m in _binned(delta, delta, np.array([0.01, 0.5, 1, 1.5, 2, 3, 4, 6, 8, 12, 16])):
+    for centre, m in binned(delta, np.array([0.01, 0.5, 1, 1.5, 2, 3, 4, 6, 8, 12, 16])):
         a, b = ei[m].astype(np.float64), ej[m].astype(np.float64)
         corr = float(np.mean(a * b) / math.sqrt(np.mean(a * a) * np.mean(b * b) + 1e-12))
         pairs.append((centre, corr, int(m.sum())))
@@ -316,7 +318,7 @@ def measure_statistics(
     err = np.concatenate(errs)
     dev = np.concatenate(devs)
     rows = []
-    for centre, m in _binned(dist, dist, np.array([-0.5, 0.5, 2, 4, 8, 12, 16, 24, 32, 48])):
+    for centre, m in binned(dist, np.array([-0.5, 0.5, 2, 4, 8, 12, 16, 24, 32, 48])):
         vnorm = float(err[m].mean() / max(dev[m].mean() + err[m].mean(), 1e-9))
         r = 1.0 - vnorm  # observation and pixel of equal variance: E[e^2] / (2 var) = 1 - r
         rows.append((centre, r, int(m.sum())))

@@ -27,7 +27,7 @@ import numpy as np
 
 from synth.errors import ParameterError
 from synth.metrics import plane_psnr
-from synth.synthesis.calibrate import fit_exponential_decay
+from synth.synthesis.calibrate import binned, fit_exponential_decay
 from synth.synthesis.candidates import CandidateSearch
 from synth.synthesis.one_reference import (
     OneReferenceParams,
@@ -112,17 +112,6 @@ def _slots(field, params: OneReferenceParams) -> tuple[np.ndarray, np.ndarray]:
     return np.moveaxis(_own_first(own, near, K), -1, 0), inter
 
 
-def _bins(x: np.ndarray, edges: np.ndarray) -> list[tuple[float, np.ndarray]]:
-    """(mean of x, mask) per bin of `x` holding 50 or more points."""
-    idx = np.digitize(x, edges) - 1
-    out = []
-    for b in range(len(edges) - 1):
-        m = idx == b
-        if m.sum() >= 50:
-            out.append((float(x[m].mean()), m))
-    return out
-
-
 def measure_one_reference_statistics(
     cases: Sequence[tuple], *, params: OneReferenceParams | None = None, pixels: int = 20000, seed: int = 0
 ) -> dict:
@@ -194,7 +183,7 @@ def measure_one_reference_statistics(
         raise ParameterError("the training cases hold no pixel with two candidates: nothing to measure")
     a_e, b_e, d = np.concatenate(e_i), np.concatenate(e_j), np.concatenate(d_ij)
     pairs = []
-    for centre, msk in _bins(d, np.array([0.01, 0.5, 1, 1.5, 2, 3, 4, 6, 8, 12, 16])):
+    for centre, msk in binned(d, np.array([0.01, 0.5, 1, 1.5, 2, 3, 4, 6, 8, 12, 16])):
         x, z = a_e[msk], b_e[msk]
         pairs.append((centre, float(np.mean(x * z) / np.sqrt(np.mean(x * x) * np.mean(z * z) + 1e-12)), int(msk.sum())))
     try:
@@ -207,7 +196,7 @@ def measure_one_reference_statistics(
 
     def reliability(mask):
         rows = []
-        for centre, msk in _bins(u2[mask], edges):
+        for centre, msk in binned(u2[mask], edges):
             e2, d2 = err[mask][msk].mean(), dev[mask][msk].mean()
             rows.append((centre, float(1.0 - e2 / max(d2 + e2, 1e-9)), int(msk.sum())))
         return rows
