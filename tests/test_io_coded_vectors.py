@@ -84,14 +84,16 @@ def check_agreement(fields, pictures, v, tol=1):
     assert total >= 50 and close / total >= 0.8, close / max(total, 1)
 
 
-def encode_mpeg2(pictures, path, *, b_frames=1):
-    """The pictures coded by FFmpeg's MPEG-2 video encoder through PyAV (fixed quantiser)."""
-    out = av.open(str(path), "w", format="mpeg2video")
-    st = out.add_stream("mpeg2video", rate=25)
+def encode_stream(pictures, path, codec, *, container=None, options=None, b_frames=None):
+    """The pictures coded by one of FFmpeg's encoders through PyAV into `path` (`container` None:
+    from the file name)."""
+    out = av.open(str(path), "w", format=container)
+    st = out.add_stream(codec, rate=25)
     st.width, st.height, st.pix_fmt = pictures[0].width, pictures[0].height, "yuv420p"
-    st.codec_context.max_b_frames = b_frames
-    st.codec_context.gop_size = 100
-    st.codec_context.options = {"qscale": "2", "threads": "1"}
+    if b_frames is not None:
+        st.codec_context.max_b_frames = b_frames
+        st.codec_context.gop_size = 100
+    st.codec_context.options = dict(options or {})
     for k, p in enumerate(pictures):
         f = av.VideoFrame.from_ndarray(
             np.concatenate([p.y, p.cb.reshape(-1, p.width), p.cr.reshape(-1, p.width)]), format="yuv420p"
@@ -102,6 +104,13 @@ def encode_mpeg2(pictures, path, *, b_frames=1):
     for packet in st.encode(None):
         out.mux(packet)
     out.close()
+
+
+def encode_mpeg2(pictures, path, *, b_frames=1):
+    """The pictures coded by FFmpeg's MPEG-2 video encoder through PyAV (fixed quantiser)."""
+    encode_stream(
+        pictures, path, "mpeg2video", container="mpeg2video", options={"qscale": "2", "threads": "1"}, b_frames=b_frames
+    )
 
 
 @pytest.mark.parametrize("v", [(1.25, -0.75), (-0.5, 1.75)])
@@ -195,20 +204,9 @@ def test_a_stream_without_vectors_gives_all_intra_fields(tmp_path):
     no vectors at all, so each picture's field against the previous picture is all intra."""
     pictures = translated_photograph((1.0, 0.0), 4)
     path = tmp_path / "intra.h264"
-    out = av.open(str(path), "w", format="h264")
-    st = out.add_stream("libx264", rate=25)
-    st.width, st.height, st.pix_fmt = W, H, "yuv420p"
-    st.codec_context.options = {"x264-params": "keyint=1:qp=30", "threads": "1"}
-    for k, p in enumerate(pictures):
-        f = av.VideoFrame.from_ndarray(
-            np.concatenate([p.y, p.cb.reshape(-1, W), p.cr.reshape(-1, W)]), format="yuv420p"
-        )
-        f.pts = k
-        for packet in st.encode(f):
-            out.mux(packet)
-    for packet in st.encode(None):
-        out.mux(packet)
-    out.close()
+    encode_stream(
+        pictures, path, "libx264", container="h264", options={"x264-params": "keyint=1:qp=30", "threads": "1"}
+    )
     stream = read_coded_fields(path)
     assert [p.kind for p in stream.pictures] == ["I"] * 4
     assert [(int(f.coded_time), int(f.reference_time)) for f in stream.fields] == [(1, 0), (2, 1), (3, 2)]
@@ -222,20 +220,7 @@ def test_hevc_and_non_video_files_give_one_line_errors(tmp_path):
         pytest.skip("PyAV has no libx265 here")
     pictures = translated_photograph((1.0, 0.0), 3)
     path = tmp_path / "clip.hevc"
-    out = av.open(str(path), "w", format="hevc")
-    st = out.add_stream("libx265", rate=25)
-    st.width, st.height, st.pix_fmt = W, H, "yuv420p"
-    st.codec_context.options = {"x265-params": "log-level=none:pools=1"}
-    for k, p in enumerate(pictures):
-        f = av.VideoFrame.from_ndarray(
-            np.concatenate([p.y, p.cb.reshape(-1, W), p.cr.reshape(-1, W)]), format="yuv420p"
-        )
-        f.pts = k
-        for packet in st.encode(f):
-            out.mux(packet)
-    for packet in st.encode(None):
-        out.mux(packet)
-    out.close()
+    encode_stream(pictures, path, "libx265", container="hevc", options={"x265-params": "log-level=none:pools=1"})
     # FFmpeg's hevc decoder implements no export_mvs (libavcodec/hevc: no AV_FRAME_DATA_MOTION_VECTORS)
     with pytest.raises(
         FormatError, match=r"clip\.hevc: codec 'hevc': FFmpeg's decoder for it exports no coded motion vectors"
@@ -284,20 +269,7 @@ def test_mpeg4_part2_quarter_sample_p_vectors_and_no_b_fields(tmp_path):
     v = (1.25, -0.75)
     pictures = translated_photograph(v, 5)
     path = tmp_path / "pan.avi"
-    out = av.open(str(path), "w")
-    st = out.add_stream("mpeg4", rate=25)
-    st.width, st.height, st.pix_fmt = W, H, "yuv420p"
-    st.codec_context.max_b_frames = 1
-    st.codec_context.gop_size = 100
-    st.codec_context.options = {"qscale": "2", "flags": "+qpel", "threads": "1"}
-    for k, p in enumerate(pictures):
-        f = av.VideoFrame.from_ndarray(
-            np.concatenate([p.y, p.cb.reshape(-1, W), p.cr.reshape(-1, W)]), format="yuv420p"
-        )
-        f.pts = k
-        out.mux(st.encode(f))
-    out.mux(st.encode(None))
-    out.close()
+    encode_stream(pictures, path, "mpeg4", options={"qscale": "2", "flags": "+qpel", "threads": "1"}, b_frames=1)
     stream = read_coded_fields(path)
     assert stream.codec == "mpeg4"
     assert [(int(f.coded_time), int(f.reference_time)) for f in stream.fields] == [(2, 0)]

@@ -79,36 +79,16 @@ def demo_plan(directory: Path | None = None) -> list[DemoStep]:
         )
     for name in DEMO_CLIPS:
         steps.append(DemoStep("compare", name, d / name, {"gaps": list(DEMO_GAPS), "limit": DEMO_PICTURES}))
-    steps.append(
-        DemoStep(
-            "compare",
-            DEMO_CLIPS[0],
-            d / DEMO_CLIPS[0],
-            {
-                "gaps": [max(DEMO_GAPS)],
-                "limit": DEMO_PICTURES,
-                "vector_qps": list(DEMO_VECTOR_QPS),
-                "highlights": False,
-            },
-        )
-    )
+
+    def sweep(**extra) -> DemoStep:
+        options = {"gaps": [max(DEMO_GAPS)], "limit": DEMO_PICTURES, "vector_qps": list(DEMO_VECTOR_QPS)}
+        return DemoStep("compare", DEMO_CLIPS[0], d / DEMO_CLIPS[0], {**options, "highlights": False, **extra})
+
+    steps.append(sweep())
     if found is not None:
         # the same sweep with x264's coded vectors (the clip coded as a hierarchy at each QP): the
         # rate constraint of a real encoder next to the estimator's
-        steps.append(
-            DemoStep(
-                "compare",
-                DEMO_CLIPS[0],
-                d / DEMO_CLIPS[0],
-                {
-                    "gaps": [max(DEMO_GAPS)],
-                    "limit": DEMO_PICTURES,
-                    "vector_qps": list(DEMO_VECTOR_QPS),
-                    "highlights": False,
-                    "vectors": "x264",
-                },
-            )
-        )
+        steps.append(sweep(vectors="x264"))
     else:
         for step in steps:
             step.path = None
@@ -166,13 +146,12 @@ def run_demo(
                 progress(base + done, grand, f"{step.kind} {step.clip}: {label}")
 
         opts = dict(step.options, baseline=baseline)
-        step_vectors = vectors
-        if opts.get("vectors") is not None:  # a step with its own vector source (the x264 sweep)
+        vectors_for_step = vectors
+        own = opts.pop("vectors", None)
+        if own is not None:  # a step with its own vector source (the x264 sweep)
             from synth.motion.sources import parse_vector_source
 
-            step_vectors = parse_vector_source(opts.pop("vectors"), clip=step.path)
-        opts.pop("vectors", None)
-        vectors_for_step = step_vectors
+            vectors_for_step = parse_vector_source(own, clip=step.path)
         if step.kind == "gop":
             r = run_gop(
                 readers[step.clip],
