@@ -100,3 +100,15 @@ def test_cells_follow_a_zoom_better_than_blocks():
     blocks = psnr(SynthParams(motion_cell=0))
     cells = psnr(SynthParams())
     assert cells > blocks + 0.3, (cells, blocks)
+
+
+def test_the_fields_of_one_pair_are_recut_once_and_give_the_same_cells():
+    from synth.synthesis.smooth_motion import smooth_fields
+
+    f = _grid(64, 32, 16, np.array([[0, 8, 16, 24]] * 2), 4)
+    first = smooth_fields([f])
+    again = smooth_fields([f])
+    assert again[0] is first[0]  # reused, not recomputed
+    fresh = smooth_cells(f, cell=4, smoothing=8)
+    assert np.array_equal(first[0].dx, fresh.dx) and np.array_equal(first[0].dy, fresh.dy)
+    assert smooth_fields([f], smoothing=1)[0] is not first[0]  # other settings, other cells

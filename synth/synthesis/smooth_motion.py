@@ -28,6 +28,9 @@ The box filter is the separable moving average (common practice); ``cv2.blur`` c
 
 from __future__ import annotations
 
+import threading
+from collections import OrderedDict
+
 import cv2
 import numpy as np
 
@@ -135,6 +138,26 @@ def smooth_cells(
     )
 
 
+#: Recently smoothed field sets: every picture between one reference pair is synthesised from the
+#: same fields, so they are re-cut once per pair, not once per picture. Keyed by the fields' identity
+#: (a `VectorField` is immutable); the entry keeps the fields alive so an identity is never reused.
+_RECENT: OrderedDict = OrderedDict()
+_RECENT_SIZE = 4
+_RECENT_LOCK = threading.Lock()
+
+
 def smooth_fields(fields, *, cell: int = 4, smoothing: int = 8, max_change: float | None = None) -> list[VectorField]:
-    """`smooth_cells` applied to every field of a sequence."""
-    return [smooth_cells(f, cell=cell, smoothing=smoothing, max_change=max_change) for f in fields]
+    """`smooth_cells` applied to every field of a sequence (the last few results are reused)."""
+    fields = list(fields)
+    key = (tuple(id(f) for f in fields), cell, smoothing, max_change)
+    with _RECENT_LOCK:
+        hit = _RECENT.get(key)
+        if hit is not None:
+            _RECENT.move_to_end(key)
+            return list(hit[1])
+    out = [smooth_cells(f, cell=cell, smoothing=smoothing, max_change=max_change) for f in fields]
+    with _RECENT_LOCK:
+        _RECENT[key] = (fields, out)
+        while len(_RECENT) > _RECENT_SIZE:
+            _RECENT.popitem(last=False)
+    return list(out)
