@@ -49,3 +49,21 @@ def to_high_depth_422(picture: Picture) -> Picture:
     """The same picture as 10-bit 4:2:2 (samples times 4, chroma rows repeated): a format check."""
     up = lambda p: p.astype(np.uint16) * 4  # noqa: E731
     return Picture(up(picture.y), np.repeat(up(picture.cb), 2, axis=0), np.repeat(up(picture.cr), 2, axis=0), "422", 10)
+
+
+def write_astronaut_pan(path: Path, pictures: int = 5) -> Path:
+    """A 128x96 pan over scikit-image's astronaut photograph written as Y4M: picture k is the crop
+    4 samples right and 2 down of picture k - 1 (even offsets keep 4:2:0 chroma exact), so the true
+    vector of picture k against k - 1 is (-4, -2) luma samples."""
+    import cv2
+    from skimage import data
+
+    from synth.io import rgb_to_ycbcr420, write_clip
+
+    bgr = cv2.cvtColor(data.astronaut(), cv2.COLOR_RGB2BGR)
+    pics = [
+        rgb_to_ycbcr420(np.ascontiguousarray(bgr[150 - 2 * k : 246 - 2 * k, 200 - 4 * k : 328 - 4 * k]))
+        for k in range(pictures)
+    ]
+    write_clip(path, pics)
+    return path

@@ -9,6 +9,7 @@ import json
 import cv2
 import numpy as np
 import pytest
+from realcrops import write_astronaut_pan
 from typer.testing import CliRunner
 
 from synth import VectorField
@@ -19,17 +20,7 @@ from synth.makers import MAKERS
 
 @pytest.fixture(scope="module")
 def pan_clip(tmp_path_factory):
-    from skimage import data
-
-    bgr = cv2.cvtColor(data.astronaut(), cv2.COLOR_RGB2BGR)
-    # 4 samples right and 2 down per picture (even offsets keep 4:2:0 chroma exact)
-    pics = [
-        rgb_to_ycbcr420(np.ascontiguousarray(bgr[150 - 2 * k : 246 - 2 * k, 200 - 4 * k : 328 - 4 * k]))
-        for k in range(5)
-    ]
-    path = tmp_path_factory.mktemp("clip") / "pan.y4m"
-    write_clip(path, pics)
-    return path
+    return write_astronaut_pan(tmp_path_factory.mktemp("clip") / "pan.y4m", 5)
 
 
 def test_frame_with_a_field_file_reproduces_the_pan(pan_clip, tmp_path):

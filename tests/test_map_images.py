@@ -9,6 +9,7 @@ Smith, SciPy 2015); photographs bundled with scikit-image (`skimage.data`); PNG 
 import cv2
 import numpy as np
 import pytest
+from realcrops import write_astronaut_pan
 from skimage import data
 from typer.testing import CliRunner
 
@@ -16,7 +17,6 @@ from synth import ParameterError, VectorField
 from synth.cli import app
 from synth.evaluation import map_images
 from synth.evaluation.map_images import error_scale, figure_size, map_figure, map_png, style_for
-from synth.io import rgb_to_ycbcr420, write_clip
 from synth.motion.overlay import overlay_figure, overlay_png, overlay_size
 
 
@@ -90,14 +90,7 @@ def test_overlay_has_a_legend_and_the_documented_size():
 
 @pytest.fixture(scope="module")
 def pan_clip(tmp_path_factory):
-    bgr = cv2.cvtColor(data.astronaut(), cv2.COLOR_RGB2BGR)
-    pics = [
-        rgb_to_ycbcr420(np.ascontiguousarray(bgr[150 - 2 * k : 246 - 2 * k, 200 - 4 * k : 328 - 4 * k]))
-        for k in range(5)
-    ]
-    path = tmp_path_factory.mktemp("clip") / "pan.y4m"
-    write_clip(path, pics)
-    return path
+    return write_astronaut_pan(tmp_path_factory.mktemp("clip") / "pan.y4m", 5)
 
 
 def test_frame_maps_writes_every_map_as_a_figure(pan_clip, tmp_path):
