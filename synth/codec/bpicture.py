@@ -158,6 +158,8 @@ def _x264_params(qp: int, extra_qp: int, roles, bframes: int) -> str:
 
 
 def _x265_params(qp: int, extra_qp: int, roles, bframes: int) -> str:
+    from synth.codec.encode import X265_STEADY
+
     opts = [
         f"qp={qp}",
         "ipratio=1.0",
@@ -172,16 +174,8 @@ def _x265_params(qp: int, extra_qp: int, roles, bframes: int) -> str:
         "open-gop=0",
         "weightb=0",
         "weightp=0",
-        "psy-rd=0",
-        "psy-rdoq=0",
-        "aq-mode=0",
-        "cutree=0",
-        "limit-refs=0",
-        "frame-threads=1",
-        "pools=none",
+        *X265_STEADY,
         "lookahead-slices=0",
-        "info=0",
-        "log-level=error",
     ]
     if "extra" in roles:
         opts.append(f"zones=3,3,q={extra_qp}")  # coding index 2, x265's off-by-one

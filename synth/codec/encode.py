@@ -117,6 +117,22 @@ def _from_frame(frame: av.VideoFrame, like: Picture) -> Picture:
     return Picture(planes[0], planes[1], planes[2], like.chroma_format, like.bit_depth)
 
 
+#: x265 options every measurement uses: no psycho-visual tuning, adaptive quantisation or
+#: CU-tree (constant QP really constant), one frame thread and no thread pool (bit-identical
+#: streams), no SEI of the options, quiet.
+X265_STEADY = (
+    "psy-rd=0",
+    "psy-rdoq=0",
+    "aq-mode=0",
+    "cutree=0",
+    "limit-refs=0",
+    "frame-threads=1",
+    "pools=none",
+    "info=0",
+    "log-level=error",
+)
+
+
 def _params(codec: str, *, qp: int, refs: int, zones: dict[int, int], frames: int, bit_depth: int) -> str:
     keyint = max(frames + 1, 250)
     if codec == "h264":
@@ -146,15 +162,7 @@ def _params(codec: str, *, qp: int, refs: int, zones: dict[int, int], frames: in
             f"keyint={keyint}",
             "scenecut=0",
             "weightp=0",
-            "psy-rd=0",
-            "psy-rdoq=0",
-            "aq-mode=0",
-            "cutree=0",
-            "limit-refs=0",
-            "frame-threads=1",
-            "pools=none",
-            "info=0",
-            "log-level=error",
+            *X265_STEADY,
         ]
         zone_list = [f"{k + 1},{k + 1},q={q}" for k, q in sorted(zones.items())]
     if zone_list:
