@@ -17,6 +17,13 @@ Methods (``PREDICTION_METHODS``):
 
 All three sample the reference with the H.264 interpolation (ITU-T H.264 clause 8.4.2.2), so they
 differ only in how the vectors are combined.
+
+Several references (`synth.motion.multi_reference.ReferenceFields`, pictures nearest first): block
+MC takes each block's own vector on its own reference (intra and uncovered samples: the co-located
+sample of the nearest reference); OBMC gives each grid block the vector and the reference of the
+coded block under its centre; ``lmmse`` is
+`synth.synthesis.one_reference.predict_multi_reference`. With one reference all three are the
+one-reference methods exactly.
 """
 
 from __future__ import annotations
@@ -33,9 +40,23 @@ from synth.makers.obmc import grid_block_size, raised_cosine_weights
 from synth.metrics import picture_psnr, weighted_psnr
 from synth.motion.compensate import motion_compensate, vector_maps
 from synth.picture import Picture
-from synth.synthesis.one_reference import OneReferenceParams, predict_one_reference, sample_with_vector_maps
+from synth.synthesis.one_reference import (
+    OneReferenceParams,
+    predict_multi_reference,
+    predict_one_reference,
+    sample_with_references,
+    sample_with_vector_maps,
+)
 
-__all__ = ["PREDICTION_METHODS", "BASELINE", "obmc_one_reference", "predict_with", "compare_predictions"]
+__all__ = [
+    "PREDICTION_METHODS",
+    "BASELINE",
+    "obmc_one_reference",
+    "obmc_multi_reference",
+    "block_mc_multi_reference",
+    "predict_with",
+    "compare_predictions",
+]
 
 PREDICTION_METHODS = ("block-mc", "obmc", "lmmse")
 #: The method every other one is compared with.
@@ -50,7 +71,44 @@ def obmc_one_reference(reference: Picture, field: VectorField) -> Picture:
     Picture
         Same format as `reference`.
     """
-    h, w = reference.height, reference.width
+    qx, qy, coef, _ = _obmc_maps(field, None)
+    return sample_with_vector_maps(reference, qx, qy, coef)
+
+
+def obmc_multi_reference(references: Sequence[Picture], fields) -> Picture:
+    """OBMC of a `ReferenceFields` from its pictures (nearest first): each grid block takes the
+    vector and the reference of the coded block under its centre (module docstring)."""
+    if len(fields) == 1:
+        return obmc_one_reference(references[0], fields.fields[0])
+    merged = fields.merged()
+    qx, qy, coef, ref = _obmc_maps(merged, fields.block_reference())
+    return sample_with_references(references, ref, qx, qy, coef)
+
+
+def block_mc_multi_reference(references: Sequence[Picture], fields) -> Picture:
+    """Block MC of a `ReferenceFields`: each block's own vector on its own reference."""
+    if len(fields) == 1:
+        return motion_compensate(references[0], fields.fields[0])
+    merged = fields.merged()
+    dx, dy, _ = vector_maps(merged)
+    ref = _reference_map(merged, fields.block_reference())
+    one = np.ones((1, *dx.shape), np.float32)
+    return sample_with_references(references, ref[None], dx[None], dy[None], one)
+
+
+def _reference_map(field: VectorField, which: np.ndarray) -> np.ndarray:
+    """Reference index of the inter block covering each sample (0 elsewhere)."""
+    ref = np.zeros((field.height, field.width), np.int32)
+    for x, y, w, h, k in zip(field.x.tolist(), field.y.tolist(), field.w.tolist(), field.h.tolist(), which.tolist()):
+        if k > 0:
+            ref[max(y, 0) : y + h, max(x, 0) : x + w] = k
+    return ref
+
+
+def _obmc_maps(field: VectorField, which: np.ndarray | None):
+    """OBMC's four slots: quarter-sample vectors, window weights and (with `which`, each block's
+    reference index) the reference each slot samples."""
+    h, w = field.height, field.width
     block = grid_block_size([field])
     nby, nbx = -(-h // block), -(-w // block)
     dx, dy, inter = vector_maps(field)
@@ -69,28 +127,43 @@ def obmc_one_reference(reference: Picture, field: VectorField) -> Picture:
         _, near = cKDTree(centres).query(np.stack([cx[gx], cy[gy]], 1).astype(np.float64), k=1)
         gdx[gy, gx] = field.dx[blocks][near]
         gdy[gy, gx] = field.dy[blocks][near]
+    if which is not None:
+        gref = _reference_map(field, which)[np.ix_(cy, cx)]
+        if loose.any() and len(blocks):
+            gref[gy, gx] = which[blocks][near]
     ry0, ry1, wy = raised_cosine_weights(h, block, nby)
     rx0, rx1, wx = raised_cosine_weights(w, block, nbx)
-    qx, qy, coef = [], [], []
+    qx, qy, coef, ref = [], [], [], []
     for by, wyy in ((ry0, 1.0 - wy), (ry1, wy)):
         for bx, wxx in ((rx0, 1.0 - wx), (rx1, wx)):
             qx.append(gdx[by][:, bx])
             qy.append(gdy[by][:, bx])
             coef.append((wyy[:, None] * wxx[None, :]).astype(np.float32))
-    return sample_with_vector_maps(reference, np.stack(qx), np.stack(qy), np.stack(coef))
+            if which is not None:
+                ref.append(gref[by][:, bx])
+    return np.stack(qx), np.stack(qy), np.stack(coef), (np.stack(ref) if which is not None else None)
 
 
-def predict_with(
-    method: str, reference: Picture, field: VectorField, *, params: OneReferenceParams | None = None
-) -> Picture:
-    """The prediction of `field`'s coded picture from `reference` by one of `PREDICTION_METHODS`."""
+def predict_with(method: str, reference, field, *, params: OneReferenceParams | None = None) -> Picture:
+    """The prediction of `field`'s coded picture from `reference` by one of `PREDICTION_METHODS`.
+
+    `reference` and `field` are a Picture and a VectorField, or a sequence of Pictures (nearest
+    first) and a `synth.motion.multi_reference.ReferenceFields`.
+    """
+    if method not in PREDICTION_METHODS:
+        raise ParameterError(f"prediction method must be one of {', '.join(PREDICTION_METHODS)}, got {method!r}")
+    if not isinstance(field, VectorField):
+        refs = list(reference)
+        if method == "block-mc":
+            return block_mc_multi_reference(refs, field)
+        if method == "obmc":
+            return obmc_multi_reference(refs, field)
+        return predict_multi_reference(refs, field, params=params)
     if method == "block-mc":
         return motion_compensate(reference, field)
     if method == "obmc":
         return obmc_one_reference(reference, field)
-    if method == "lmmse":
-        return predict_one_reference(reference, field, params=params)
-    raise ParameterError(f"prediction method must be one of {', '.join(PREDICTION_METHODS)}, got {method!r}")
+    return predict_one_reference(reference, field, params=params)
 
 
 def compare_predictions(
@@ -106,7 +179,8 @@ def compare_predictions(
     Parameters
     ----------
     pictures : sequence of (int, Picture, Picture, VectorField)
-        Display number, the true picture, its reference and its own field against that reference.
+        Display number, the true picture, its reference and its own field against that reference
+        (or its references, nearest first, and a `ReferenceFields`: `predict_with`).
     params : OneReferenceParams, optional
         For ``lmmse``.
     methods : sequence of str
@@ -176,8 +250,11 @@ def compare_predictions(
     return {"records": records, "summary": summary, "baseline": BASELINE, "predictions": kept if keep else None}
 
 
-def inter_mask(field: VectorField) -> np.ndarray:
-    """Pixels covered by the field's inter blocks (bool, height x width)."""
+def inter_mask(field) -> np.ndarray:
+    """Pixels covered by the field's inter blocks (bool, height x width); a `ReferenceFields`:
+    the inter blocks on any reference."""
+    if not isinstance(field, VectorField):
+        field = field.merged()
     return vector_maps(field)[2]
 
 

@@ -65,8 +65,35 @@ intra blocks the two differ most in those areas: `synth.evaluation.prediction` r
 over the inter blocks' pixels too.) Chroma uses the luma coefficients of its co-sited luma
 sample and the luma vectors scaled to its grid (bilinear, ITU-T H.264 clause 8.4.2.2.2).
 
-The fields carry one reference each (x264 with ``ref=1``, the built-in estimator); vectors pointing
-at different reference pictures are not combined here.
+Several reference pictures
+--------------------------
+When the blocks point at different reference pictures ``t_0 .. t_{N-1}`` (nearest first;
+`synth.motion.multi_reference.ReferenceFields`: one field per reference on one block grid, each
+block inter in one of them), observation ``i`` samples its own reference with its own vector::
+
+    o_i = ref_{k_i}(p + v_i)
+
+but the distances of equations 1 and 3 are measured between vectors mapped onto a common
+reference through the chain of coded vectors (`synth.synthesis.reference_chain`:
+``v_i^{(m)} = v_i + sum_k u_k(...)``, composed from each reference picture's own field against the
+next older one). The common reference of pixel ``p`` is the oldest reference among its own
+candidates, ``m(p) = max_i k_i``::
+
+    R_ij = a^{|v_i^{(m)} - v_j^{(m)}|},    e_i = sum_j pi_j |v_i^{(m)} - v_j^{(m)}|
+
+so two blocks that follow the same motion to different references count as agreeing, and a pixel
+whose candidates all point at one reference compares them as coded (the chain's own errors enter
+only where references mix). All of a pixel's distances are measured in one plane, so ``R`` stays
+an exponential kernel of points, positive definite (a pairwise choice, each pair on the older of
+its two references, mixes planes and is not; measured: several dB lost). One common reference for
+the whole picture (the oldest any block uses, ``distances='oldest'``) is the other choice
+(`tests/benchmarks/results/one-reference-quality.md` compares the three).
+
+The candidate search, the reliabilities and the coefficients are those of the one-reference case
+(block centres and sizes are the same whatever the reference), so with all blocks on one
+reference nothing changes (`predict_multi_reference`; one reference: `predict_one_reference`
+exactly). The fields of x264's exported vectors name no reference (FFmpeg's ``AVMotionVector``
+carries only a direction), so several references come from the built-in estimator.
 """
 
 from __future__ import annotations
@@ -89,6 +116,9 @@ __all__ = [
     "ONE_REFERENCE_FORMAT",
     "one_reference_coefficients",
     "predict_one_reference",
+    "predict_multi_reference",
+    "multi_reference_coefficients",
+    "sample_with_references",
     "sample_with_vector_maps",
     "own_block_map",
     "correlation_system",
@@ -266,18 +296,41 @@ def one_reference_coefficients(
         the nearest inter blocks (a field without any holds ``(1, 0, ..., 0)`` with a zero vector:
         the co-located sample).
     """
-    p = params or OneReferenceParams()
+    qx, qy, coef, _ = _coefficients(field, params or OneReferenceParams())
+    return qx, qy, coef
+
+
+def _coefficients(
+    field: VectorField,
+    p: OneReferenceParams,
+    distance: tuple[np.ndarray, np.ndarray] | None = None,
+    level: np.ndarray | None = None,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """`one_reference_coefficients`, with the vectors the distances are measured between and each
+    slot's inter block (index into ``np.flatnonzero(~field.intra)``, -1 in empty slots) returned.
+
+    `distance`: quarter-sample (dx, dy), shape (n,) per block of `field` (default: the field's own
+    vectors), or shape (N, n) with `level` (each block's reference index, shape (n,)): every
+    block's vector mapped onto each reference, a pixel's candidates compared on the oldest
+    reference among them.
+    """
     H, W, K = field.height, field.width, p.candidates
     own, inter = own_block_map(field)
     qx = np.zeros((K, H, W), np.int32)
     qy = np.zeros((K, H, W), np.int32)
     coef = np.zeros((K, H, W), np.float32)
     coef[0] = 1.0
+    slot = np.full((K, H, W), -1, np.int32)
     if len(inter) == 0:
-        return qx, qy, coef
+        return qx, qy, coef, slot
     landed = _landed(field, inter)
     bdx = field.dx[inter].astype(np.int32)
     bdy = field.dy[inter].astype(np.int32)
+    if distance is not None:
+        ddx = np.asarray(distance[0])[..., inter].astype(np.int32)
+        ddy = np.asarray(distance[1])[..., inter].astype(np.int32)
+    if level is not None:
+        blevel = np.asarray(level)[inter].astype(np.int64)
     bx = field.x[inter].astype(np.float32)
     by = field.y[inter].astype(np.float32)
     bw = field.w[inter].astype(np.float32)
@@ -314,8 +367,17 @@ def one_reference_coefficients(
         pi = q / q.sum(axis=0, keepdims=True)  # (K, P)
         vx = np.where(valid, bdx[safe], 0)
         vy = np.where(valid, bdy[safe], 0)
-        fx = vx.astype(np.float32) / 4
-        fy = vy.astype(np.float32) / 4
+        if distance is None:
+            fx = vx.astype(np.float32) / 4
+            fy = vy.astype(np.float32) / 4
+        elif level is None:  # vectors mapped onto the common reference (synth.synthesis.reference_chain)
+            fx = np.where(valid, ddx[safe], 0).astype(np.float32) / 4
+            fy = np.where(valid, ddy[safe], 0).astype(np.float32) / 4
+        else:  # per pixel on the oldest reference among its candidates (one space: R stays positive definite)
+            m = np.where(valid, blevel[safe], 0).max(axis=0)
+            at = np.broadcast_to(m[None, None, :], (1, K, P))
+            fx = np.where(valid, np.take_along_axis(ddx[:, safe], at, axis=0)[0], 0).astype(np.float32) / 4
+            fy = np.where(valid, np.take_along_axis(ddy[:, safe], at, axis=0)[0], 0).astype(np.float32) / 4
         R, r = correlation_system(fx, fy, pi, valid, spatial_correlation=p.spatial_correlation)
         w, _ = cholesky_solve_soa(R, r, loading=p.loading)
         rest = np.float32(1) - w.sum(axis=0, keepdims=True)
@@ -331,7 +393,8 @@ def one_reference_coefficients(
         coef[:, y0:y1] = c.reshape(K, rows, W)
         qx[:, y0:y1] = vx.reshape(K, rows, W)
         qy[:, y0:y1] = vy.reshape(K, rows, W)
-    return qx, qy, coef
+        slot[:, y0:y1] = idx.reshape(K, rows, W)
+    return qx, qy, coef, slot
 
 
 def correlation_system(
@@ -415,9 +478,22 @@ def sample_with_vector_maps(reference: Picture, qx: np.ndarray, qy: np.ndarray, 
     clause 8.4.2.2.2 (`synth.motion.subpel.chroma_bilinear`), vectors at 1 / (4 subsampling)
     chroma sample, coefficients of the co-sited luma sample.
     """
+    _check_maps(reference, qx, qy, coefficients)
+    return Picture.from_float(
+        _weighted_planes(reference, qx, qy, coefficients), chroma_format=reference.chroma_format,
+        bit_depth=reference.bit_depth,
+    )  # fmt: skip
+
+
+def _check_maps(reference: Picture, qx: np.ndarray, qy: np.ndarray, coefficients: np.ndarray) -> None:
     H, W = reference.height, reference.width
     if qx.shape[1:] != (H, W) or qy.shape != qx.shape or coefficients.shape != qx.shape:
         raise ParameterError(f"vector and coefficient maps must have shape (K, {H}, {W}), got {qx.shape}")
+
+
+def _weighted_planes(reference: Picture, qx: np.ndarray, qy: np.ndarray, coefficients: np.ndarray) -> list:
+    """The unrounded planes (float64) of `sample_with_vector_maps`."""
+    H, W = reference.height, reference.width
     bd = reference.bit_depth
     reach = int(max(np.abs(qx).max(initial=0), np.abs(qy).max(initial=0))) // 4 + 3
     pad = min(reach, max(H, W) + 3)
@@ -452,7 +528,121 @@ def sample_with_vector_maps(reference: Picture, qx: np.ndarray, qy: np.ndarray, 
                     samples = chroma_bilinear(plane, cx, cy, den_x=4 * fx, den_y=4 * fy, bit_depth=bd)
                 acc += ck * samples
             planes.append(acc)
-    return Picture.from_float(planes, chroma_format=reference.chroma_format, bit_depth=bd)
+    return planes
+
+
+def sample_with_references(
+    references, reference_index: np.ndarray, qx: np.ndarray, qy: np.ndarray, coefficients: np.ndarray
+) -> Picture:
+    """`sample_with_vector_maps` with a reference picture per slot and pixel.
+
+    Parameters
+    ----------
+    references : sequence of Picture
+        Same format each.
+    reference_index : ndarray of int, shape (K, height, width)
+        Index into `references` of the picture each slot samples.
+    qx, qy, coefficients : ndarray, shape (K, height, width)
+        As `sample_with_vector_maps`.
+
+    Returns
+    -------
+    Picture
+        ``sum_i c_i ref_{k_i}(p + v_i)``, rounded once (half up) and clipped; with one reference
+        exactly `sample_with_vector_maps`.
+    """
+    references = list(references)
+    if len(references) == 1:
+        return sample_with_vector_maps(references[0], qx, qy, coefficients)
+    first = references[0]
+    _check_maps(first, qx, qy, coefficients)
+    total = None
+    for k, ref in enumerate(references):
+        mask = reference_index == k
+        if k and not mask.any():
+            continue
+        planes = _weighted_planes(ref, qx, qy, np.where(mask, coefficients, np.float32(0)))
+        total = planes if total is None else [a + b for a, b in zip(total, planes)]
+    return Picture.from_float(total, chroma_format=first.chroma_format, bit_depth=first.bit_depth)
+
+
+#: How vectors to different references are compared (`multi_reference_coefficients`).
+DISTANCES = ("pixel", "oldest", "coded")
+
+
+def multi_reference_coefficients(
+    fields, *, params: OneReferenceParams | None = None, distances: str = "pixel"
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """`one_reference_coefficients` for blocks on several references (module docstring, "Several
+    reference pictures").
+
+    Parameters
+    ----------
+    fields : synth.motion.multi_reference.ReferenceFields
+    params : OneReferenceParams, optional
+    distances : {'pixel', 'oldest', 'coded'}
+        Where the distances of a pixel's candidate vectors are measured (module docstring,
+        "Several reference pictures"): ``pixel`` (the model) on the oldest reference among the
+        pixel's candidates, ``oldest`` on the oldest reference any block of the picture uses,
+        ``coded`` between the vectors as coded (these two only to measure the choice).
+
+    Returns
+    -------
+    qx, qy, coefficients : ndarray, shape (K, height, width)
+        Each slot's own vector (to its own reference) and coefficient.
+    reference_index : ndarray of int32, shape (K, height, width)
+        Index into ``fields.fields`` of the reference each slot samples (0 in empty slots).
+    """
+    from synth.synthesis.reference_chain import common_reference_vectors, vectors_on_every_reference
+
+    if distances not in DISTANCES:
+        raise ParameterError(f"distances must be one of {', '.join(DISTANCES)}, got {distances!r}")
+    p = params or OneReferenceParams()
+    merged = fields.merged()
+    which = fields.block_reference()
+    distance, level = None, None
+    if distances == "oldest":
+        mx, my, common = common_reference_vectors(fields)
+        distance = None if common == 0 else (mx, my)
+    elif distances == "pixel" and len({int(k) for k in which[which >= 0]}) > 1:
+        distance = vectors_on_every_reference(fields)
+        level = np.maximum(which, 0)
+    qx, qy, coef, slot = _coefficients(merged, p, distance, level)
+    of_inter = which[np.flatnonzero(~np.asarray(merged.intra, bool))]
+    if len(of_inter) == 0:
+        return qx, qy, coef, np.zeros(slot.shape, np.int32)
+    ref_index = np.where(slot >= 0, of_inter[np.maximum(slot, 0)], 0).astype(np.int32)
+    return qx, qy, coef, ref_index
+
+
+def predict_multi_reference(
+    references, fields, *, params: OneReferenceParams | None = None, distances: str = "pixel"
+) -> Picture:
+    """Predict the coded picture of `fields` (a `synth.motion.multi_reference.ReferenceFields`) from
+    its reference pictures (nearest first, one per field): the LMMSE combination with distances
+    measured on the common reference (module docstring, "Several reference pictures").
+
+    With one reference it is `predict_one_reference` exactly. `distances`: where vectors to
+    different references are compared (`multi_reference_coefficients`).
+
+    Raises
+    ------
+    ParameterError
+        When the number of pictures differs from the number of fields, or a size differs.
+    """
+    references = list(references)
+    if len(references) != len(fields):
+        raise ParameterError(f"{len(fields)} fields need {len(fields)} reference pictures, got {len(references)}")
+    if len(references) == 1:
+        return predict_one_reference(references[0], fields.fields[0], params=params)
+    first = fields.fields[0]
+    for ref in references:
+        if (first.width, first.height) != (ref.width, ref.height):
+            raise ParameterError(
+                f"fields are for {first.width}x{first.height} pictures, a reference is {ref.width}x{ref.height}"
+            )
+    qx, qy, coef, ref_index = multi_reference_coefficients(fields, params=params, distances=distances)
+    return sample_with_references(references, ref_index, qx, qy, coef)
 
 
 def predict_one_reference(
