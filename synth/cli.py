@@ -183,15 +183,16 @@ def calibrate(
     params: Path | None = typer.Option(None, "--params", help=HELP["calibrate.params"]),
     refine: bool = typer.Option(True, "--refine/--no-refine", help=HELP["calibrate.refine"]),
     evaluations: int = typer.Option(24, "--evaluations", help=HELP["calibrate.evaluations"]),
+    model: str = typer.Option("interpolation", "--model", help=HELP["calibrate.model"]),
     as_json: bool = _JSON,
 ) -> None:
-    """Fit the synthesis parameters and the learned reliability on training clips."""
+    """Fit the parameters of one model (the synthesis, or the one-reference predictor) on training clips."""
     from synth.commands.calibrate import format_calibrate, run_calibrate
 
     with Progress("calibrate") as bar:
         summary = run_calibrate(
             clips, output=output, gaps=gaps, pictures=pictures, per_gap=per_gap, vector_qp=vector_qp, params=params,
-            refine=refine, evaluations=evaluations, progress=bar,
+            refine=refine, evaluations=evaluations, model=model, progress=bar,
         )  # fmt: skip
     _emit(summary, as_json, format_calibrate)
 
@@ -349,6 +350,7 @@ def predict(
     params: Path | None = typer.Option(None, "--params", help=HELP["predict.params"]),
     report: Path | None = typer.Option(None, "--report", help=HELP["predict.report"]),
     output: Path | None = typer.Option(None, "--output", "-o", help=HELP["predict.output"]),
+    references: int = typer.Option(1, "--references", help=HELP["predict.references"]),
     as_json: bool = _JSON,
 ) -> None:
     """Predict inter pictures from their reference with their own vectors: block MC, OBMC and the LMMSE estimator."""
@@ -357,7 +359,7 @@ def predict(
     with Progress(f"predict {clip.name}") as bar:
         summary = run_predict(
             clip, pictures=pictures, vectors=vectors, vector_qp=vector_qp, params=params, report=report,
-            output=output, progress=bar,
+            output=output, references=references, progress=bar,
         )  # fmt: skip
     _emit(summary, as_json, format_predict)
 

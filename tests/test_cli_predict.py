@@ -47,7 +47,7 @@ def test_predict_json_summary_has_one_row_per_method(pan_clip, tmp_path):
         assert len(r) == 2
         # picture 2 = picture 1 moved by (-4, -2): exact inside
         assert np.array_equal(r.read(1).y[2:, 4:], truth.read(2).y[2:, 4:])
-    assert sorted(p.name for p in report.iterdir()) == ["results.csv", "results.json"]
+    assert sorted(p.name for p in report.iterdir()) == ["img", "report.html", "results.csv", "results.json"]
 
 
 def test_predict_bad_pictures_is_one_line_exit_2(pan_clip):

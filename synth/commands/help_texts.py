@@ -52,6 +52,11 @@ HELP: dict[str, str] = {
     "calibrate.params": "Starting synthesis parameter file (default: built-in values).",
     "calibrate.refine": "Refine by maximising prediction PSNR.",
     "calibrate.evaluations": "Most parameter sets the refinement tries.",
+    "calibrate.model": (
+        "Which parameters are calibrated: interpolation (the synthesis parameter file) or one-reference "
+        "(the file synth predict --params reads: each picture of --pictures against the one before, "
+        "built-in estimator's vectors at --vector-qp; --gaps, --per-gap and --evaluations are not used)."
+    ),
     "offsets.clip": "Clip file.",
     "offsets.at": "Picture number of the target (strictly between).",
     "offsets.output": "Offsets file to write (.json).",
@@ -105,4 +110,5 @@ HELP: dict[str, str] = {
     "predict.params": "One-reference predictor parameter file (JSON, format synth-one-reference-params).",
     "predict.report": "Folder for results.json and results.csv (one row per picture and method).",
     "predict.output": "Write the LMMSE predictions (display order) to this .y4m file.",
+    "predict.references": "Reference pictures per predicted picture, 1..4: with N > 1 each block of the built-in estimator's field points at the best of the N pictures before it (least SAD + lambda bits, reference index included), and the LMMSE estimator measures vector distances on the oldest reference used, through the chain of vectors. Needs --vectors estimate (x264's exported vectors do not say which reference a block uses).",
 }

@@ -1,5 +1,6 @@
 """What `synth predict` does: every inter picture of a clip (or those chosen) predicted from its
-reference (the picture before it) with its own vectors by block MC, OBMC and the per-pixel LMMSE
+reference (the picture before it; with ``--references N`` each block from the best of the N before
+it) with its own vectors by block MC, OBMC and the per-pixel LMMSE
 estimator (`synth.evaluation.prediction`), PSNR per method and the paired difference to block MC."""
 
 from __future__ import annotations
@@ -9,20 +10,75 @@ from pathlib import Path
 
 from synth.errors import ParameterError
 
-__all__ = ["run_predict", "format_predict", "prediction_inputs", "PREDICT_FORMAT", "PREDICT_SCHEMA_VERSION"]
+__all__ = [
+    "run_predict",
+    "format_predict",
+    "prediction_inputs",
+    "check_references",
+    "MAX_REFERENCES",
+    "PREDICT_FORMAT",
+    "PREDICT_SCHEMA_VERSION",
+]
 
 PREDICT_FORMAT = "synth-predict-summary"
 PREDICT_SCHEMA_VERSION = 1
 
 
-def prediction_inputs(clip, *, first: int, last: int, source, reader) -> list[tuple]:
+#: Largest ``--references``.
+MAX_REFERENCES = 4
+
+
+def check_references(references, source) -> int:
+    """``--references``: an integer 1..MAX_REFERENCES; above 1 only with the built-in estimator.
+
+    Raises
+    ------
+    ParameterError
+        Out of range, or several references with a coded source.
+    """
+    if isinstance(references, bool) or not isinstance(references, int) or not 1 <= references <= MAX_REFERENCES:
+        raise ParameterError(f"--references must be an integer in 1..{MAX_REFERENCES}, got {references!r}")
+    if references > 1 and source.kind == "x264":
+        raise ParameterError(
+            "--references above 1 needs --vectors estimate: the motion vectors FFmpeg exports from an H.264 "
+            "stream (AVMotionVector) give only the direction of each block's reference, not which one it is"
+        )
+    if references > 1 and source.kind != "estimate":
+        raise ParameterError(
+            f"--references above 1 needs --vectors estimate (--vectors {source.label} holds one field per "
+            "picture, against the one before)"
+        )
+    return references
+
+
+def prediction_inputs(clip, *, first: int, last: int, source, reader, references: int = 1) -> list[tuple]:
     """(number, target, reference, field) for the pictures ``first + 1 .. last``, each against the
     picture before it, with the vectors of `source` (a `synth.motion.sources.VectorSource`).
 
     ``x264``: the pictures first..last coded as I P P ... with one reference (``ref=1``), each P
     picture's own coded vectors (`synth.codec.hierarchy_coding`, structure ``('ippp', ...)``).
+
+    ``references`` > 1 (built-in estimator only, `check_references`): each picture ``k`` against
+    the pictures ``k - 1 .. k - N`` that exist from FIRST on (fewer for the first ones), as
+    (number, target, [references nearest first], `ReferenceFields`)
+    (`synth.motion.multi_reference.estimate_multi_reference`).
     """
     pictures = {k: reader.read(k) for k in range(first, last + 1)}
+    if references > 1:
+        from synth.motion.multi_reference import estimate_multi_reference
+
+        cache: dict = {}
+        out = []
+        for k in range(first + 1, last + 1):
+            times = [float(k - d) for d in range(1, references + 1) if k - d >= first]
+            fields = estimate_multi_reference(
+                {float(t): pictures[t] for t in range(max(first, k - references), k + 1)},
+                coded_time=float(k), reference_times=times, qp=source.qp, cache=cache, **source.options,
+            )  # fmt: skip
+            for key in [key for key in cache if key[0] < k - references]:
+                del cache[key]
+            out.append((k, pictures[k], [pictures[int(t)] for t in times], fields))
+        return out
     out = []
     if source.kind == "x264":
         from synth.codec.hierarchy_coding import coded_hierarchy_fields
@@ -57,6 +113,7 @@ def run_predict(
     params=None,
     report=None,
     output=None,
+    references: int = 1,
     progress=None,
 ) -> dict:
     """Run ``synth predict`` and return its JSON-ready summary.
@@ -77,6 +134,9 @@ def run_predict(
         ``--report DIR``: results.json (records and summary) and results.csv (records).
     output : path, optional
         ``-o OUT.y4m``: the LMMSE predictions in display order.
+    references : int
+        ``--references N`` (default 1): each picture against the N before it, each block on the
+        best of them (built-in estimator only; `check_references`).
     progress : callable, optional
 
     Returns
@@ -85,7 +145,9 @@ def run_predict(
         ``format``, ``schema_version``, ``clip``, ``vectors`` (the source's record),
         ``pictures`` (predicted numbers), ``baseline``, ``summary`` (one row per method:
         ``method``, ``psnr_y``, ``psnr_yuv``, ``pictures``, ``seconds_per_picture`` and, but for the
-        baseline, ``difference_y``/``difference_yuv``), ``params``, ``output``, ``report``.
+        baseline, ``difference_y``/``difference_yuv``), ``params``, ``references`` (N),
+        ``reference_use`` (inter blocks on each reference, nearest first, summed over the
+        pictures), ``output``, ``report``.
     """
     from synth.commands.options import parse_picture_range
     from synth.commands.outputs import check_distinct, check_output_dir, check_output_file
@@ -110,6 +172,7 @@ def run_predict(
             raise ParameterError(f"--params {str(params)!r}: no such file")
         one = OneReferenceParams.load(path)
     source = parse_vector_source(vectors, qp=qp, clip=clip)
+    references = check_references(references, source)
     with open_clip(clip) as reader:
         n = len(reader)
         first = 0 if span is None else span.first
@@ -118,7 +181,7 @@ def run_predict(
             raise ParameterError(
                 f"--pictures must name at least two pictures of the clip (it has 0..{n - 1}), got {pictures!r}"
             )
-        inputs = prediction_inputs(clip, first=first, last=last, source=source, reader=reader)
+        inputs = prediction_inputs(clip, first=first, last=last, source=source, reader=reader, references=references)
         info = reader.info
     result = compare_predictions(inputs, params=one, keep="lmmse" if output is not None else None, progress=progress)
     summary = {
@@ -130,6 +193,8 @@ def run_predict(
         "baseline": result["baseline"],
         "summary": result["summary"],
         "params": one.to_dict(),
+        "references": references,
+        "reference_use": _reference_use(inputs, references),
         "output": None,
         "report": None,
     }
@@ -139,8 +204,18 @@ def run_predict(
         write_clip(output, result["predictions"], info)
         summary["output"] = str(output)
     if report is not None:
-        summary["report"] = _write_report(Path(report), summary, result["records"])
+        summary["report"] = _write_report(Path(report), summary, result["records"], inputs=inputs, params=one)
     return summary
+
+
+def _reference_use(inputs: list[tuple], references: int) -> list[int]:
+    """Inter blocks on each reference (nearest first), summed over the predicted pictures."""
+    use = [0] * references
+    for *_, field in inputs:
+        counts = field.reference_use() if hasattr(field, "reference_use") else [int((~field.intra).sum())]
+        for k, c in enumerate(counts):
+            use[k] += c
+    return use
 
 
 def _describe_source(source, first: int, last: int) -> dict:
@@ -151,23 +226,35 @@ def _describe_source(source, first: int, last: int) -> dict:
     return record
 
 
-def _write_report(folder: Path, summary: dict, records: list[dict]) -> str:
-    """results.json (summary and records) and results.csv (records) in `folder`."""
+def _write_report(folder: Path, summary: dict, records: list[dict], *, inputs=(), params=None) -> str:
+    """results.json (summary and records), results.csv (records) and report.html with its ``img/``
+    folder (`synth.evaluation.predictpage`) in `folder`.
+
+    The page shows the error maps of the pictures where the estimator gains most and least over
+    block MC; those two are predicted again from `inputs` (the `prediction_inputs` tuples) with
+    `params`. Nothing is written until the page is built; then every file atomically, the page
+    last (`write_predict_page`).
+    """
     import csv
     import io
 
-    from synth.io import atomic_output
+    from synth.evaluation.prediction import BASELINE, predict_with
+    from synth.evaluation.predictpage import ESTIMATOR, extreme_pictures, write_predict_page
     from synth.io.jsonout import dumps_strict
 
     folder.mkdir(exist_ok=True)
-    with atomic_output(folder / "results.json", mode="w") as fh:
-        fh.write(dumps_strict({**summary, "records": records}, indent=2))
+    by_number = {k: (target, reference, field) for k, target, reference, field in inputs}
+    inspected = []
+    for entry in extreme_pictures(records, method=ESTIMATOR, baseline=BASELINE):
+        target, reference, field = by_number[entry["picture"]]
+        preds = {m: predict_with(m, reference, field, params=params) for m in (BASELINE, ESTIMATOR)}
+        inspected.append((entry, target, preds))
     buf = io.StringIO()
     writer = csv.DictWriter(buf, fieldnames=["picture", "method", "psnr_y", "psnr_yuv", "psnr_y_inter", "seconds"])
     writer.writeheader()
     writer.writerows(records)
-    with atomic_output(folder / "results.csv", mode="w") as fh:
-        fh.write(buf.getvalue())
+    results = {"results.json": dumps_strict({**summary, "records": records}, indent=2), "results.csv": buf.getvalue()}
+    write_predict_page(folder, summary, records, inspected=inspected, beside=results)
     return str(folder)
 
 
@@ -176,8 +263,10 @@ def format_predict(summary: dict) -> str:
     from synth.motion.sources import describe_record
 
     pics = summary["pictures"]
+    n_refs = summary.get("references", 1)
+    each = "each from the one before" if n_refs == 1 else f"each block from the best of the {n_refs} before"
     head = (
-        f"{summary['clip']}: {len(pics)} inter pictures ({pics[0]}..{pics[-1]}), each from the one before; "
+        f"{summary['clip']}: {len(pics)} inter pictures ({pics[0]}..{pics[-1]}), {each}; "
         f"vectors {describe_record(summary['vectors'])}"
     )
     lines = [
@@ -197,6 +286,11 @@ def format_predict(summary: dict) -> str:
             f"{diff:>34}"
         )
     lines.append("Y inter: PSNR-Y over the pixels of inter blocks (block MC predicts intra ones with zero motion)")
+    if n_refs > 1:
+        use = summary.get("reference_use") or []
+        total = sum(use) or 1
+        share = ", ".join(f"{k + 1} before: {100.0 * c / total:.1f} %" for k, c in enumerate(use))
+        lines.append(f"inter blocks per reference: {share}")
     if summary.get("output"):
         lines.append(f"predictions (lmmse): {summary['output']}")
     if summary.get("report"):
