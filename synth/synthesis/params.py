@@ -94,6 +94,14 @@ class SynthParams:
     motion_smoothing : int
         Width in luma samples (1..256) of the box filter that interpolates the vectors between
         neighbouring blocks when ``motion_cell`` is not 0 (1: the blocks are only re-cut).
+    cell_refinement : int
+        When not 0 (and ``motion_cell`` is not 0), every cell's vector is refined by a local search
+        of +- this many luma samples (then half and quarter samples) between the two references
+        (`synth.synthesis.refine_cells`); 0..8.
+    refinement_window : int
+        Side in luma samples (2..32) of the window matched around each cell by the refinement.
+    refinement_penalty : float
+        Cost per luma sample of refinement offset, in 8-bit sample units (>= 0).
     weight_cell : int
         Weights are computed per square cell of this many luma samples (1: per pixel); must divide
         ``group_size``.
@@ -134,6 +142,9 @@ class SynthParams:
     interpolation: str = "bicubic"
     motion_cell: int = 4
     motion_smoothing: int = 8
+    cell_refinement: int = 2
+    refinement_window: int = 8
+    refinement_penalty: float = 1.0
     weight_cell: int = 2
     idw_power: float = 2.0
     disagreement_threshold: float = 0.0
@@ -187,6 +198,8 @@ class SynthParams:
         integer("candidates_both_directions", 1, 32)
         integer("agreement_margin", 0, 16)
         integer("motion_smoothing", 1, 256)
+        integer("cell_refinement", 0, 8)
+        integer("refinement_window", 2, 32)
         if isinstance(self.motion_cell, bool) or self.motion_cell not in (0, 1, 2, 4, 8, 16):
             raise ParameterError(f"parameter motion_cell must be 0, 1, 2, 4, 8 or 16, got {_short(self.motion_cell)}")
         power_of_two("group_size")
@@ -206,6 +219,7 @@ class SynthParams:
             "idw_power": (lambda v: 0 <= v <= 8, "in [0, 8]"),
             "disagreement_threshold": (lambda v: 0 <= v <= 1, "in [0, 1]"),
             "border_margin": (lambda v: 0 <= v <= 64, "in [0, 64]"),
+            "refinement_penalty": (lambda v: 0 <= v <= 1000, "in [0, 1000]"),
             "learned_share": (lambda v: 0 <= v <= 1, "in [0, 1]"),
         }
         for name, (ok, rule) in rules.items():

