@@ -6,7 +6,8 @@ hierarchy references (layer 1: gap 8, layer 2: gap 4, layer 3: gap 2), without a
 and with each maker's picture as one. Makers: ``lmmse`` (the defaults), ``dis-medium``, ``lmmse``
 with the previous defaults (six-tap sampling on the coded blocks, ``lmmse-sixtap-blocks``),
 ``lmmse`` without cell refinement (``lmmse-unrefined``) and ``obmc``; ``--makers`` picks some, and
-``--variant NAME=KEY:VALUE,...`` adds ``lmmse`` with those parameters changed (repeatable). Vectors: the built-in estimator at each point's QP (``--vectors x264`` for PyAV's x264,
+``--variant NAME=KEY:VALUE,...`` adds ``lmmse`` with those parameters changed (repeatable);
+``--smooth-weight`` replaces the estimator's coarsest-level smoothness weight for the run. Vectors: the built-in estimator at each point's QP (``--vectors x264`` for PyAV's x264,
 ``--two-way`` for both coding directions).
 
 Usage::
@@ -64,7 +65,12 @@ def main() -> None:
         default=[],
         help="NAME=KEY:VALUE,...: lmmse with these parameters changed, e.g. reach4=cell_refinement:4",
     )
+    ap.add_argument("--smooth-weight", type=float, default=None, help="estimator smoothness weight (default: 1)")
     args = ap.parse_args()
+    if args.smooth_weight is not None:
+        import synth.motion.search
+
+        synth.motion.search.SMOOTH_WEIGHT = float(args.smooth_weight)
     variants = []
     for spec in args.variant:
         name, _, changes = spec.partition("=")
