@@ -53,7 +53,16 @@ VARIANTS = {
 
 
 def measure(
-    clip: str, *, gap: int, last: int | None, two_way: bool, variants, vector_qp=None, block_sizes=None, progress=True
+    clip: str,
+    *,
+    gap: int,
+    last: int | None,
+    two_way: bool,
+    variants,
+    vector_qp=None,
+    block_sizes=None,
+    estimator=None,
+    progress=True,
 ) -> list[dict]:
     reader = open_clip(clip)
     n = len(reader) if last is None else min(last + 1, len(reader))
@@ -70,6 +79,7 @@ def measure(
             row["psnr"] = {"real": picture_psnr(a.decoded["target"], target)["Y"]}
             row["picture_psnr"] = {}
             options = {} if block_sizes is None else {"block_sizes": tuple(block_sizes)}
+            options.update(estimator or {})
             vqp = qp if vector_qp is None else vector_qp
             fields = estimate_reference_fields(
                 dpast, dfuture, past_time=p, future_time=f, qp=vqp, two_way=two_way, **options
@@ -132,6 +142,8 @@ def main() -> None:
     )
     ap.add_argument("--block-sizes", default=None, help="estimator block sizes, e.g. 16,8 (default: the estimator's)")
     ap.add_argument("--variants", default="blocks-sixtap,blocks-bicubic,default")
+    ap.add_argument("--search-range", type=int, default=None, help="estimator search range (default: 64)")
+    ap.add_argument("--coarse-range", type=int, default=None, help="estimator coarse reach (default: the range)")
     ap.add_argument("--smooth-weight", type=float, default=None, help="estimator smoothness weight (default: 1)")
     ap.add_argument("--json", default=None)
     args = ap.parse_args()
@@ -149,6 +161,9 @@ def main() -> None:
         variants=variants,
         vector_qp=args.vector_qp,
         block_sizes=sizes,
+        estimator={
+            k: v for k, v in (("search_range", args.search_range), ("coarse_range", args.coarse_range)) if v is not None
+        },
     )
     summary = summarise(rows)
     print(f"{'picture':<22} {'BD-rate vs (a)':>15} {'PSNR-Y before coding':>22}")
