@@ -125,3 +125,17 @@ def test_synthesis_with_refinement_is_closer_to_the_truth_and_off_changes_nothin
     default_err, default_pic = error(SynthParams())
     if SynthParams().cell_refinement == 0:
         assert np.array_equal(default_pic.y, off_pic.y)
+
+
+def test_recent_results_drop_the_least_recently_used():
+    # Least-recently-used eviction (common practice for small caches).
+    from synth.synthesis.recent import RecentResults
+
+    cache = RecentResults(2)
+    cache.put("a", None, 1)
+    cache.put("b", None, 2)
+    assert cache.get("a") == 1  # "a" is now the most recent
+    cache.put("c", None, 3)
+    assert cache.get("b") is None and cache.get("a") == 1 and cache.get("c") == 3
+    cache.clear()
+    assert cache.get("a") is None

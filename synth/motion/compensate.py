@@ -16,6 +16,7 @@ import numpy as np
 
 from synth.errors import ParameterError
 from synth.field import VectorField
+from synth.motion.rate import block_label_map
 from synth.motion.subpel import chroma_bilinear, luma_phases
 from synth.picture import Picture
 
@@ -32,20 +33,11 @@ def vector_maps(field: VectorField) -> tuple[np.ndarray, np.ndarray, np.ndarray]
     inter : ndarray of bool, shape (height, width)
         Samples covered by a block with a vector.
     """
-    dx = np.zeros((field.height, field.width), dtype=np.int32)
-    dy = np.zeros_like(dx)
-    inter = np.zeros((field.height, field.width), dtype=bool)
-    rows = zip(
-        field.x.tolist(), field.y.tolist(), field.w.tolist(), field.h.tolist(),
-        field.dx.tolist(), field.dy.tolist(), field.intra.tolist(),
-    )  # fmt: skip
-    for x, y, w, h, vx, vy, intra in rows:
-        if intra:
-            continue
-        sl = (slice(max(y, 0), y + h), slice(max(x, 0), x + w))
-        dx[sl] = vx
-        dy[sl] = vy
-        inter[sl] = True
+    label = block_label_map(field)
+    index = np.maximum(label, 0)
+    inter = (label >= 0) & ~np.asarray(field.intra, bool)[index]
+    dx = np.where(inter, np.asarray(field.dx)[index], 0).astype(np.int32)
+    dy = np.where(inter, np.asarray(field.dy)[index], 0).astype(np.int32)
     return dx, dy, inter
 
 

@@ -18,10 +18,22 @@ __all__ = ["block_label_map", "field_predictors", "field_vector_bits"]
 
 
 def block_label_map(field: VectorField) -> np.ndarray:
-    """Index of the block covering each luma sample (-1 where none), shape (height, width)."""
+    """Index of the block covering each luma sample (-1 where none), shape (height, width).
+
+    Filled with one fancy-indexed assignment per block shape (a field's blocks lie inside its
+    picture and do not overlap, `synth.field_checks`).
+    """
     label = np.full((field.height, field.width), -1, dtype=np.int32)
-    for i, (x, y, w, h) in enumerate(zip(field.x.tolist(), field.y.tolist(), field.w.tolist(), field.h.tolist())):
-        label[max(y, 0) : y + h, max(x, 0) : x + w] = i
+    x, y = np.asarray(field.x, np.int64), np.asarray(field.y, np.int64)
+    w, h = np.asarray(field.w, np.int64), np.asarray(field.h, np.int64)
+    flat = label.reshape(-1)
+    shape_key = w * (1 << 20) + h
+    for key in np.unique(shape_key).tolist():
+        bw, bh = key >> 20, key & ((1 << 20) - 1)
+        (ids,) = np.nonzero(shape_key == key)
+        offsets = (np.arange(bh)[:, None] * field.width + np.arange(bw)[None, :]).ravel()
+        starts = y[ids] * field.width + x[ids]
+        flat[(starts[:, None] + offsets[None, :]).ravel()] = np.repeat(ids.astype(np.int32), bw * bh)
     return label
 
 

@@ -35,32 +35,16 @@ interpolated ones.
 
 from __future__ import annotations
 
-import threading
-from collections import OrderedDict
-
 import cv2
 import numpy as np
 
 from synth.errors import ParameterError
 from synth.field import VectorField
+from synth.motion.rate import block_label_map
 from synth.picture import Picture
+from synth.synthesis.recent import RecentResults
 
 __all__ = ["refine_cells", "refine_fields"]
-
-
-def _cell_index(field: VectorField) -> np.ndarray:
-    """Per-sample index of the block covering it (-1 where none does); one pass per block shape."""
-    index = np.full((int(field.height), int(field.width)), -1, np.int64)
-    x, y = np.asarray(field.x, np.int64), np.asarray(field.y, np.int64)
-    w, h = np.asarray(field.w, np.int64), np.asarray(field.h, np.int64)
-    shape_key = w * (1 << 20) + h
-    for key in np.unique(shape_key).tolist():
-        bw, bh = key >> 20, key & ((1 << 20) - 1)
-        (ids,) = np.nonzero(shape_key == key)
-        rows = y[ids, None, None] + np.arange(bh)[None, :, None]
-        cols = x[ids, None, None] + np.arange(bw)[None, None, :]
-        index[rows, cols] = ids[:, None, None]
-    return index
 
 
 def _offsets_first_ring(reach: int) -> list[tuple[int, int]]:
@@ -117,7 +101,7 @@ def refine_cells(
     inter = ~np.asarray(field.intra, bool)
     if not inter.any():
         return field
-    index = _cell_index(field)
+    index = block_label_map(field)
     covered = index >= 0
     safe_index = np.maximum(index, 0)
     vx = np.asarray(field.dx, np.int64)
@@ -195,9 +179,7 @@ def refine_cells(
 
 #: Recently refined field sets (every picture between one reference pair uses the same fields);
 #: keyed by the identity of the fields and pictures, which the entry keeps alive.
-_RECENT: OrderedDict = OrderedDict()
-_RECENT_SIZE = 4
-_RECENT_LOCK = threading.Lock()
+RECENT = RecentResults(4)
 
 
 def refine_fields(
@@ -210,17 +192,11 @@ def refine_fields(
     fields = list(fields)
     pairs = [(pictures.get(float(f.coded_time)), pictures.get(float(f.reference_time))) for f in fields]
     key = (tuple(id(f) for f in fields), tuple(id(p) for pair in pairs for p in pair), reach, window, penalty)
-    with _RECENT_LOCK:
-        hit = _RECENT.get(key)
-        if hit is not None:
-            _RECENT.move_to_end(key)
-            return list(hit[1])
-    out = [
-        f if c is None or r is None else refine_cells(f, c, r, reach=reach, window=window, penalty=penalty)
-        for f, (c, r) in zip(fields, pairs)
-    ]
-    with _RECENT_LOCK:
-        _RECENT[key] = ((fields, pairs), out)
-        while len(_RECENT) > _RECENT_SIZE:
-            _RECENT.popitem(last=False)
+    out = RECENT.get(key)
+    if out is None:
+        out = [
+            f if c is None or r is None else refine_cells(f, c, r, reach=reach, window=window, penalty=penalty)
+            for f, (c, r) in zip(fields, pairs)
+        ]
+        RECENT.put(key, (fields, pairs), out)
     return list(out)

@@ -28,36 +28,27 @@ The box filter is the separable moving average (common practice); ``cv2.blur`` c
 
 from __future__ import annotations
 
-import threading
-from collections import OrderedDict
-
 import cv2
 import numpy as np
 
 from synth.errors import ParameterError
 from synth.field import VectorField
+from synth.motion.rate import block_label_map
+from synth.synthesis.recent import RecentResults
 
 __all__ = ["smooth_cells", "smooth_fields"]
 
 
 def _vector_map(field: VectorField) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Per-sample dx, dy (quarter samples, float32), inter mask and intra mask of a field."""
-    H, W = int(field.height), int(field.width)
-    dx = np.zeros((H, W), np.float32)
-    dy = np.zeros((H, W), np.float32)
-    inter = np.zeros((H, W), np.float32)
-    intra = np.zeros((H, W), bool)
-    for x, y, w, h, vx, vy, is_intra in zip(
-        field.x.tolist(), field.y.tolist(), field.w.tolist(), field.h.tolist(),
-        field.dx.tolist(), field.dy.tolist(), field.intra.tolist(),
-    ):  # fmt: skip
-        if is_intra:
-            intra[y : y + h, x : x + w] = True
-            continue
-        dx[y : y + h, x : x + w] = vx
-        dy[y : y + h, x : x + w] = vy
-        inter[y : y + h, x : x + w] = 1.0
-    return dx, dy, inter, intra
+    label = block_label_map(field)
+    covered = label >= 0
+    index = np.maximum(label, 0)
+    intra = covered & np.asarray(field.intra, bool)[index]
+    inter = covered & ~intra
+    dx = np.where(inter, np.asarray(field.dx)[index], 0).astype(np.float32)
+    dy = np.where(inter, np.asarray(field.dy)[index], 0).astype(np.float32)
+    return dx, dy, inter.astype(np.float32), intra
 
 
 def smooth_cells(
@@ -139,25 +130,16 @@ def smooth_cells(
 
 
 #: Recently smoothed field sets: every picture between one reference pair is synthesised from the
-#: same fields, so they are re-cut once per pair, not once per picture. Keyed by the fields' identity
-#: (a `VectorField` is immutable); the entry keeps the fields alive so an identity is never reused.
-_RECENT: OrderedDict = OrderedDict()
-_RECENT_SIZE = 4
-_RECENT_LOCK = threading.Lock()
+#: same fields, so they are re-cut once per pair, not once per picture.
+RECENT = RecentResults(4)
 
 
 def smooth_fields(fields, *, cell: int = 4, smoothing: int = 8, max_change: float | None = None) -> list[VectorField]:
     """`smooth_cells` applied to every field of a sequence (the last few results are reused)."""
     fields = list(fields)
     key = (tuple(id(f) for f in fields), cell, smoothing, max_change)
-    with _RECENT_LOCK:
-        hit = _RECENT.get(key)
-        if hit is not None:
-            _RECENT.move_to_end(key)
-            return list(hit[1])
-    out = [smooth_cells(f, cell=cell, smoothing=smoothing, max_change=max_change) for f in fields]
-    with _RECENT_LOCK:
-        _RECENT[key] = (fields, out)
-        while len(_RECENT) > _RECENT_SIZE:
-            _RECENT.popitem(last=False)
+    out = RECENT.get(key)
+    if out is None:
+        out = [smooth_cells(f, cell=cell, smoothing=smoothing, max_change=max_change) for f in fields]
+        RECENT.put(key, fields, out)
     return list(out)

@@ -88,8 +88,8 @@ def main(argv=None):
     dis_interpolate(past, future, 0.5)
     ts, td, cs, cd, tf = [], [], [], [], []
     for _ in range(a.repeat):
-        smooth_motion._RECENT.clear()
-        refine_cells._RECENT.clear()
+        smooth_motion.RECENT.clear()
+        refine_cells.RECENT.clear()
         t0 = time.perf_counter()
         synthesise(past, future, fields, t=0.5, params=params, workers=a.workers)
         tf.append(time.perf_counter() - t0)
