@@ -20,7 +20,7 @@ __all__ = ["block_label_map", "field_predictors", "field_vector_bits"]
 def block_label_map(field: VectorField) -> np.ndarray:
     """Index of the block covering each luma sample (-1 where none), shape (height, width).
 
-    Filled with one fancy-indexed assignment per block shape (a field's blocks lie inside its
+    Filled with one scatter into the flattened map per block shape (a field's blocks lie inside its
     picture and do not overlap, `synth.field_checks`).
     """
     label = np.full((field.height, field.width), -1, dtype=np.int32)

@@ -98,14 +98,21 @@ def refine_cells(
     for pic, name in ((coded, "coded"), (reference, "reference")):
         if (pic.height, pic.width) != (H, W):
             raise ParameterError(f"the {name} picture is {pic.width}x{pic.height}, the field {W}x{H}")
-    inter = ~np.asarray(field.intra, bool)
+    vx = np.asarray(field.dx, np.int64)
+    vy = np.asarray(field.dy, np.int64)
+    cx = np.minimum(field.x + (field.w - 1) // 2, W - 1)
+    cy = np.minimum(field.y + (field.h - 1) // 2, H - 1)
+    # Inter cells whose searched window stays on the reference (two more samples for the cubic kernel).
+    margin = int(window) // 2 + int(reach) + 2
+    ex = cx + vx / 4.0
+    ey = cy + vy / 4.0
+    inside = (ex - margin >= 0) & (ex + margin <= W - 1) & (ey - margin >= 0) & (ey + margin <= H - 1)
+    inter = ~np.asarray(field.intra, bool) & inside
     if not inter.any():
         return field
     index = block_label_map(field)
     covered = index >= 0
     safe_index = np.maximum(index, 0)
-    vx = np.asarray(field.dx, np.int64)
-    vy = np.asarray(field.dy, np.int64)
     base_x = np.where(covered, vx[safe_index], 0).astype(np.float32)
     base_y = np.where(covered, vy[safe_index], 0).astype(np.float32)
     a = coded.y.astype(np.float32)
@@ -113,17 +120,7 @@ def refine_cells(
     scale = float(1 << (coded.bit_depth - 8))
     map_x = np.arange(W, dtype=np.float32)[None, :] + base_x / 4.0
     map_y = np.arange(H, dtype=np.float32)[:, None] + base_y / 4.0
-    cx = np.minimum(field.x + (field.w - 1) // 2, W - 1)
-    cy = np.minimum(field.y + (field.h - 1) // 2, H - 1)
     k = (int(window), int(window))
-    # Cells whose searched window stays on the reference (two more samples for the cubic kernel).
-    margin = int(window) // 2 + int(reach) + 2
-    ex = cx + vx / 4.0
-    ey = cy + vy / 4.0
-    inside = (ex - margin >= 0) & (ex + margin <= W - 1) & (ey - margin >= 0) & (ey + margin <= H - 1)
-    inter = inter & inside
-    if not inter.any():
-        return field
 
     def mad(mx: np.ndarray, my: np.ndarray) -> np.ndarray:
         """Mean absolute difference per cell with the reference sampled at (mx, my)."""
