@@ -102,6 +102,13 @@ class SynthParams:
         Side in luma samples (2..32) of the window matched around each cell by the refinement.
     refinement_penalty : float
         Cost per luma sample of refinement offset, in 8-bit sample units (>= 0).
+    refinement_median : int
+        0, or an odd window of 3..65 cells: after the refinement's local search, a cell takes the
+        vector median of this many cells around it where the median matches almost as well
+        (`synth.synthesis.refine_cells`).
+    refinement_median_weight : float
+        How much worse (8-bit units per luma sample of vector difference, 0..1000) the median may
+        match and still be taken.
     weight_cell : int
         Weights are computed per square cell of this many luma samples (1: per pixel); must divide
         ``group_size``.
@@ -145,6 +152,8 @@ class SynthParams:
     cell_refinement: int = 2
     refinement_window: int = 8
     refinement_penalty: float = 1.0
+    refinement_median: int = 0
+    refinement_median_weight: float = 0.5
     weight_cell: int = 2
     idw_power: float = 2.0
     disagreement_threshold: float = 0.0
@@ -200,6 +209,11 @@ class SynthParams:
         integer("motion_smoothing", 1, 256)
         integer("cell_refinement", 0, 8)
         integer("refinement_window", 2, 32)
+        integer("refinement_median", 0, 65)
+        if self.refinement_median and (self.refinement_median < 3 or self.refinement_median % 2 == 0):
+            raise ParameterError(
+                f"parameter refinement_median must be 0 or odd in [3, 65], got {self.refinement_median!r}"
+            )
         if isinstance(self.motion_cell, bool) or self.motion_cell not in (0, 1, 2, 4, 8, 16):
             raise ParameterError(f"parameter motion_cell must be 0, 1, 2, 4, 8 or 16, got {_short(self.motion_cell)}")
         power_of_two("group_size")
@@ -220,6 +234,7 @@ class SynthParams:
             "disagreement_threshold": (lambda v: 0 <= v <= 1, "in [0, 1]"),
             "border_margin": (lambda v: 0 <= v <= 64, "in [0, 64]"),
             "refinement_penalty": (lambda v: 0 <= v <= 1000, "in [0, 1000]"),
+            "refinement_median_weight": (lambda v: 0 <= v <= 1000, "in [0, 1000]"),
             "learned_share": (lambda v: 0 <= v <= 1, "in [0, 1]"),
         }
         for name, (ok, rule) in rules.items():

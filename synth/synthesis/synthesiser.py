@@ -647,6 +647,8 @@ def _synthesise(past, future, fields, *, t, params, rows, past_time, future_time
                 reach=params.cell_refinement,
                 window=params.refinement_window,
                 penalty=params.refinement_penalty,
+                median_window=params.refinement_median,
+                median_weight=params.refinement_median_weight,
             )
     landed = project_fields(fields, past_time=pt, future_time=ft, t=float(t))
     _check_reach(landed, past.width, past.height)

@@ -142,12 +142,28 @@ def main() -> None:
     )
     ap.add_argument("--block-sizes", default=None, help="estimator block sizes, e.g. 16,8 (default: the estimator's)")
     ap.add_argument("--variants", default="blocks-sixtap,blocks-bicubic,default")
+    ap.add_argument(
+        "--variant",
+        action="append",
+        default=[],
+        help="NAME=KEY:VALUE,...: one more variant, the defaults with these parameters changed (repeatable)",
+    )
     ap.add_argument("--search-range", type=int, default=None, help="estimator search range (default: 64)")
     ap.add_argument("--coarse-range", type=int, default=None, help="estimator coarse reach (default: the range)")
     ap.add_argument("--smooth-weight", type=float, default=None, help="estimator smoothness weight (default: 1)")
     ap.add_argument("--json", default=None)
     args = ap.parse_args()
     variants = [v for v in args.variants.split(",") if v]
+    for spec in args.variant:
+        name, _, changes = spec.partition("=")
+        pairs = [c.split(":", 1) for c in changes.split(",") if c]
+        if not name or any(len(p) != 2 for p in pairs):
+            ap.error(f"--variant {spec!r}: expected NAME=KEY:VALUE,...")
+        VARIANTS[name] = {k: json.loads(v) for k, v in pairs}
+        variants.append(name)
+    unknown = sorted(set(variants) - set(VARIANTS))
+    if unknown:
+        ap.error(f"unknown variants {unknown}; choose among {', '.join(VARIANTS)} or give --variant")
     if args.smooth_weight is not None:
         import synth.motion.search
 
