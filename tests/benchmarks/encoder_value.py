@@ -14,8 +14,11 @@ the optical-flow baseline ``dis-medium`` and ``obmc`` of the same vectors.
 Usage::
 
     .venv/bin/python tests/benchmarks/encoder_value.py CLIP [--gap 8] [--last N] [--two-way]
-        [--variants blocks-sixtap,default] [--smooth-weight W] [--json OUT]
+        [--variants blocks-sixtap,default] [--variant NAME=KEY:VALUE,...] [--smooth-weight W]
+        [--json OUT]
 
+``--variant`` adds one more ``lmmse:NAME`` row, the defaults with those parameters changed (values
+in JSON, e.g. ``--variant med17=refinement_median:17``); it may be repeated.
 ``--smooth-weight`` replaces the estimator's coarsest-level smoothness weight
 (`synth.motion.search.SMOOTH_WEIGHT`, default 1) for this run.
 
