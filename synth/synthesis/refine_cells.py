@@ -191,6 +191,8 @@ def refine_cells(
         rx, ry = _median_candidate(
             field,
             index,
+            cx,
+            cy,
             inter,
             rx,
             ry,
@@ -216,7 +218,7 @@ def refine_cells(
     )
 
 
-def _median_candidate(field, index, inter, rx, ry, data, mad, *, window, weight, margin):
+def _median_candidate(field, index, cx, cy, inter, rx, ry, data, mad, *, window, weight, margin):
     """Replace cells by the vector median of their neighbourhood where that costs little (see `refine_cells`).
 
     The median is taken per component over a square of ``window`` x ``window`` cells (the vector
@@ -226,10 +228,7 @@ def _median_candidate(field, index, inter, rx, ry, data, mad, *, window, weight,
     ``weight`` times their L1 difference in luma samples.
     """
     H, W = index.shape
-    x, y = np.asarray(field.x, np.int64), np.asarray(field.y, np.int64)
-    w, h = np.asarray(field.w, np.int64), np.asarray(field.h, np.int64)
-    step = int(max(1, min(w.min(), h.min())))
-    cx, cy = np.minimum(x + (w - 1) // 2, W - 1), np.minimum(y + (h - 1) // 2, H - 1)
+    step = int(max(1, min(np.min(field.w), np.min(field.h))))
     gy, gx = np.arange(step // 2, H, step), np.arange(step // 2, W, step)
     label = index[gy[:, None], gx[None, :]]
     usable = (label >= 0) & ~np.asarray(field.intra, bool)[np.maximum(label, 0)]
@@ -259,47 +258,22 @@ def _median_candidate(field, index, inter, rx, ry, data, mad, *, window, weight,
 RECENT = RecentResults(4)
 
 
-def refine_fields(
-    fields,
-    pictures: dict,
-    *,
-    reach: int = 2,
-    window: int = 8,
-    penalty: float = 1.0,
-    median_window: int = 0,
-    median_weight: float = 0.5,
-) -> list[VectorField]:
+def refine_fields(fields, pictures: dict, **options) -> list[VectorField]:
     """`refine_cells` for every field whose two pictures are in `pictures` ({time: Picture}).
 
-    A field between other pictures is returned as it is. The last few results are reused.
+    ``options`` are `refine_cells`'s keywords (``reach``, ``window``, ``penalty``, ``median_window``,
+    ``median_weight``). A field between other pictures is returned as it is. The last few results
+    are reused.
     """
     fields = list(fields)
     pairs = [(pictures.get(float(f.coded_time)), pictures.get(float(f.reference_time))) for f in fields]
     key = (
         tuple(id(f) for f in fields),
         tuple(id(p) for pair in pairs for p in pair),
-        reach,
-        window,
-        penalty,
-        median_window,
-        median_weight,
+        tuple(sorted(options.items())),
     )
     out = RECENT.get(key)
     if out is None:
-        out = [
-            f
-            if c is None or r is None
-            else refine_cells(
-                f,
-                c,
-                r,
-                reach=reach,
-                window=window,
-                penalty=penalty,
-                median_window=median_window,
-                median_weight=median_weight,
-            )
-            for f, (c, r) in zip(fields, pairs)
-        ]
+        out = [f if c is None or r is None else refine_cells(f, c, r, **options) for f, (c, r) in zip(fields, pairs)]
         RECENT.put(key, (fields, pairs), out)
     return list(out)

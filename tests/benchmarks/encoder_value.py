@@ -55,6 +55,15 @@ VARIANTS = {
 }
 
 
+def parse_variant(spec: str) -> tuple[str, dict] | None:
+    """``NAME=KEY:VALUE,...`` (values in JSON) as (NAME, {KEY: value}); None when malformed."""
+    name, _, changes = spec.partition("=")
+    pairs = [c.split(":", 1) for c in changes.split(",") if c]
+    if not name or any(len(p) != 2 for p in pairs):
+        return None
+    return name, {k: json.loads(v) for k, v in pairs}
+
+
 def measure(
     clip: str,
     *,
@@ -158,12 +167,11 @@ def main() -> None:
     args = ap.parse_args()
     variants = [v for v in args.variants.split(",") if v]
     for spec in args.variant:
-        name, _, changes = spec.partition("=")
-        pairs = [c.split(":", 1) for c in changes.split(",") if c]
-        if not name or any(len(p) != 2 for p in pairs):
+        parsed = parse_variant(spec)
+        if parsed is None:
             ap.error(f"--variant {spec!r}: expected NAME=KEY:VALUE,...")
-        VARIANTS[name] = {k: json.loads(v) for k, v in pairs}
-        variants.append(name)
+        VARIANTS[parsed[0]] = parsed[1]
+        variants.append(parsed[0])
     unknown = sorted(set(variants) - set(VARIANTS))
     if unknown:
         ap.error(f"unknown variants {unknown}; choose among {', '.join(VARIANTS)} or give --variant")

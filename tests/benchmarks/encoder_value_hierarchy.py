@@ -26,6 +26,8 @@ import json
 import sys
 import time
 
+from encoder_value import parse_variant  # this directory is on sys.path when run as a script
+
 from synth.codec.rdmeasure import measure_clip, summarise_clips
 from synth.io import open_clip
 from synth.makers import get_maker
@@ -73,12 +75,10 @@ def main() -> None:
         synth.motion.search.SMOOTH_WEIGHT = float(args.smooth_weight)
     variants = []
     for spec in args.variant:
-        name, _, changes = spec.partition("=")
-        pairs = [c.split(":", 1) for c in changes.split(",") if c]
-        if not name or any(len(p) != 2 for p in pairs):
+        parsed = parse_variant(spec)
+        if parsed is None:
             ap.error(f"--variant {spec!r}: expected NAME=KEY:VALUE,...")
-        params = SynthParams().with_changes(**{k: json.loads(v) for k, v in pairs})
-        variants.append(with_params(f"lmmse-{name}", params))
+        variants.append(with_params(f"lmmse-{parsed[0]}", SynthParams().with_changes(**parsed[1])))
     chosen = [m.strip() for m in args.makers.split(",") if m.strip()]
     unknown = sorted(set(chosen) - set(MAKERS))
     if unknown or not (chosen or variants):
