@@ -12,8 +12,9 @@ import cv2
 import numpy as np
 
 from synth.errors import ParameterError
+from synth.picture import Picture
 
-__all__ = ["check_flow", "sample_with_flow", "scale_flow_to_plane"]
+__all__ = ["check_flow", "dis_flow", "luma8", "sample_with_flow", "scale_flow_to_plane"]
 
 _INTERPOLATION = {"nearest": cv2.INTER_NEAREST, "bilinear": cv2.INTER_LINEAR, "bicubic": cv2.INTER_CUBIC}
 
@@ -51,3 +52,23 @@ def scale_flow_to_plane(flow: np.ndarray, factor_x: int, factor_y: int) -> np.nd
         return flow
     sub = flow[::factor_y, ::factor_x].astype(np.float32)
     return np.stack([sub[..., 0] / factor_x, sub[..., 1] / factor_y], axis=-1)
+
+
+def luma8(picture: Picture) -> np.ndarray:
+    """The luma plane of `picture` as 8-bit samples (deeper samples rounded to the nearest 8-bit value)."""
+    y = picture.y
+    if picture.bit_depth == 8:
+        return np.ascontiguousarray(y)
+    shift = picture.bit_depth - 8
+    return np.clip((y.astype(np.uint32) + (1 << (shift - 1))) >> shift, 0, 255).astype(np.uint8)
+
+
+def dis_flow(a: np.ndarray, b: np.ndarray, *, preset: str = "medium") -> np.ndarray:
+    """Dense flow on 8-bit plane `a` pointing to `b` with OpenCV's DIS ('ultrafast', 'fast', 'medium')."""
+    presets = {
+        "ultrafast": cv2.DISOPTICAL_FLOW_PRESET_ULTRAFAST,
+        "fast": cv2.DISOPTICAL_FLOW_PRESET_FAST,
+        "medium": cv2.DISOPTICAL_FLOW_PRESET_MEDIUM,
+    }
+    dis = cv2.DISOpticalFlow_create(presets[preset])
+    return dis.calc(a, b, None).astype(np.float32)

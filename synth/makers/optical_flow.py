@@ -48,7 +48,7 @@ from functools import partial
 import cv2
 import numpy as np
 
-from synth.flow import sample_with_flow, scale_flow_to_plane
+from synth.flow import dis_flow, luma8, sample_with_flow, scale_flow_to_plane
 from synth.picture import Picture
 
 __all__ = [
@@ -67,25 +67,6 @@ INVERSION_STEPS = 5
 #: Near and far samples of a trajectory failing its round trip must differ by more than this
 #: (8-bit units, scaled for deeper pictures) before the far sample is dropped as occluded.
 OCCLUSION_SAMPLE_GAP = 40.0
-
-
-def _luma8(picture: Picture) -> np.ndarray:
-    y = picture.y
-    if picture.bit_depth == 8:
-        return np.ascontiguousarray(y)
-    shift = picture.bit_depth - 8
-    return np.clip((y.astype(np.uint32) + (1 << (shift - 1))) >> shift, 0, 255).astype(np.uint8)
-
-
-def dis_flow(a: np.ndarray, b: np.ndarray, *, preset: str = "medium") -> np.ndarray:
-    """Dense flow on 8-bit plane `a` pointing to `b` with OpenCV's DIS ('ultrafast', 'fast', 'medium')."""
-    presets = {
-        "ultrafast": cv2.DISOPTICAL_FLOW_PRESET_ULTRAFAST,
-        "fast": cv2.DISOPTICAL_FLOW_PRESET_FAST,
-        "medium": cv2.DISOPTICAL_FLOW_PRESET_MEDIUM,
-    }
-    dis = cv2.DISOpticalFlow_create(presets[preset])
-    return dis.calc(a, b, None).astype(np.float32)
 
 
 def farneback_flow(a: np.ndarray, b: np.ndarray) -> np.ndarray:
@@ -210,7 +191,7 @@ class FlowPair:
 
 def _flow_preparer(flow: Callable[[np.ndarray, np.ndarray], np.ndarray]):
     def prepare(past: Picture, future: Picture, *, fields=None, params=None) -> FlowPair:
-        a, b = _luma8(past), _luma8(future)
+        a, b = luma8(past), luma8(future)
         return FlowPair(past, future, flow(a, b), flow(b, a))
 
     return prepare

@@ -109,6 +109,10 @@ class SynthParams:
     refinement_median_weight : float
         How much worse (8-bit units per luma sample of vector difference, 0..1000) the median may
         match and still be taken.
+    flow_guard : float
+        0 (off), or a distance in luma samples (0.25..1024): after the refinement, a cell whose
+        vector lies further than this from DIS optical flow averaged over the cell takes that
+        average (`synth.synthesis.flow_guard`).
     weight_cell : int
         Weights are computed per square cell of this many luma samples (1: per pixel); must divide
         ``group_size``.
@@ -154,6 +158,7 @@ class SynthParams:
     refinement_penalty: float = 1.0
     refinement_median: int = 0
     refinement_median_weight: float = 0.5
+    flow_guard: float = 0.0
     weight_cell: int = 2
     idw_power: float = 2.0
     disagreement_threshold: float = 0.0
@@ -235,6 +240,7 @@ class SynthParams:
             "border_margin": (lambda v: 0 <= v <= 64, "in [0, 64]"),
             "refinement_penalty": (lambda v: 0 <= v <= 1000, "in [0, 1000]"),
             "refinement_median_weight": (lambda v: 0 <= v <= 1000, "in [0, 1000]"),
+            "flow_guard": (lambda v: v == 0 or 0.25 <= v <= 1024, "0 or in [0.25, 1024]"),
             "learned_share": (lambda v: 0 <= v <= 1, "in [0, 1]"),
         }
         for name, (ok, rule) in rules.items():

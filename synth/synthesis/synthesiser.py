@@ -49,6 +49,7 @@ from synth.errors import ParameterError
 from synth.field import VectorField
 from synth.picture import Picture
 from synth.synthesis.candidates import CandidateSearch
+from synth.synthesis.flow_guard import guard_fields
 from synth.synthesis.lmmse import (
     distance_reliability,
     endpoint_agreement_stats,
@@ -650,6 +651,8 @@ def _synthesise(past, future, fields, *, t, params, rows, past_time, future_time
                 median_window=params.refinement_median,
                 median_weight=params.refinement_median_weight,
             )
+        if params.flow_guard:
+            fields = guard_fields(fields, {float(pt): past, float(ft): future}, distance=params.flow_guard)
     landed = project_fields(fields, past_time=pt, future_time=ft, t=float(t))
     _check_reach(landed, past.width, past.height)
     H, W = past.height, past.width

@@ -21,9 +21,9 @@ import numpy as np
 from synth.codec.bdrate import bd_rate
 from synth.codec.bpicture import code_b_target
 from synth.field import VectorField
+from synth.flow import dis_flow, luma8
 from synth.io import open_clip
 from synth.makers import get_maker
-from synth.makers.optical_flow import _luma8, dis_flow
 from synth.metrics import picture_psnr
 from synth.motion.estimator import estimate_reference_fields
 from synth.motion.rate import block_label_map
@@ -69,7 +69,7 @@ def main() -> None:
             dp, df = anchor.decoded["past"], anchor.decoded["future"]
             fields = estimate_reference_fields(dp, df, past_time=p, future_time=f, qp=qp)
             cells = refine_fields(smooth_fields(fields, cell=4, smoothing=8), {float(p): dp, float(f): df})[0]
-            fx, fy = flow_per_cell(cells, dis_flow(_luma8(df), _luma8(dp)))
+            fx, fy = flow_per_cell(cells, dis_flow(luma8(df), luma8(dp)))
             far = np.hypot(cells.dx - fx, cells.dy - fy) / 4 > swap
             far &= ~np.asarray(cells.intra, bool)
             shares.append(float(far.mean()))
