@@ -191,9 +191,18 @@ def atomic_output(path: str | os.PathLike, mode: str = "wb") -> Iterator[IO]:
         remove_stale_temporaries(folder)
     tmp = str(temporary_name(path))
     owner = os.getpid()
+    # registered before it exists: a signal arriving between the two steps must not leave an
+    # unregistered file behind (the exit handler skips names that do not exist)
     with _LOCK:
-        fd = os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_EXCL | getattr(os, "O_CLOEXEC", 0), 0o666)
         _LIVE.add(tmp)
+    try:
+        fd = os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_EXCL | getattr(os, "O_CLOEXEC", 0), 0o666)
+    except BaseException:  # the open failed, or a signal came just after it (the name is ours alone)
+        with contextlib.suppress(OSError):
+            os.unlink(tmp)
+        with _LOCK:
+            _LIVE.discard(tmp)
+        raise
     try:
         with os.fdopen(fd, mode) as fh:
             yield fh
