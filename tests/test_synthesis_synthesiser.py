@@ -141,8 +141,10 @@ def test_holes_fall_back_to_the_colocated_average():
 
 
 def test_maps_describe_the_estimate():
+    # exact vectors: the flow guard, which would give the cells where content enters the picture
+    # DIS's vectors instead, is off
     past, future, truth, field = _translation(0.5)
-    res = synthesise_with_maps(past, future, field, t=0.5)
+    res = synthesise_with_maps(past, future, field, t=0.5, params=SynthParams(flow_guard=0))
     assert set(res.maps) == {
         "candidates", "confidence", "past_weight", "posterior_variance", "endpoint_mismatch", "predicted_error",
     }  # fmt: skip

@@ -112,7 +112,9 @@ class SynthParams:
     flow_guard : float
         0 (off), or a distance in luma samples (0.25..1024): after the refinement, a cell whose
         vector lies further than this from DIS optical flow averaged over the cell takes that
-        average (`synth.synthesis.flow_guard`).
+        average (`synth.synthesis.flow_guard`). Measured in the encoder loop
+        (`tests/benchmarks/results/encoder-value.md`), the guard at 4 samples is worth more to x264
+        on every clip than the cells without it.
     weight_cell : int
         Weights are computed per square cell of this many luma samples (1: per pixel); must divide
         ``group_size``.
@@ -158,7 +160,7 @@ class SynthParams:
     refinement_penalty: float = 1.0
     refinement_median: int = 0
     refinement_median_weight: float = 0.5
-    flow_guard: float = 0.0
+    flow_guard: float = 4.0
     weight_cell: int = 2
     idw_power: float = 2.0
     disagreement_threshold: float = 0.0

@@ -639,6 +639,10 @@ def _synthesise(past, future, fields, *, t, params, rows, past_time, future_time
     dpt, dft = reference_times(fields)
     pt = dpt if past_time is None else past_time
     ft = dft if future_time is None else future_time
+    # vectors out of range are refused as given, before the cells, their refinement and the flow
+    # guard can change them
+    landed = project_fields(fields, past_time=pt, future_time=ft, t=float(t))
+    _check_reach(landed, past.width, past.height)
     if params.motion_cell:
         fields = smooth_fields(fields, cell=params.motion_cell, smoothing=params.motion_smoothing)
         if params.cell_refinement:
@@ -653,8 +657,7 @@ def _synthesise(past, future, fields, *, t, params, rows, past_time, future_time
             )
         if params.flow_guard:
             fields = guard_fields(fields, {float(pt): past, float(ft): future}, distance=params.flow_guard)
-    landed = project_fields(fields, past_time=pt, future_time=ft, t=float(t))
-    _check_reach(landed, past.width, past.height)
+        landed = project_fields(fields, past_time=pt, future_time=ft, t=float(t))
     H, W = past.height, past.width
     fx, fy = (1, 1) if past.chroma_format == "mono" else past.chroma_factors
     params.check_chroma(past.chroma_format, fx, fy)  # a group must hold whole chroma samples

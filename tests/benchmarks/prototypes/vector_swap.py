@@ -34,7 +34,7 @@ from synth.synthesis.synthesiser import synthesise_with_maps
 
 QPS = (22, 27, 32, 37)
 GAP = 8
-AS_GIVEN = SynthParams(motion_smoothing=1, cell_refinement=0)
+AS_GIVEN = SynthParams(motion_smoothing=1, cell_refinement=0, flow_guard=0)
 
 
 def with_vectors(cells: VectorField, dx, dy) -> VectorField:
