@@ -26,7 +26,7 @@ from synth.io import open_clip
 from synth.makers import get_maker
 from synth.metrics import picture_psnr
 from synth.motion.estimator import estimate_reference_fields
-from synth.motion.rate import block_label_map
+from synth.synthesis.flow_guard import flow_per_cell
 from synth.synthesis.params import SynthParams
 from synth.synthesis.refine_cells import refine_fields
 from synth.synthesis.smooth_motion import smooth_fields
@@ -42,16 +42,6 @@ def with_vectors(cells: VectorField, dx, dy) -> VectorField:
         width=cells.width, height=cells.height, coded_time=cells.coded_time, reference_time=cells.reference_time,
         x=cells.x, y=cells.y, w=cells.w, h=cells.h, dx=dx, dy=dy, intra=cells.intra,
     )  # fmt: skip
-
-
-def flow_per_cell(cells: VectorField, flow: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """The flow averaged over each cell, in quarter samples."""
-    label = block_label_map(cells)
-    covered = label >= 0
-    n = len(cells.x)
-    count = np.maximum(np.bincount(label[covered], minlength=n), 1)
-    mean = [np.bincount(label[covered], weights=flow[..., k][covered], minlength=n) / count for k in range(2)]
-    return np.round(4 * mean[0]).astype(np.int64), np.round(4 * mean[1]).astype(np.int64)
 
 
 def main() -> None:
