@@ -110,9 +110,9 @@ class SynthParams:
         How much worse (8-bit units per luma sample of vector difference, 0..1000) the median may
         match and still be taken.
     flow_guard : float
-        0 (off), or a distance in luma samples (0.25..1024): after the refinement, a cell whose
-        vector lies further than this from DIS optical flow averaged over the cell takes that
-        average (`synth.synthesis.flow_guard`). Measured in the encoder loop
+        0 (off), or a distance in luma samples (0.25..1024; needs ``motion_cell``): after the
+        refinement, a cell whose vector lies further than this from DIS optical flow averaged over
+        the cell takes that average (`synth.synthesis.flow_guard`). Measured in the encoder loop
         (`tests/benchmarks/results/encoder-value.md`), the guard at 4 samples is worth more to x264
         on every clip than the cells without it.
     weight_cell : int
