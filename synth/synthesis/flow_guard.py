@@ -31,7 +31,7 @@ from synth.field import VectorField
 from synth.flow import dis_flow, luma8
 from synth.motion.rate import block_label_map
 from synth.picture import Picture
-from synth.synthesis.recent import RecentResults
+from synth.synthesis.recent import RecentResults, per_field_pair
 
 __all__ = ["flow_per_cell", "guard_cells", "guard_fields"]
 
@@ -102,14 +102,4 @@ def guard_fields(fields, pictures: dict, *, distance: float, preset: str = "medi
 
     A field between other pictures is returned as it is. The last few results are reused.
     """
-    fields = list(fields)
-    pairs = [(pictures.get(float(f.coded_time)), pictures.get(float(f.reference_time))) for f in fields]
-    key = (tuple(id(f) for f in fields), tuple(id(p) for pair in pairs for p in pair), float(distance), preset)
-    out = RECENT.get(key)
-    if out is None:
-        out = [
-            f if c is None or r is None else guard_cells(f, c, r, distance=distance, preset=preset)
-            for f, (c, r) in zip(fields, pairs)
-        ]
-        RECENT.put(key, (fields, pairs), out)
-    return list(out)
+    return per_field_pair(RECENT, fields, pictures, guard_cells, distance=distance, preset=preset)

@@ -10,7 +10,7 @@ from __future__ import annotations
 import threading
 from collections import OrderedDict
 
-__all__ = ["RecentResults"]
+__all__ = ["RecentResults", "per_field_pair"]
 
 
 class RecentResults:
@@ -47,3 +47,24 @@ class RecentResults:
         """Forget every entry (benchmarks time the first picture of a pair this way)."""
         with self._lock:
             self._entries.clear()
+
+
+def per_field_pair(cache: RecentResults, fields, pictures: dict, work, **options) -> list:
+    """``work(field, coded, reference, **options)`` for every field whose two pictures are in `pictures`.
+
+    `pictures` maps display times to pictures; a field between other pictures is returned as it
+    is. The result is kept in `cache`, keyed by the identity of the fields and pictures and by
+    `options`, so every further picture between the same reference pair reuses it.
+    """
+    fields = list(fields)
+    pairs = [(pictures.get(float(f.coded_time)), pictures.get(float(f.reference_time))) for f in fields]
+    key = (
+        tuple(id(f) for f in fields),
+        tuple(id(p) for pair in pairs for p in pair),
+        tuple(sorted(options.items())),
+    )
+    out = cache.get(key)
+    if out is None:
+        out = [f if c is None or r is None else work(f, c, r, **options) for f, (c, r) in zip(fields, pairs)]
+        cache.put(key, (fields, pairs), out)
+    return list(out)

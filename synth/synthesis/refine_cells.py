@@ -48,7 +48,7 @@ from synth.errors import ParameterError
 from synth.field import VectorField
 from synth.motion.rate import block_label_map
 from synth.picture import Picture
-from synth.synthesis.recent import RecentResults
+from synth.synthesis.recent import RecentResults, per_field_pair
 
 __all__ = ["refine_cells", "refine_fields"]
 
@@ -265,15 +265,4 @@ def refine_fields(fields, pictures: dict, **options) -> list[VectorField]:
     ``median_weight``). A field between other pictures is returned as it is. The last few results
     are reused.
     """
-    fields = list(fields)
-    pairs = [(pictures.get(float(f.coded_time)), pictures.get(float(f.reference_time))) for f in fields]
-    key = (
-        tuple(id(f) for f in fields),
-        tuple(id(p) for pair in pairs for p in pair),
-        tuple(sorted(options.items())),
-    )
-    out = RECENT.get(key)
-    if out is None:
-        out = [f if c is None or r is None else refine_cells(f, c, r, **options) for f, (c, r) in zip(fields, pairs)]
-        RECENT.put(key, (fields, pairs), out)
-    return list(out)
+    return per_field_pair(RECENT, fields, pictures, refine_cells, **options)
